@@ -1,0 +1,1 @@
+"""The live shell around the kinetics library: folder events, the ledger loop, live views."""
