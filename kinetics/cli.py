@@ -52,8 +52,152 @@ def _cmd_inspect(args) -> int:
     return 0
 
 
+# ---------------------------------------------------------------- fit (rates)
+def _add_fit(sub) -> None:
+    from kinetics.rates.laws import MODELS
+
+    p = sub.add_parser("fit", help="rate law or mechanism fitted to a concentration table")
+    p.add_argument("table", type=Path, help="delimited table: a time column (s) and concentration columns")
+    p.add_argument("--time-column", required=True, help="column with time in s from the reaction start")
+    p.add_argument("--column", action="append", required=True, help="concentration column (repeat for several)")
+    how = p.add_mutually_exclusive_group(required=True)
+    how.add_argument("--model", choices=MODELS, help="integrated rate law")
+    how.add_argument("--mechanism", help="reaction text, e.g. 'A -> B; B -> C' (columns name species)")
+    p.add_argument("--observed", choices=("reactant", "product"), default="reactant",
+                   help="what a single column measures (default reactant)")
+    p.add_argument("--species", action="append", help="species of each --column (multi-species models, mechanisms)")
+    p.add_argument("--sigma-column", action="append", help="uncertainty column for each --column (weights)")
+    p.add_argument("--absolute-sigma", action="store_true", help="sigmas are absolute (no chi-square rescaling)")
+    p.add_argument("--start", action="append", help="starting values NAME=VALUE[,NAME=VALUE...]")
+    p.add_argument("--fix", action="append", help="fixed parameter values NAME=VALUE[,...]")
+    p.add_argument("--initial", action="append", help="mechanism: known initial concentrations SPECIES=mol/L[,...]")
+    p.add_argument("--compare", action="store_true", help="rank candidate laws by AICc")
+    p.add_argument("--target-conversion", type=float, help="forecast the time to this conversion (0..1)")
+    p.add_argument("--bootstrap", type=int, default=0, help="residual-bootstrap refits (default 0)")
+    p.add_argument("--seed", type=int, default=None, help="seed of the bootstrap generator")
+    p.add_argument("--no-profile", action="store_true", help="skip profile-likelihood intervals")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=_cmd_fit)
+
+
+def _cmd_fit(args) -> int:
+    from kinetics.rates.command import fit_command, parse_assignments
+
+    payload, text = fit_command(
+        args.table, args.time_column, args.column, model=args.model, mechanism=args.mechanism,
+        observed=args.observed, species=args.species, sigma_columns=args.sigma_column,
+        compare=args.compare, target_conversion=args.target_conversion, bootstrap=args.bootstrap,
+        seed=args.seed, start=parse_assignments(args.start, "--start"),
+        fixed=parse_assignments(args.fix, "--fix"), initial=parse_assignments(args.initial, "--initial"),
+        profile=not args.no_profile, absolute_sigma=args.absolute_sigma)
+    if args.json:
+        _print_json(payload)
+    else:
+        print(text)
+    for warning in payload.get("warnings", []):
+        print(f"kinetics fit: warning: {warning}", file=sys.stderr)
+    return 0 if payload["converged"] else 1
+
+
+# ---------------------------------------------------------------- arrhenius (temperature)
+def _add_arrhenius(sub) -> None:
+    p = sub.add_parser("arrhenius", help="Ea, A, dH‡, dS‡, dG‡ from rate constants at several temperatures")
+    p.add_argument("table", type=Path, help="CSV: temperature_c or temperature_kelvin, k, k_stderr [, label]")
+    p.add_argument("--reference-temperature-kelvin", type=float, default=298.15,
+                   help="temperature at which dG‡ is given (default 298.15 K)")
+    p.add_argument("--basis", choices=("scatter", "stated"), default="scatter",
+                   help="headline intervals: chi-square-scaled with Student t (default) or from the stated stderrs")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=_cmd_arrhenius)
+
+
+def _cmd_arrhenius(args) -> int:
+    from kinetics.temperature import analyse_temperatures, read_arrhenius_table
+
+    kelvin, k, k_stderr, labels, warnings = read_arrhenius_table(args.table)
+    result = analyse_temperatures(kelvin, k, k_stderr, labels=labels, basis=args.basis,
+                                  reference_temperature_kelvin=args.reference_temperature_kelvin,
+                                  extra_warnings=warnings)
+    if args.json:
+        _print_json(result.to_dict())
+        return 0
+    print(result.report())
+    print()
+    print(result.table().to_string(index=False, float_format=lambda v: f"{v:.6g}"))
+    return 0
+
+
+# ---------------------------------------------------------------- watch (live)
+def _add_watch(sub) -> None:
+    p = sub.add_parser("watch", help="follow a run live as spectra arrive in its folder")
+    p.add_argument("config", type=Path, help="run config (TOML), as for `kinetics run`")
+    p.add_argument("--out", type=Path, default=None,
+                   help="output folder: ledger, series.csv, fit.json, index.html "
+                   "(default: <config name>.live next to the config)")
+    p.add_argument("--poll", action="store_true",
+                   help="list the folder instead of file events (network shares)")
+    p.add_argument("--replay", type=Path, metavar="DIR",
+                   help="feed this finished folder into the watched folder, as an instrument would")
+    p.add_argument("--interval", type=float, default=2.0, metavar="S",
+                   help="seconds between replayed files (default 2)")
+    p.add_argument("--quiet-period", type=float, default=None, metavar="S",
+                   help="seconds a file must stay unchanged to count as complete")
+    p.add_argument("--max-duration", type=float, default=None, metavar="S",
+                   help="stop after this many seconds")
+    p.add_argument("--idle-minutes", type=float, default=None, metavar="N",
+                   help="stop after N minutes without a new spectrum")
+    p.add_argument("--target-conversion", type=float, default=None, metavar="X",
+                   help="stop once the conversion (lower 95%% bound) reaches X (0-1)")
+    p.add_argument("--serve", type=int, nargs="?", const=8765, default=None, metavar="PORT",
+                   help="also serve the page on http://127.0.0.1:PORT (default 8765)")
+    p.add_argument("--plot", action="store_true", help="live matplotlib window")
+    p.add_argument("--json", action="store_true", help="print the final summary as one JSON object")
+    p.set_defaults(func=_cmd_watch)
+
+
+def _cmd_watch(args) -> int:
+    from watchers.live import watch_command
+
+    summary = watch_command(args)
+    if args.json:
+        _print_json(summary)
+    else:
+        print(f"stopped: {summary['stop_reason']}")
+        counts = summary["counts"]
+        print(f"files:   {counts['processed']} processed, {counts['duplicate']} duplicate, "
+              f"{counts['quarantined']} quarantined, {counts['replaced']} replaced")
+        print(f"output:  {summary['out_dir']}")
+    return 0
+
+
+# ---------------------------------------------------------------- init (report)
+def _add_init(sub) -> None:
+    p = sub.add_parser("init", help="draft a commented starter config from a folder's first spectrum")
+    p.add_argument("folder", type=Path, help="folder of spectra (JCAMP-DX or CSV)")
+    p.add_argument("--out", type=Path, default=None,
+                   help="config to write (default: <folder name>.toml beside the folder)")
+    p.add_argument("--force", action="store_true", help="replace an existing config")
+    p.set_defaults(func=_cmd_init)
+
+
+def _cmd_init(args) -> int:
+    from kinetics.init import draft_config
+
+    draft = draft_config(args.folder, args.out, force=args.force)
+    config = draft.config_path
+    print(f"read {draft.source} ({draft.spectrum.nucleus}, {draft.spectrum.observe_mhz:.3f} MHz): "
+          f"{len(draft.peaks)} lines above {draft.threshold:.3g} (noise sigma {draft.noise_sigma:.3g})")
+    for window in draft.windows:
+        lo, hi = window.window_ppm
+        print(f"  {window.name:12s} {lo:7.3f} .. {hi:7.3f} ppm  {window.role:9s} {window.multiplicity}")
+    for message in draft.skipped:
+        print(f"  skipped: {message}")
+    print(f"wrote {config}: edit species, nuclei and the internal standard, then `kinetics run {config}`")
+    return 0
+
+
 # ---------------------------------------------------------------- commands registry
-_ADDERS = [_add_inspect]
+_ADDERS = [_add_inspect, _add_arrhenius, _add_watch, _add_fit, _add_init]
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -1,0 +1,142 @@
+"""The bundled demo: an invented reaction followed on an invented 60 MHz benchtop magnet.
+
+Scenario (every compound name is invented)
+------------------------------------------
+Hydrolysis of the fictitious ester *tessyl ethanoate* (reactant, "ester") in aqueous
+acetonitrile with excess water, giving the fictitious alcohol *tessol* (product,
+"alcohol") and acetic acid; pseudo-first order in the ester.  An inert internal standard,
+the fictitious *dimethyl orbate* ("standard", a 6-proton singlet at 6.20 ppm, 0.0500
+mol/L), is weighed in.  The solvent is not deuterated: a large water line sits at 4.75
+ppm.  Runs at 25, 35, 45 and 55 degrees C; the generator's rate constants follow an
+Arrhenius law with ``EA_KJ_PER_MOL`` and ``K_REF_PER_S`` at 25 degrees C.
+
+1H signals at 60 MHz (shift ppm, protons, multiplicity, J Hz):
+
+=========  ======================  ====  =======  =====
+species    group                   ppm   nuclei   J
+=========  ======================  ====  =======  =====
+ester      O-CH2 (triplet)         4.05  2        6.8
+ester      CH3-CO (singlet)        2.04  3        -
+ester      CH3 (triplet)           0.93  3        7.2
+alcohol    HO-CH2 (triplet)        3.58  2        6.6
+alcohol    CH3 (triplet)           0.90  3        7.2
+acid       CH3-CO2H (singlet)      2.09  3        -
+standard   singlet                 6.20  6        -
+=========  ======================  ====  =======  =====
+
+The two CH3 triplets (0.03 ppm apart) and the acetyl singlets (0.05 ppm apart) overlap
+at 60 MHz; the O-CH2 and HO-CH2 triplets are resolved and are what the example configs
+integrate.  Artefacts per spectrum: noise, zero- and first-order phase errors, a slow
+field drift (the magnet warms), a baseline roll and the water line.
+
+The data are made by :func:`make_demo_data` from a fixed seed; ``kinetics demo
+--make-data DIR`` regenerates them bit for bit.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+from datetime import datetime, timedelta, timezone
+from pathlib import Path
+
+import numpy as np
+from scipy import constants
+
+from kinetics.simulate import Acquisition, Multiplet, SpeciesSignals, write_series
+
+SEED = 20261201
+EA_KJ_PER_MOL = 62.0
+K_REF_PER_S = 1.5e-4
+T_REF_KELVIN = 298.15
+ESTER_INITIAL_MOL_PER_L = 0.400
+STANDARD_MOL_PER_L = 0.0500
+TEMPERATURES_C = (25.0, 35.0, 45.0, 55.0)
+SPECTRA_PER_RUN = 36
+HALF_LIVES_COVERED = 3.5
+SCAN_DURATION_S = 16.0
+ACQUISITION = Acquisition(observe_mhz=60.0, n_points=4096, spectral_width_ppm=12.0,
+                          carrier_ppm=4.5, nucleus="1H")
+
+SPIN_SYSTEMS = (
+    SpeciesSignals("ester", (
+        Multiplet(4.05, 2, j_hz=6.8, multiplicity=3, width_hz=1.2),
+        Multiplet(2.04, 3, width_hz=1.2),
+        Multiplet(0.93, 3, j_hz=7.2, multiplicity=3, width_hz=1.2),
+    )),
+    SpeciesSignals("alcohol", (
+        Multiplet(3.58, 2, j_hz=6.6, multiplicity=3, width_hz=1.2),
+        Multiplet(0.90, 3, j_hz=7.2, multiplicity=3, width_hz=1.2),
+    )),
+    SpeciesSignals("acid", (Multiplet(2.09, 3, width_hz=1.2),)),
+    SpeciesSignals("standard", (Multiplet(6.20, 6, width_hz=1.0),)),
+)
+WATER = Multiplet(4.75, 60.0, width_hz=4.0)  # amplitude 60 "nuclei" at unit concentration
+
+
+@dataclass(frozen=True)
+class DemoRun:
+    """One temperature of the demo study and the truth the generator used."""
+
+    folder: str
+    temperature_c: float
+    k_per_s: float
+    interval_s: float
+
+
+def k_true(temperature_c: float) -> float:
+    """The generator's k(T) = k_ref exp(-(Ea/R)(1/T - 1/T_ref)), s^-1."""
+    t_kelvin = temperature_c + constants.zero_Celsius
+    return K_REF_PER_S * math.exp(-EA_KJ_PER_MOL * 1e3 / constants.R * (1.0 / t_kelvin - 1.0 / T_REF_KELVIN))
+
+
+def demo_runs() -> list[DemoRun]:
+    runs = []
+    for temperature_c in TEMPERATURES_C:
+        k = k_true(temperature_c)
+        span_s = HALF_LIVES_COVERED * math.log(2.0) / k
+        # whole seconds keep file timestamps exact
+        interval_s = float(round(span_s / (SPECTRA_PER_RUN - 1)))
+        runs.append(DemoRun(f"run_{int(temperature_c):02d}C", temperature_c, k, interval_s))
+    return runs
+
+
+def make_demo_data(folder: str | Path) -> list[Path]:
+    """Write the demo series (one sub-folder per temperature) and return the run folders."""
+    folder = Path(folder)
+    rng = np.random.default_rng(SEED)
+    start = datetime(2026, 3, 9, 8, 30, 0, tzinfo=timezone.utc)
+    written = []
+    for number, run in enumerate(demo_runs()):
+        n = SPECTRA_PER_RUN
+        # the first spectrum is taken 60 s after mixing, then one every interval
+        times_s = 60.0 + run.interval_s * np.arange(n)
+        ester = ESTER_INITIAL_MOL_PER_L * np.exp(-run.k_per_s * times_s)
+        formed = ESTER_INITIAL_MOL_PER_L - ester
+        concentrations = {"ester": ester, "alcohol": formed, "acid": formed,
+                          "standard": np.full(n, STANDARD_MOL_PER_L)}
+        drift = 0.012 * (1.0 - np.exp(-times_s / times_s[-1] * 3.0)) + rng.normal(0.0, 0.0015, n)
+        phase0 = rng.uniform(-40.0, 40.0, n)
+        phase1 = rng.uniform(-15.0, 15.0, n)
+        run_start = start + timedelta(days=number)
+        path = folder / run.folder
+        write_series(
+            path, times_s, concentrations, SPIN_SYSTEMS, rng,
+            acquisition=ACQUISITION, start_utc=run_start, scan_duration_s=SCAN_DURATION_S,
+            n_scans=16, format="jcamp", kind="spectrum", compression="dif", snr=150.0,
+            phase0_deg=phase0, phase1_deg=phase1, drift_ppm=drift, baseline_roll=0.01,
+            solvent=WATER, amplitude_per_nucleus=1.0e4,
+            title=f"tessyl ethanoate hydrolysis {run.temperature_c:g} C",
+        )
+        truth = json.loads((path / "truth.json").read_text())
+        truth["scenario"] = {
+            "reaction": "tessyl ethanoate + H2O -> tessol + acetic acid (invented compounds)",
+            "temperature_c": run.temperature_c, "k_per_s": run.k_per_s,
+            "ea_kj_per_mol": EA_KJ_PER_MOL, "k_ref_per_s": K_REF_PER_S,
+            "t_ref_kelvin": T_REF_KELVIN, "ester_initial_mol_per_l": ESTER_INITIAL_MOL_PER_L,
+            "standard_mol_per_l": STANDARD_MOL_PER_L, "seed": SEED,
+        }
+        (path / "truth.json").write_text(json.dumps(truth, indent=2) + "\n")
+        written.append(path)
+    return written

@@ -1,0 +1,1170 @@
+"""FID -> spectrum processing: one pure function per step, and a pipeline built from config.
+
+Every step takes a record (:class:`~kinetics.spectra.spectrum.Fid` or
+:class:`~kinetics.spectra.spectrum.Spectrum`) and returns a new one; nothing is edited in
+place and nothing is remembered between calls.  The usual order, which
+:class:`Pipeline` follows, is::
+
+    remove_dc_offset -> apodize_exponential / apodize_gaussian -> zero_fill
+    -> remove_group_delay -> fft -> phase (manual or auto_phase) -> correct_baseline
+    -> reference
+
+and afterwards, over a whole series, :func:`align_series`.
+
+Conventions
+-----------
+* Frequency axis.  The FID's complex points are ``x[n] = sum_j a_j exp(2 pi i f_j n dwell)``
+  with ``f_j`` the offset in Hz from the carrier.  :func:`fft` uses numpy's forward DFT
+  (kernel ``exp(-2 pi i k n / N)``), so a line at offset ``+f`` Hz appears at
+  ``carrier_ppm + f / observe_mhz`` ppm, on the high-ppm (left) side.  The returned
+  spectrum runs from ``carrier + SW/2`` down to ``carrier - SW/2`` (strictly decreasing
+  ppm, as drawn).
+* Phase.  A phase correction multiplies the complex spectrum by ``exp(i phi(ppm))`` with
+  ``phi = p0 + p1 * (pivot_ppm - ppm) / width_ppm`` (degrees), ``width_ppm`` the full
+  width of the spectrum.  ``p1`` is thus the phase change across the whole spectrum,
+  growing from left (high ppm) to right; with ``pivot_ppm`` at the left edge this is the
+  convention of ``nmrglue.process.proc_base.ps``.
+* SNR.  :func:`snr` is peak height divided by *one* noise standard deviation (the "1 sigma"
+  convention, not the "2 sigma" one some instruments quote; divide by 2 to compare).
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import dataclasses
+from dataclasses import dataclass
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+from scipy import optimize
+
+from kinetics.errors import ConfigError
+from kinetics.spectra.spectrum import Fid, Spectrum
+
+log = logging.getLogger(__name__)
+
+__all__ = [
+    "remove_dc_offset",
+    "detect_group_delay",
+    "remove_group_delay",
+    "apodize_exponential",
+    "apodize_gaussian",
+    "zero_fill",
+    "fft",
+    "phase",
+    "PhaseResult",
+    "auto_phase",
+    "acme_score",
+    "correct_baseline",
+    "reference",
+    "ReferenceResult",
+    "align_series",
+    "AlignmentResult",
+    "noise_sigma",
+    "snr",
+    "Pipeline",
+    "ProcessedSpectrum",
+    "SeriesResult",
+    "process_series",
+    "fid_to_spectrum",
+]
+
+
+# ------------------------------------------------------------------ time domain
+def remove_dc_offset(fid: Fid, tail_fraction: float = 0.2) -> Fid:
+    """Subtract the mean of the FID's last ``tail_fraction`` of points (complex).
+
+    By the end of the acquisition the signal has decayed, so the tail's mean is the
+    receiver's constant offset, which would otherwise become a spike at the carrier.
+
+    Parameters
+    ----------
+    fid : Fid
+        Raw FID, ``data`` shape (n,).
+    tail_fraction : float, default 0.2
+        Fraction (0, 0.5] of the points, taken from the end, that estimate the offset
+        (common practice: the last 10-25 %).
+    """
+    if not 0.0 < tail_fraction <= 0.5:
+        raise ValueError(f"tail_fraction must be in (0, 0.5], got {tail_fraction}")
+    n_tail = max(1, int(round(fid.n_points * tail_fraction)))
+    offset = fid.data[-n_tail:].mean()
+    return fid.replace(data=fid.data - offset)
+
+
+def detect_group_delay(fid: Fid, search_points: int = 512, threshold: float = 0.2) -> float:
+    """Digital-filter delay in points, estimated from the FID's rising edge (0 if none).
+
+    A digital filter delays the FID: the first points are near zero and the signal then
+    rises steeply.  The delay is taken as the point of steepest rise of ``|x|``
+    (for a symmetric filter the step response is steepest at its group delay), refined
+    to a fraction of a point by a parabola through the three largest differences.  The
+    remaining error (a fraction of a point) is a first-order phase that
+    :func:`auto_phase` removes.
+
+    Parameters
+    ----------
+    fid : Fid
+        FID, ``data`` shape (n,).
+    search_points : int, default 512
+        How many leading points are searched for the edge.
+    threshold : float, default 0.2
+        A rising edge is declared only when ``|x[0]|`` is below ``threshold`` times the
+        largest ``|x|`` among the searched points; a FID that starts at its maximum
+        (no filter delay) returns 0.0.
+
+    Returns
+    -------
+    float
+        Delay in points (>= 0).
+    """
+    magnitude = np.abs(fid.data[: max(4, min(search_points, fid.n_points))])
+    peak = magnitude.max()
+    if peak == 0 or magnitude[0] >= threshold * peak:
+        return 0.0
+    rise = np.diff(magnitude)
+    # only the part before the first maximum counts: the edge precedes the signal
+    first_max = int(np.argmax(magnitude >= 0.5 * peak))
+    k = int(np.argmax(rise[: max(1, first_max + 1)]))
+    offset = 0.0
+    if 0 < k < rise.size - 1:
+        y0, y1, y2 = rise[k - 1], rise[k], rise[k + 1]
+        denominator = y0 - 2 * y1 + y2
+        if denominator < 0:
+            offset = 0.5 * (y0 - y2) / denominator
+    # rise[k] lies between points k and k+1
+    return float(k + 0.5 + offset)
+
+
+def remove_group_delay(fid: Fid, delay_points: float | None = None) -> Fid:
+    """Rotate the digital-filter delay's whole points to the end of the FID.
+
+    The points before the delay are the filter's response *before* t = 0; for the
+    periodic signal the DFT assumes, they belong at negative times, i.e. at the very end
+    of the array.  So zero-fill first and call this afterwards: the integer part of the
+    delay is removed by a circular shift of the zero-filled array; the fractional part
+    is kept in ``group_delay_points`` and :func:`fft` removes it as a first-order phase
+    ``2 pi * delay * offset_hz / SW`` (a fractional shift in the time domain would
+    ring).  Rolling before zero-filling leaves the edge in the middle of the array and
+    distorts the baseline.
+
+    Parameters
+    ----------
+    fid : Fid
+        FID whose first ``delay_points`` are the filter's rising edge, shape (n,).
+    delay_points : float, optional
+        Delay in points; default ``fid.group_delay_points`` (the declared delay).
+    """
+    delay = fid.group_delay_points if delay_points is None else float(delay_points)
+    if delay < 0:
+        raise ValueError(f"delay_points must be >= 0, got {delay}")
+    whole = int(math.floor(delay))
+    if whole >= fid.n_points:
+        raise ValueError(f"delay of {delay} points exceeds the FID's {fid.n_points} points")
+    data = np.roll(fid.data, -whole) if whole else fid.data
+    return fid.replace(data=data, group_delay_points=delay - whole)
+
+
+def apodize_exponential(fid: Fid, line_broadening_hz: float) -> Fid:
+    """Multiply by ``exp(-pi * LB * t)``: adds ``LB`` Hz to every Lorentzian FWHM.
+
+    Areas are unchanged (the value at t = 0 is untouched).  ``t`` is counted from the
+    filter delay ``fid.group_delay_points``, so apply before :func:`remove_group_delay`.
+    ``fid.data`` shape (n,).
+    """
+    if line_broadening_hz == 0:
+        return fid
+    window = np.exp(-math.pi * line_broadening_hz * _time_from_echo(fid))
+    return fid.replace(data=fid.data * window)
+
+
+def apodize_gaussian(fid: Fid, gaussian_hz: float) -> Fid:
+    """Multiply by ``exp(-(pi * g * t)^2 / (4 ln 2))``: convolves lines with a Gaussian of FWHM ``g`` Hz.
+
+    Areas are unchanged.  ``fid.data`` shape (n,).
+    """
+    if gaussian_hz == 0:
+        return fid
+    t = _time_from_echo(fid)
+    window = np.exp(-((math.pi * gaussian_hz * t) ** 2) / (4.0 * math.log(2.0)))
+    return fid.replace(data=fid.data * window)
+
+
+def _time_from_echo(fid: Fid) -> np.ndarray:
+    # the signal's t = 0 is at point group_delay_points; the filter's pre-response
+    # before it counts as negative time, windowed symmetrically
+    return np.abs(np.arange(fid.n_points) - fid.group_delay_points) * fid.dwell_s
+
+
+def zero_fill(fid: Fid, size: int | str = "auto") -> Fid:
+    """Append zeros to ``size`` points.
+
+    Parameters
+    ----------
+    fid : Fid
+        FID, ``data`` shape (n,).
+    size : int or "auto", default "auto"
+        Target number of points (>= n).  ``"auto"`` is the smallest power of two that is
+        at least twice ``n`` (one doubling recovers the information in the imaginary
+        part; common practice).
+    """
+    n = fid.n_points
+    if size == "auto":
+        target = 1 << int(math.ceil(math.log2(2 * n)))
+    else:
+        target = int(size)
+        if target < n:
+            raise ValueError(f"zero_fill size {target} is smaller than the FID's {n} points")
+    if target == n:
+        return fid
+    return fid.replace(data=np.concatenate([fid.data, np.zeros(target - n, complex)]))
+
+
+def fft(fid: Fid, first_point_scale: float = 0.5) -> Spectrum:
+    """Fourier-transform a FID into a spectrum on a decreasing ppm axis.
+
+    Parameters
+    ----------
+    fid : Fid
+        FID, ``data`` shape (n,), already zero-filled if wanted.
+    first_point_scale : float, default 0.5
+        Factor for the first point before the transform: 0.5 makes the discrete sum the
+        trapezoid rule of the continuous transform, so no constant offset appears
+        (Otting, Widmer and Wüthrich 1986).
+
+    Returns
+    -------
+    Spectrum
+        ``n`` points; the point of offset ``f`` Hz is at ``carrier_ppm + f / observe_mhz``;
+        a remaining fractional ``fid.group_delay_points`` has been removed as a
+        first-order phase.  The header gains ``processing.spectral_width_hz``.
+    """
+    data = np.array(fid.data, copy=True)
+    data[0] *= first_point_scale
+    n = data.size
+    spectral_width_hz = fid.spectral_width_hz
+    transformed = np.fft.fftshift(np.fft.fft(data))
+    offset_hz = (np.arange(n) - n // 2) * (spectral_width_hz / n)
+    if fid.group_delay_points:
+        transformed *= np.exp(2j * math.pi * fid.group_delay_points * offset_hz / spectral_width_hz)
+    transformed, offset_hz = transformed[::-1], offset_hz[::-1]
+    header = dict(fid.header)
+    header["processing.spectral_width_hz"] = repr(spectral_width_hz)
+    return Spectrum(
+        ppm=fid.carrier_ppm + offset_hz / fid.observe_mhz,
+        real=transformed.real,
+        imag=transformed.imag,
+        nucleus=fid.nucleus,
+        observe_mhz=fid.observe_mhz,
+        acquired_utc=fid.acquired_utc,
+        duration_s=fid.duration_s,
+        n_scans=fid.n_scans,
+        source_path=fid.source_path,
+        sha256=fid.sha256,
+        header=header,
+    )
+
+
+# ------------------------------------------------------------------ phase
+def _phase_ramp(ppm: np.ndarray, p0_deg: float, p1_deg: float, pivot_ppm: float) -> np.ndarray:
+    width_ppm = ppm[0] - ppm[-1]
+    return np.deg2rad(p0_deg + p1_deg * (pivot_ppm - ppm) / width_ppm)
+
+
+def phase(spectrum: Spectrum, p0_deg: float, p1_deg: float = 0.0, pivot_ppm: float | None = None) -> Spectrum:
+    """Apply a zero- and first-order phase correction.
+
+    ``spectrum.complex * exp(i * phi)`` with ``phi = p0 + p1 * (pivot_ppm - ppm) / width_ppm``
+    (degrees; see the module docstring).
+
+    Parameters
+    ----------
+    spectrum : Spectrum
+        Needs the imaginary part (shape (n,)); a real-only spectrum cannot be phased.
+    p0_deg : float
+        Zero-order phase in degrees.
+    p1_deg : float, default 0
+        First-order phase in degrees across the full spectral width.
+    pivot_ppm : float, optional
+        Shift where the first-order term is zero; default the left edge ``ppm[0]``.
+    """
+    if spectrum.imag is None:
+        raise ValueError("phasing needs the imaginary part, and this spectrum has none")
+    pivot = spectrum.ppm[0] if pivot_ppm is None else pivot_ppm
+    rotated = spectrum.complex * np.exp(1j * _phase_ramp(spectrum.ppm, p0_deg, p1_deg, pivot))
+    return spectrum.replace(real=rotated.real, imag=rotated.imag)
+
+
+@dataclass(frozen=True)
+class PhaseResult:
+    """Outcome of :func:`auto_phase`.
+
+    Attributes
+    ----------
+    spectrum : Spectrum
+        The phased spectrum.
+    p0_deg, p1_deg : float
+        Applied zero- and first-order phase (degrees, p0 wrapped to (-180, 180]).
+    pivot_ppm : float
+        Pivot of the first-order term.
+    score : float
+        Final ACME objective (lower is better).
+    succeeded : bool
+        Whether the optimiser converged.
+    message : str
+        Why not, when it did not.
+    """
+
+    spectrum: Spectrum
+    p0_deg: float
+    p1_deg: float
+    pivot_ppm: float
+    score: float
+    succeeded: bool
+    message: str = ""
+
+
+def acme_score(real: np.ndarray, penalty_weight: float = 1000.0) -> float:
+    """ACME objective: entropy of the first derivative plus a negativity penalty.
+
+    Chen, Weng, Goh and Garland 2002, J. Magn. Reson. 158, 164-168::
+
+        h_i = |R'_i| / sum |R'|,   E = -sum h_i ln h_i,
+        P = gamma * sum_{R_i < 0} R_i^2       (R scaled to max |R| = 1)
+
+    A correctly phased spectrum has sharp, positive absorption lines: its derivative is
+    concentrated on few points (low entropy) and it has little negative area.
+
+    Parameters
+    ----------
+    real : ndarray, shape (n,)
+        Real part of the trial spectrum.
+    penalty_weight : float, default 1000
+        gamma; large enough that negative lobes are never preferred (from memory of the
+        paper's choice; scale-free here because ``R`` is normalised).
+    """
+    scale = np.max(np.abs(real))
+    if scale == 0:
+        return 0.0
+    r = real / scale
+    derivative = np.abs(np.diff(r))
+    total = derivative.sum()
+    h = derivative[derivative > 0] / total
+    entropy = -np.sum(h * np.log(h))
+    negative = r[r < 0]
+    return float(entropy + penalty_weight * np.sum(negative * negative) / r.size)
+
+
+def auto_phase(
+    spectrum: Spectrum,
+    method: str = "peaks",
+    pivot_ppm: float | None = None,
+    p1_range_deg: float = 360.0,
+    region_ppm: tuple[float, float] | None = None,
+) -> PhaseResult:
+    """Find the zero- and first-order phase automatically.
+
+    Two methods:
+
+    ``"peaks"`` (default; robust)
+        Phase coherence of the signal groups.  Runs of points whose magnitude exceeds
+        2 % of the tallest are the groups (a whole multiplet is one, at most 40 groups);
+        the phase of each is the angle of ``sum z |z|`` over the group (a symmetric
+        group's dispersion cancels in this sum).  A correct (p0, p1) makes all
+        these angles zero, so p1 maximises the weighted resultant
+        ``R(p1) = |sum_k w_k exp(i (theta_k + p1 r_k))|`` (weights ``w_k`` the peak
+        heights, ``r_k`` the first-order ramp at the peak), scanned on a 1-degree grid over
+        ``[-p1_range_deg, p1_range_deg]`` and refined by a bounded scalar search; p0 is
+        then the angle that cancels the mean phase.  No unwrapping is needed, and baseline
+        rolls, which fool entropy measures, barely matter.
+    ``"acme"``
+        ACME entropy minimisation (Chen et al. 2002; :func:`acme_score`), scanned over p1
+        with p0 set in closed form for each trial and polished by Nelder-Mead.  It can
+        settle a few tens of degrees off in p1 on spectra with few lines or a rolling
+        baseline (measured on simulations; see the project notes).
+
+    Large first-order phases from a filter delay should first be removed with
+    :func:`remove_group_delay` (the remainder is below a point, i.e. below 360 degrees).
+
+    Parameters
+    ----------
+    spectrum : Spectrum
+        Transformed spectrum with an imaginary part, shape (n,).
+    method : {"peaks", "acme"}, default "peaks"
+    pivot_ppm : float, optional
+        Pivot for p1; default the tallest point of the magnitude spectrum, which keeps p0
+        and p1 nearly independent.
+    p1_range_deg : float, default 360
+        Half-width of the p1 search, degrees.
+    region_ppm : (high, low), optional
+        Only peaks (or, for ACME, points) within this region count, e.g. to leave out a
+        solvent line.
+
+    Returns
+    -------
+    PhaseResult
+    """
+    if spectrum.imag is None:
+        raise ValueError("auto-phasing needs the imaginary part, and this spectrum has none")
+    z = spectrum.complex
+    ppm = spectrum.ppm
+    if pivot_ppm is None:
+        pivot_ppm = float(ppm[int(np.argmax(np.abs(z)))])
+    inside = np.ones(ppm.size, bool)
+    if region_ppm is not None:
+        inside = (ppm <= max(region_ppm)) & (ppm >= min(region_ppm))
+    ramp = np.deg2rad((pivot_ppm - ppm) / (ppm[0] - ppm[-1]))
+    if method == "peaks":
+        p0_deg, p1_deg, score, ok, message = _phase_by_peaks(z, ramp, inside, p1_range_deg)
+    elif method == "acme":
+        p0_deg, p1_deg, score, ok, message = _phase_by_acme(z[inside], ramp[inside], p1_range_deg)
+    else:
+        raise ValueError(f"unknown auto-phase method {method!r} (use 'peaks' or 'acme')")
+    p0_deg = float((p0_deg + 180.0) % 360.0 - 180.0)
+    phased = phase(spectrum, p0_deg, p1_deg, pivot_ppm)
+    return PhaseResult(phased, p0_deg, float(p1_deg), float(pivot_ppm), float(score), ok, message)
+
+
+def _peak_phases(z: np.ndarray, inside: np.ndarray, min_fraction: float = 0.02, max_groups: int = 40):
+    """Centre indices, phases (rad) and weights of the signal groups of ``|z|``.
+
+    A group is a run of points whose magnitude exceeds ``min_fraction`` of the tallest
+    (gaps of a few points are bridged), so a whole multiplet counts as one: its lines'
+    dispersion tails, which shift each line's own phase, cancel over the symmetric group.
+    """
+    magnitude = np.where(inside, np.abs(z), 0.0)
+    top = magnitude.max()
+    if top == 0:
+        return np.array([], int), np.array([]), np.array([])
+    above = magnitude > min_fraction * top
+    edges = np.flatnonzero(np.diff(np.concatenate([[0], above.astype(np.int8), [0]])))
+    starts, stops = edges[0::2], edges[1::2]
+    groups: list[list[int]] = []
+    for start, stop in zip(starts, stops):
+        if groups and start - groups[-1][1] <= 3:
+            groups[-1][1] = stop
+        else:
+            groups.append([start, stop])
+    centres, phases, weights = [], [], []
+    for start, stop in groups:
+        if stop - start < 3:
+            continue  # a noise spike, not a line
+        part = z[start:stop]
+        power = np.abs(part)
+        centres.append(start + int(np.argmax(power)))
+        phases.append(np.angle(np.sum(part * power)))
+        weights.append(np.sum(power * power) / power.max())
+    order = np.argsort(weights)[::-1][:max_groups]
+    return (np.asarray(centres, int)[order], np.asarray(phases)[order], np.asarray(weights)[order])
+
+
+def _phase_by_peaks(z, ramp, inside, p1_range_deg):
+    peaks, theta, weight = _peak_phases(z, inside)
+    if peaks.size == 0:
+        return 0.0, 0.0, 0.0, False, "no peaks found to phase on"
+    slope = ramp[peaks]  # rad of phase per degree of p1 at each peak
+    grid = np.arange(-p1_range_deg, p1_range_deg + 0.5, 1.0)
+    values = np.abs(np.exp(1j * (theta[None, :] + grid[:, None] * slope[None, :])) @ weight)
+    k = int(np.argmax(values))
+    lo, hi = grid[max(k - 1, 0)], grid[min(k + 1, grid.size - 1)]
+
+    def negative_resultant(p1_deg: float) -> float:
+        return -abs(np.sum(weight * np.exp(1j * (theta + p1_deg * slope))))
+
+    found = optimize.minimize_scalar(negative_resultant, bounds=(lo, hi), method="bounded",
+                                     options={"xatol": 1e-4})
+    p1_deg = float(found.x)
+    total = np.sum(weight * np.exp(1j * (theta + p1_deg * slope)))
+    p0_deg = float(-np.degrees(np.angle(total)))
+    coherence = float(abs(total) / weight.sum())
+    ok = coherence > 0.9
+    message = "" if ok else f"peak phases do not agree (coherence {coherence:.2f}); check the result"
+    return p0_deg, p1_deg, 1.0 - coherence, ok, message
+
+
+def _phase_by_acme(zr, ramp, p1_range_deg, p1_step_deg: float = 20.0):
+    weight = np.abs(zr)
+
+    def rotated(p0_deg: float, p1_deg: float) -> np.ndarray:
+        return zr * np.exp(1j * (np.deg2rad(p0_deg) + p1_deg * ramp))
+
+    def closed_form_p0(p1_deg: float) -> float:
+        w = zr * np.exp(1j * p1_deg * ramp)
+        return float(-np.degrees(np.angle(np.sum(w * weight))))
+
+    def score(params: np.ndarray) -> float:
+        return acme_score(rotated(params[0], params[1]).real)
+
+    grid = np.arange(-p1_range_deg, p1_range_deg + 0.5 * p1_step_deg, p1_step_deg)
+    trials = sorted((score(np.array([closed_form_p0(p1), p1])), closed_form_p0(p1), p1) for p1 in grid)
+    best = None
+    for _, p0, p1 in trials[:3]:
+        result = optimize.minimize(
+            score, np.array([p0, p1]), method="Nelder-Mead",
+            options={"xatol": 0.01, "fatol": 1e-10, "maxiter": 2000, "initial_simplex":
+                     np.array([[p0, p1], [p0 + 10, p1], [p0, p1 + 0.5 * p1_step_deg]])},
+        )
+        if best is None or result.fun < best.fun:
+            best = result
+    message = "" if best.success else f"Nelder-Mead did not converge: {best.message}"
+    return float(best.x[0]), float(best.x[1]), float(best.fun), bool(best.success), message
+
+
+# ------------------------------------------------------------------ baseline
+def correct_baseline(
+    spectrum: Spectrum,
+    method: str = "arpls",
+    lam: float = 1e7,
+    p: float = 0.01,
+    order: int = 3,
+    regions_ppm: Sequence[tuple[float, float]] | None = None,
+) -> tuple[Spectrum, np.ndarray]:
+    """Subtract a baseline estimated with pybaselines.
+
+    Parameters
+    ----------
+    spectrum : Spectrum
+        Phased spectrum, shape (n,).
+    method : {"arpls", "asls", "polynomial"}, default "arpls"
+        ``"asls"``: asymmetric least squares (Eilers and Boelens 2005);
+        ``"arpls"``: asymmetrically reweighted penalised least squares (Baek et al.
+        2015), more robust to noise;  both Whittaker smoothers from
+        ``pybaselines.whittaker``.  ``"polynomial"``: a polynomial of ``order`` fitted
+        only to the signal-free ``regions_ppm`` (``pybaselines.polynomial.poly`` with
+        zero weight elsewhere).
+    lam : float, default 1e7
+        Whittaker smoothness (dimensionless; larger is stiffer).  Scaled internally by
+        ``(n / 16384)^4`` so the same value gives the same stiffness in ppm at any point
+        count (the second-difference penalty scales with the fourth power of density).
+    p : float, default 0.01
+        asls asymmetry (weight of points above the baseline).
+    order : int, default 3
+        Polynomial order.
+    regions_ppm : sequence of (high, low), required for "polynomial"
+        Signal-free regions in ppm.
+
+    Returns
+    -------
+    (Spectrum, ndarray shape (n,))
+        Corrected spectrum (imaginary part kept as is) and the subtracted baseline.
+    """
+    from pybaselines import polynomial, whittaker
+
+    y = spectrum.real
+    n = y.size
+    lam_scaled = lam * (n / 16384.0) ** 4
+    if method == "asls":
+        baseline, _ = whittaker.asls(y, lam=lam_scaled, p=p)
+    elif method == "arpls":
+        baseline, _ = whittaker.arpls(y, lam=lam_scaled)
+    elif method == "polynomial":
+        if not regions_ppm:
+            raise ValueError("polynomial baseline needs regions_ppm (signal-free regions)")
+        weights = np.zeros(n)
+        for region in regions_ppm:
+            high, low = max(region), min(region)
+            weights[(spectrum.ppm <= high) & (spectrum.ppm >= low)] = 1.0
+        if weights.sum() <= order:
+            raise ValueError("the signal-free regions hold too few points for the polynomial")
+        # fit on a centred axis: keeps the Vandermonde matrix well conditioned
+        x = spectrum.ppm - spectrum.ppm.mean()
+        baseline, _ = polynomial.poly(y, x_data=x, poly_order=order, weights=weights)
+    else:
+        raise ValueError(f"unknown baseline method {method!r}")
+    return spectrum.replace(real=y - baseline), np.asarray(baseline)
+
+
+# ------------------------------------------------------------------ referencing
+@dataclass(frozen=True)
+class ReferenceResult:
+    """Outcome of :func:`reference`: the shifted spectrum, where the peak was found, the shift applied."""
+
+    spectrum: Spectrum
+    found_ppm: float
+    shift_ppm: float
+
+
+def _parabolic_offset(y0: float, y1: float, y2: float) -> float:
+    """Vertex offset (in points, within [-0.5, 0.5]) of a parabola through three samples."""
+    denominator = y0 - 2.0 * y1 + y2
+    if denominator >= 0:
+        return 0.0
+    return float(np.clip(0.5 * (y0 - y2) / denominator, -0.5, 0.5))
+
+
+def peak_position(spectrum: Spectrum, centre_ppm: float, window_ppm: float) -> float:
+    """Shift (ppm) of the tallest point within ``centre_ppm +/- window_ppm``, refined by a parabola."""
+    inside = np.flatnonzero(np.abs(spectrum.ppm - centre_ppm) <= window_ppm)
+    if inside.size == 0:
+        raise ValueError(f"no points within {centre_ppm} +/- {window_ppm} ppm")
+    k = int(inside[np.argmax(spectrum.real[inside])])
+    if 0 < k < spectrum.n_points - 1:
+        offset = _parabolic_offset(*spectrum.real[k - 1 : k + 2])
+    else:
+        offset = 0.0
+    step = spectrum.ppm[1] - spectrum.ppm[0]  # negative
+    return float(spectrum.ppm[k] + offset * step)
+
+
+def shift_axis(spectrum: Spectrum, shift_ppm: float) -> Spectrum:
+    """The same intensities on an axis moved by ``shift_ppm`` (no resampling)."""
+    return spectrum.replace(ppm=spectrum.ppm + shift_ppm)
+
+
+def reference(spectrum: Spectrum, peak_ppm: float = 0.0, window_ppm: float = 0.3,
+              target_ppm: float | None = None) -> ReferenceResult:
+    """Move the axis so a reference peak (TMS, a solvent line, any named peak) sits at ``target_ppm``.
+
+    Parameters
+    ----------
+    spectrum : Spectrum
+        Phased spectrum, shape (n,).
+    peak_ppm : float, default 0.0
+        Where the reference peak is expected (TMS: 0.0); the search window is centred here.
+    window_ppm : float, default 0.3
+        Half-width of the search window in ppm: the tallest point within
+        ``peak_ppm +/- window_ppm`` is taken, refined to sub-point precision by a parabola.
+    target_ppm : float, optional
+        Where the peak should be; default ``peak_ppm``.
+    """
+    target = peak_ppm if target_ppm is None else target_ppm
+    found = peak_position(spectrum, peak_ppm, window_ppm)
+    shift = target - found
+    return ReferenceResult(shift_axis(spectrum, shift), found, float(shift))
+
+
+# ------------------------------------------------------------------ alignment
+@dataclass(frozen=True)
+class AlignmentResult:
+    """Outcome of :func:`align_series`.
+
+    Attributes
+    ----------
+    spectra : tuple of Spectrum
+        Aligned spectra (axes moved, intensities untouched).
+    shifts_ppm : ndarray, shape (m,)
+        Shift added to each spectrum's axis (0 for the reference spectrum).
+    reference_index : int
+        The spectrum the others were aligned to.
+    """
+
+    spectra: tuple[Spectrum, ...]
+    shifts_ppm: np.ndarray
+    reference_index: int
+
+
+def _window_on(spectrum: Spectrum, grid_ppm: np.ndarray) -> np.ndarray:
+    # np.interp needs an increasing abscissa
+    return np.interp(grid_ppm[::-1], spectrum.ppm[::-1], spectrum.real[::-1])[::-1]
+
+
+def align_series(
+    spectra: Sequence[Spectrum],
+    window_ppm: tuple[float, float],
+    reference_index: int = 0,
+    max_shift_ppm: float = 0.1,
+) -> AlignmentResult:
+    """Align a series to one of its spectra by cross-correlation on a ppm window.
+
+    Each spectrum's real part on the window (interpolated onto the reference spectrum's
+    points there, mean removed) is cross-correlated with the reference's; the lag of
+    the maximum is refined by a parabola through its neighbours (sub-point accuracy) and
+    its negative is added to the spectrum's axis.
+
+    Parameters
+    ----------
+    spectra : sequence of Spectrum
+        The series (m spectra).
+    window_ppm : (high, low)
+        Region holding sharp, persistent lines (e.g. a standard's singlet).
+    reference_index : int, default 0
+        Spectrum the others are aligned to.
+    max_shift_ppm : float, default 0.1
+        Largest shift searched.
+    """
+    if not spectra:
+        raise ValueError("no spectra to align")
+    ref = spectra[reference_index]
+    high, low = max(window_ppm), min(window_ppm)
+    inside = (ref.ppm <= high) & (ref.ppm >= low)
+    if inside.sum() < 5:
+        raise ValueError(f"the alignment window {window_ppm} holds fewer than 5 points")
+    grid = ref.ppm[inside]
+    step_ppm = float(grid[0] - grid[1])
+    max_lag = max(1, int(math.ceil(max_shift_ppm / step_ppm)))
+    target = ref.real[inside] - ref.real[inside].mean()
+    m = target.size
+    shifts = np.zeros(len(spectra))
+    aligned = []
+    for index, spectrum in enumerate(spectra):
+        if index == reference_index:
+            aligned.append(spectrum)
+            continue
+        # sample a wider window so lags up to max_lag see real data, not padding
+        wide = np.concatenate([grid[0] + step_ppm * np.arange(max_lag, 0, -1), grid,
+                               grid[-1] - step_ppm * np.arange(1, max_lag + 1)])
+        values = _window_on(spectrum, wide)
+        values = values - values[max_lag:max_lag + m].mean()
+        lags = np.arange(-max_lag, max_lag + 1)
+        corr = np.array([np.dot(target, values[max_lag + lag:max_lag + lag + m]) for lag in lags])
+        k = int(np.argmax(corr))
+        offset = _parabolic_offset(*corr[k - 1:k + 2]) if 0 < k < corr.size - 1 else 0.0
+        lag = lags[k] + offset
+        # values[i + lag] matches target[i]: the spectrum's features sit lag points to
+        # the right (lower ppm), so its axis must move up by lag * step
+        shift = float(lag * step_ppm)
+        shifts[index] = shift
+        aligned.append(shift_axis(spectrum, shift))
+    return AlignmentResult(tuple(aligned), shifts, reference_index)
+
+
+# ------------------------------------------------------------------ noise and SNR
+def noise_sigma(spectrum: Spectrum, region_ppm: tuple[float, float]) -> float:
+    """Standard deviation of the real part in a signal-free region after removing a linear trend.
+
+    Parameters
+    ----------
+    spectrum : Spectrum
+        Shape (n,).
+    region_ppm : (high, low)
+        Signal-free region; needs at least 10 points.
+
+    Returns
+    -------
+    float
+        sigma with ``ddof=2`` (two parameters of the trend were fitted).
+    """
+    high, low = max(region_ppm), min(region_ppm)
+    inside = (spectrum.ppm <= high) & (spectrum.ppm >= low)
+    if inside.sum() < 10:
+        raise ValueError(f"noise region {region_ppm} holds fewer than 10 points")
+    x = spectrum.ppm[inside]
+    y = spectrum.real[inside]
+    trend = np.polyval(np.polyfit(x - x.mean(), y, 1), x - x.mean())
+    return float(np.sqrt(np.sum((y - trend) ** 2) / (y.size - 2)))
+
+
+def snr(spectrum: Spectrum, peak_ppm: float, window_ppm: float, noise_region_ppm: tuple[float, float]) -> float:
+    """Signal-to-noise ratio of a peak: tallest point near ``peak_ppm`` / noise sigma.
+
+    Convention: height over ONE standard deviation of the noise (not 2 sigma).
+    """
+    inside = np.abs(spectrum.ppm - peak_ppm) <= window_ppm
+    if not inside.any():
+        raise ValueError(f"no points within {peak_ppm} +/- {window_ppm} ppm")
+    return float(spectrum.real[inside].max() / noise_sigma(spectrum, noise_region_ppm))
+
+
+# ------------------------------------------------------------------ pipeline
+@dataclass(frozen=True)
+class ProcessedSpectrum:
+    """A spectrum after the pipeline, with what was done to it.
+
+    Attributes
+    ----------
+    spectrum : Spectrum
+        Phased, baseline-corrected, referenced spectrum.
+    p0_deg, p1_deg : float
+        Phase applied (degrees); 0 when not phased.
+    pivot_ppm : float or None
+        Pivot of ``p1_deg`` (after referencing the same point has moved by
+        ``reference_shift_ppm``).
+    group_delay_points : float
+        Filter delay removed (points).
+    reference_shift_ppm : float
+        Shift added to the axis by referencing (0 when not referenced).
+    noise_sigma : float or None
+        Noise from ``noise_region_ppm`` when configured.
+    succeeded : bool
+        False when a step fell back or did not converge; ``notes`` say why.
+    notes : tuple of str
+        What each step did, in order.
+    """
+
+    spectrum: Spectrum
+    p0_deg: float = 0.0
+    p1_deg: float = 0.0
+    pivot_ppm: float | None = None
+    group_delay_points: float = 0.0
+    reference_shift_ppm: float = 0.0
+    noise_sigma: float | None = None
+    succeeded: bool = True
+    notes: tuple[str, ...] = ()
+
+
+_DEFAULTS: dict[str, Any] = {
+    "dc_offset": True,           # bool: subtract the mean of the FID's tail
+    "dc_tail_fraction": 0.2,     # fraction of points (from the end) for the DC offset
+    "group_delay": "auto",       # "auto" | "header" | "detect" | "none" | points (float)
+    "line_broadening_hz": 0.3,   # Hz, exponential (common practice for 1H)
+    "gaussian_hz": 0.0,          # Hz, FWHM of the Gaussian convolution
+    "zero_fill": "auto",         # "auto" (power of two >= 2 n) | int points | 0/"none"
+    "first_point_scale": 0.5,    # factor on the first FID point before the FFT
+    "phase": "auto",             # "auto" | "none" | {p0_deg, p1_deg, pivot_ppm}
+    "phase_method": "peaks",     # "peaks" (peak-phase coherence) | "acme" (Chen et al. 2002)
+    "phase_region_ppm": None,    # [high, low] region scored by auto-phasing, or None
+    "baseline": "none",          # "none" | "asls" | "arpls" | "polynomial" | {method, ...}
+    "reference": None,           # None | "tms" | {ppm, window_ppm, target_ppm}
+    "noise_region_ppm": None,    # [high, low] signal-free region for the noise sigma
+}
+
+_BASELINE_KEYS = {"method", "lam", "p", "order", "regions_ppm"}
+_REFERENCE_KEYS = {"ppm", "window_ppm", "target_ppm"}
+_PHASE_KEYS = {"p0_deg", "p1_deg", "pivot_ppm"}
+
+
+def _key(name: str) -> str:
+    return f"processing.{name}"
+
+
+def _number(value, name: str, minimum: float | None = None) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+        raise ConfigError(_key(name), f"expected a number, got {value!r}")
+    if minimum is not None and value < minimum:
+        raise ConfigError(_key(name), f"must be >= {minimum}, got {value!r}")
+    return float(value)
+
+
+def _ppm_pair(value, name: str) -> tuple[float, float]:
+    if not isinstance(value, (list, tuple)) or len(value) != 2:
+        raise ConfigError(_key(name), f"expected [high_ppm, low_ppm], got {value!r}")
+    high, low = (_number(v, name) for v in value)
+    if high == low:
+        raise ConfigError(_key(name), "the two ends of the region must differ")
+    return (max(high, low), min(high, low))
+
+
+def _check_subkeys(value: Mapping, allowed: set[str], name: str) -> None:
+    for sub in value:
+        if sub not in allowed:
+            raise ConfigError(_key(f"{name}.{sub}"), "unknown key",
+                              hint=f"allowed: {', '.join(sorted(allowed))}")
+
+
+@dataclass(frozen=True)
+class Pipeline:
+    """The processing steps and their settings, validated once.
+
+    Build it with :meth:`from_config` from the ``[processing]`` section of a TOML config
+    (a plain dict); every key is optional.  Keys, defaults and units:
+
+    ==================== =========== ==========================================================
+    key                  default     meaning
+    ==================== =========== ==========================================================
+    dc_offset            true        subtract the mean of the FID's last ``dc_tail_fraction``
+    dc_tail_fraction     0.2         fraction of points used for the DC offset
+    group_delay          "auto"      digital-filter delay: "header" (declared points),
+                                     "detect" (from the rising edge), "auto" (declared if
+                                     > 0, else detected), "none", or a number of points
+    line_broadening_hz   0.3         exponential line broadening, Hz
+    gaussian_hz          0.0         Gaussian line broadening (FWHM), Hz
+    zero_fill            "auto"      final points: "auto" = power of two >= 2 n; an int;
+                                     0 or "none" for no zero-filling
+    first_point_scale    0.5         factor on the first FID point before the FFT
+    phase                "auto"      "auto", "none", or {p0_deg, p1_deg, pivot_ppm}
+                                     (degrees, degrees, ppm; pivot defaults to the left edge)
+    phase_method         "peaks"     auto-phasing: "peaks" (peak-phase coherence) or "acme"
+                                     (Chen et al. 2002); see :func:`auto_phase`
+    phase_region_ppm     none        [high, low] ppm scored by auto-phasing
+    baseline             "none"      "none", "asls", "arpls", "polynomial", or a table
+                                     {method, lam (1e7), p (0.01), order (3),
+                                     regions_ppm [[high, low], ...] (polynomial only)}
+    reference            none        "tms" (= {ppm = 0}), or {ppm, window_ppm (0.3),
+                                     target_ppm (= ppm)}: the tallest point in ppm +/-
+                                     window_ppm is moved to target_ppm
+    noise_region_ppm     none        [high, low] signal-free region; noise sigma is reported
+    ==================== =========== ==========================================================
+
+    Calling the pipeline on a :class:`Fid` runs every step; on a :class:`Spectrum`
+    (already transformed) only the spectrum-domain steps (phase, baseline, reference,
+    noise) run.
+    """
+
+    dc_offset: bool = True
+    dc_tail_fraction: float = 0.2
+    group_delay: str | float = "auto"
+    line_broadening_hz: float = 0.3
+    gaussian_hz: float = 0.0
+    zero_fill: int | str = "auto"
+    first_point_scale: float = 0.5
+    phase: str | Mapping[str, float] = "auto"
+    phase_method: str = "peaks"
+    phase_region_ppm: tuple[float, float] | None = None
+    baseline: Mapping[str, Any] | None = None
+    reference: Mapping[str, float] | None = None
+    noise_region_ppm: tuple[float, float] | None = None
+
+    @classmethod
+    def from_config(cls, section: Mapping[str, Any] | None = None) -> "Pipeline":
+        """Validate a ``[processing]`` table; a bad key or value raises ConfigError naming it."""
+        section = dict(section or {})
+        for name in section:
+            if name not in _DEFAULTS:
+                raise ConfigError(_key(name), "unknown key", hint=f"allowed: {', '.join(_DEFAULTS)}")
+        merged = {**_DEFAULTS, **section}
+        values: dict[str, Any] = {}
+
+        if not isinstance(merged["dc_offset"], bool):
+            raise ConfigError(_key("dc_offset"), f"expected true or false, got {merged['dc_offset']!r}")
+        values["dc_offset"] = merged["dc_offset"]
+        tail = _number(merged["dc_tail_fraction"], "dc_tail_fraction")
+        if not 0 < tail <= 0.5:
+            raise ConfigError(_key("dc_tail_fraction"), f"must be in (0, 0.5], got {tail}")
+        values["dc_tail_fraction"] = tail
+
+        delay = merged["group_delay"]
+        if isinstance(delay, str):
+            if delay not in ("auto", "header", "detect", "none"):
+                raise ConfigError(_key("group_delay"), f"unknown choice {delay!r}",
+                                  hint="use auto, header, detect, none or a number of points")
+            values["group_delay"] = delay
+        else:
+            values["group_delay"] = _number(delay, "group_delay", minimum=0)
+
+        values["line_broadening_hz"] = _number(merged["line_broadening_hz"], "line_broadening_hz", 0)
+        values["gaussian_hz"] = _number(merged["gaussian_hz"], "gaussian_hz", 0)
+
+        zf = merged["zero_fill"]
+        if zf in ("auto", "none"):
+            values["zero_fill"] = zf
+        elif isinstance(zf, int) and not isinstance(zf, bool) and 0 <= zf <= 1 << 24:
+            values["zero_fill"] = "none" if zf == 0 else zf
+        else:
+            raise ConfigError(_key("zero_fill"), f"expected \"auto\", \"none\" or a point count, got {zf!r}")
+
+        scale = _number(merged["first_point_scale"], "first_point_scale", 0)
+        if scale > 1:
+            raise ConfigError(_key("first_point_scale"), f"must be in [0, 1], got {scale}")
+        values["first_point_scale"] = scale
+
+        values["phase"] = cls._check_phase(merged["phase"])
+        if merged["phase_method"] not in ("peaks", "acme"):
+            raise ConfigError(_key("phase_method"), f"unknown method {merged['phase_method']!r}",
+                              hint="use peaks or acme")
+        values["phase_method"] = merged["phase_method"]
+        region = merged["phase_region_ppm"]
+        values["phase_region_ppm"] = None if region is None else _ppm_pair(region, "phase_region_ppm")
+        values["baseline"] = cls._check_baseline(merged["baseline"])
+        values["reference"] = cls._check_reference(merged["reference"])
+        noise = merged["noise_region_ppm"]
+        values["noise_region_ppm"] = None if noise is None else _ppm_pair(noise, "noise_region_ppm")
+        return cls(**values)
+
+    @staticmethod
+    def _check_phase(value):
+        if value in ("auto", "none"):
+            return value
+        if isinstance(value, Mapping):
+            _check_subkeys(value, _PHASE_KEYS, "phase")
+            checked = {"p0_deg": _number(value.get("p0_deg", 0.0), "phase.p0_deg"),
+                       "p1_deg": _number(value.get("p1_deg", 0.0), "phase.p1_deg")}
+            if value.get("pivot_ppm") is not None:
+                checked["pivot_ppm"] = _number(value["pivot_ppm"], "phase.pivot_ppm")
+            return checked
+        raise ConfigError(_key("phase"), f"expected \"auto\", \"none\" or {{p0_deg, p1_deg, pivot_ppm}}, got {value!r}")
+
+    @staticmethod
+    def _check_baseline(value):
+        if value is None or value == "none":
+            return None
+        if isinstance(value, str):
+            value = {"method": value}
+        if not isinstance(value, Mapping):
+            raise ConfigError(_key("baseline"), f"expected a method name or a table, got {value!r}")
+        _check_subkeys(value, _BASELINE_KEYS, "baseline")
+        method = value.get("method", "arpls")
+        if method not in ("asls", "arpls", "polynomial"):
+            raise ConfigError(_key("baseline.method"), f"unknown method {method!r}",
+                              hint="use asls, arpls, polynomial or none")
+        checked: dict[str, Any] = {"method": method}
+        if "lam" in value:
+            checked["lam"] = _number(value["lam"], "baseline.lam", 0)
+        if "p" in value:
+            p = _number(value["p"], "baseline.p", 0)
+            if not 0 < p < 1:
+                raise ConfigError(_key("baseline.p"), f"must be in (0, 1), got {p}")
+            checked["p"] = p
+        if "order" in value:
+            order = value["order"]
+            if isinstance(order, bool) or not isinstance(order, int) or not 0 <= order <= 10:
+                raise ConfigError(_key("baseline.order"), f"expected an integer 0-10, got {order!r}")
+            checked["order"] = order
+        if method == "polynomial":
+            regions = value.get("regions_ppm")
+            if not isinstance(regions, (list, tuple)) or not regions:
+                raise ConfigError(_key("baseline.regions_ppm"),
+                                  "the polynomial baseline needs signal-free regions",
+                                  hint="e.g. regions_ppm = [[11, 9.5], [-0.5, -1]]")
+            checked["regions_ppm"] = tuple(_ppm_pair(r, "baseline.regions_ppm") for r in regions)
+        elif "regions_ppm" in value:
+            raise ConfigError(_key("baseline.regions_ppm"), f"only used by the polynomial method, not {method}")
+        return checked
+
+    @staticmethod
+    def _check_reference(value):
+        if value is None or value == "none":
+            return None
+        if isinstance(value, str):
+            if value.lower() != "tms":
+                raise ConfigError(_key("reference"), f"unknown reference {value!r}",
+                                  hint="use \"tms\" or a table {ppm, window_ppm, target_ppm}")
+            value = {"ppm": 0.0}
+        if not isinstance(value, Mapping):
+            raise ConfigError(_key("reference"), f"expected \"tms\" or a table, got {value!r}")
+        _check_subkeys(value, _REFERENCE_KEYS, "reference")
+        if "ppm" not in value:
+            raise ConfigError(_key("reference.ppm"), "missing: where the reference peak is expected")
+        checked = {"ppm": _number(value["ppm"], "reference.ppm"),
+                   "window_ppm": _number(value.get("window_ppm", 0.3), "reference.window_ppm", 0)}
+        if checked["window_ppm"] == 0:
+            raise ConfigError(_key("reference.window_ppm"), "must be > 0")
+        checked["target_ppm"] = _number(value.get("target_ppm", checked["ppm"]), "reference.target_ppm")
+        return checked
+
+    # -------------------------------------------------------------- running
+    def transform(self, fid: Fid) -> tuple[Spectrum, float, list[str]]:
+        """Time-domain steps and the FFT: (spectrum, group delay removed in points, notes)."""
+        notes: list[str] = []
+        if self.dc_offset:
+            fid = remove_dc_offset(fid, self.dc_tail_fraction)
+        delay = self._group_delay(fid)
+        fid = fid.replace(group_delay_points=delay)
+        fid = apodize_exponential(fid, self.line_broadening_hz)
+        fid = apodize_gaussian(fid, self.gaussian_hz)
+        if self.zero_fill != "none":
+            fid = zero_fill(fid, self.zero_fill)
+        if delay:
+            notes.append(f"removed a digital-filter delay of {delay:.3f} points")
+            fid = remove_group_delay(fid, delay)
+        return fft(fid, self.first_point_scale), delay, notes
+
+    def _group_delay(self, fid: Fid) -> float:
+        if isinstance(self.group_delay, float):
+            return self.group_delay
+        if self.group_delay == "none":
+            return 0.0
+        if self.group_delay == "header":
+            return fid.group_delay_points
+        if self.group_delay == "detect" or fid.group_delay_points == 0:
+            return detect_group_delay(fid)
+        return fid.group_delay_points
+
+    def __call__(self, record: Fid | Spectrum) -> ProcessedSpectrum:
+        """Process one FID (all steps) or transformed spectrum (spectrum-domain steps)."""
+        delay = 0.0
+        notes: list[str] = []
+        if isinstance(record, Fid):
+            spectrum, delay, notes = self.transform(record)
+        elif isinstance(record, Spectrum):
+            spectrum = record
+        else:
+            raise TypeError(f"expected a Fid or a Spectrum, got {type(record).__name__}")
+        succeeded = True
+        p0 = p1 = 0.0
+        pivot = None
+        if self.phase == "auto" and spectrum.imag is None:
+            notes.append("not phased: the spectrum has no imaginary part")
+        elif self.phase == "auto":
+            result = auto_phase(spectrum, self.phase_method, region_ppm=self.phase_region_ppm)
+            spectrum, p0, p1, pivot = result.spectrum, result.p0_deg, result.p1_deg, result.pivot_ppm
+            notes.append(f"auto-phased ({self.phase_method}): p0 {p0:.2f} deg, p1 {p1:.2f} deg about {pivot:.4f} ppm")
+            if not result.succeeded:
+                succeeded = False
+                notes.append(result.message)
+        elif isinstance(self.phase, Mapping):
+            p0, p1 = self.phase["p0_deg"], self.phase["p1_deg"]
+            pivot = self.phase.get("pivot_ppm", float(spectrum.ppm[0]))
+            spectrum = phase(spectrum, p0, p1, pivot)
+            notes.append(f"phased: p0 {p0:.2f} deg, p1 {p1:.2f} deg about {pivot:.4f} ppm")
+        if self.baseline is not None:
+            spectrum, _ = correct_baseline(spectrum, **self.baseline)
+            notes.append(f"baseline: {self.baseline['method']}")
+        shift = 0.0
+        if self.reference is not None:
+            try:
+                ref = reference(spectrum, self.reference["ppm"], self.reference["window_ppm"],
+                                self.reference["target_ppm"])
+                spectrum, shift = ref.spectrum, ref.shift_ppm
+                notes.append(f"referenced: peak at {ref.found_ppm:.4f} ppm moved to "
+                             f"{self.reference['target_ppm']:.4f} ppm (shift {shift:+.4f} ppm)")
+            except ValueError as error:
+                succeeded = False
+                notes.append(f"not referenced: {error}")
+        sigma = None
+        if self.noise_region_ppm is not None:
+            try:
+                sigma = noise_sigma(spectrum, self.noise_region_ppm)
+            except ValueError as error:
+                notes.append(f"no noise estimate: {error}")
+        return ProcessedSpectrum(spectrum, p0, p1, pivot, delay, shift, sigma, succeeded, tuple(notes))
+
+
+@dataclass(frozen=True)
+class SeriesResult:
+    """Outcome of :func:`process_series`.
+
+    Attributes
+    ----------
+    spectra : tuple of ProcessedSpectrum
+        Each record processed and (when a window was given) aligned.
+    shifts_ppm : ndarray, shape (m,)
+        Alignment shift added to each spectrum's axis (zeros when not aligned).
+    reference_index : int
+        Spectrum the series was aligned to.
+    """
+
+    spectra: tuple[ProcessedSpectrum, ...]
+    shifts_ppm: np.ndarray
+    reference_index: int
+
+    @property
+    def succeeded(self) -> bool:
+        return all(item.succeeded for item in self.spectra)
+
+
+def process_series(
+    records: Sequence[Fid | Spectrum],
+    pipeline: Pipeline,
+    align_window_ppm: tuple[float, float] | None = None,
+    reference_index: int = 0,
+    max_shift_ppm: float = 0.1,
+) -> SeriesResult:
+    """Process every record the same way, then align the series on ``align_window_ppm``.
+
+    Parameters
+    ----------
+    records : sequence of Fid or Spectrum
+        The series in acquisition order (m records).
+    pipeline : Pipeline
+        Steps applied to each record.
+    align_window_ppm : (high, low), optional
+        Window for :func:`align_series`; no alignment when None.
+    reference_index : int, default 0
+        Spectrum the others are aligned to.
+    max_shift_ppm : float, default 0.1
+        Largest alignment shift searched, ppm.
+    """
+    processed = [pipeline(record) for record in records]
+    shifts = np.zeros(len(processed))
+    if align_window_ppm is not None and processed:
+        alignment = align_series([p.spectrum for p in processed], align_window_ppm,
+                                 reference_index, max_shift_ppm)
+        shifts = alignment.shifts_ppm
+        processed = [
+            _with_alignment(item, spectrum, shift)
+            for item, spectrum, shift in zip(processed, alignment.spectra, shifts)
+        ]
+    return SeriesResult(tuple(processed), shifts, reference_index)
+
+
+def _with_alignment(item: ProcessedSpectrum, spectrum: Spectrum, shift: float) -> ProcessedSpectrum:
+    notes = item.notes + ((f"aligned: shift {shift:+.5f} ppm",) if shift else ())
+    return dataclasses.replace(item, spectrum=spectrum, notes=notes)
+
+
+def fid_to_spectrum(fid: Fid) -> Spectrum:
+    """Transform a FID with the defaults of :class:`Pipeline` (DC offset, filter delay
+    auto, 0.3 Hz exponential broadening, zero-fill to a power of two >= 2 n, automatic
+    phase ("peaks"), no baseline, no referencing).  Used by ``kinetics inspect``."""
+    return Pipeline.from_config({})(fid).spectrum

@@ -1,0 +1,1 @@
+"""Rate laws, written mechanisms, fits with intervals, model comparison and forecasts."""

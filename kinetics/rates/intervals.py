@@ -1,0 +1,284 @@
+"""Interval machinery shared by the fitter: the least-squares problem, profiles, bootstrap.
+
+Everything works on a :class:`Problem`: the varying parameters as a vector ``theta``, the
+weighted residual ``(y - f(theta)) / sigma`` and its sum of squares ``S``.
+
+Profile likelihood (Venzon & Moolgavkar 1988; Bates & Watts 1988, ch. 6): the 95 % interval
+of parameter ``j`` is the set where the profiled sum of squares
+``S_j(b) = min_{others} S`` stays below ``S_min (1 + t^2_{0.975, dof} / dof)`` (F-based,
+sigma estimated from the fit) or ``S_min + chi2_{1, 0.95}`` (sigma known, ``absolute_sigma``).
+The edges are found by a bracket-and-``brentq`` root search; the inner minimisation is
+closed form when the only other free parameter is a linear amplitude (variable
+projection, Golub & Pereyra 1973) and a warm-started ``least_squares`` otherwise.
+
+Residual bootstrap (Efron & Tibshirani 1993, ch. 9): residuals (rescaled by
+``sqrt(n/dof)``) are resampled within each observed series, added to the fitted curve and
+the model refitted from the optimum; percentile intervals.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import optimize, stats
+
+log = logging.getLogger(__name__)
+
+
+@dataclass
+class Problem:
+    """A weighted least-squares problem over the varying parameters of a model.
+
+    Attributes
+    ----------
+    predict : callable ``(time_s, values dict) -> (m, n)``
+    time_s : ndarray (n,)
+    y : ndarray (m, n)
+    weight : ndarray (m, n)
+        ``1/sigma`` (ones when no sigmas are given).
+    names : list of str
+        Varying parameter names, order of ``theta``.
+    fixed : dict
+        Values of the non-varying parameters.
+    lower, upper : ndarray (p,)
+    linear : list of bool
+        Which varying parameters are pure amplitudes (``f`` proportional to them).
+    """
+
+    predict: object
+    time_s: np.ndarray
+    y: np.ndarray
+    weight: np.ndarray
+    names: list
+    fixed: dict
+    lower: np.ndarray
+    upper: np.ndarray
+    linear: list
+
+    def values(self, theta) -> dict:
+        values = dict(self.fixed)
+        values.update(zip(self.names, map(float, theta)))
+        return values
+
+    def model(self, theta, time_s=None):
+        t = self.time_s if time_s is None else time_s
+        return np.asarray(self.predict(t, self.values(theta)), dtype=float).reshape(-1, np.size(t))
+
+    def residual(self, theta):
+        with np.errstate(all="ignore"):
+            r = ((self.y - self.model(theta)) * self.weight).ravel()
+        # A non-finite model value would derail MINPACK; a large residual steers it away.
+        return np.where(np.isfinite(r), r, 1e150)
+
+    def ssq(self, theta) -> float:
+        r = self.residual(theta)
+        return float(r @ r)
+
+    def with_y(self, y) -> "Problem":
+        return Problem(self.predict, self.time_s, y, self.weight, self.names, self.fixed,
+                       self.lower, self.upper, self.linear)
+
+
+def t_quantile(dof: int, level: float = 0.95) -> float:
+    return float(stats.t.ppf(0.5 + level / 2.0, max(dof, 1)))
+
+
+def covariance_interval(value, stderr, dof, level=0.95):
+    if stderr is None or not np.isfinite(stderr):
+        return None
+    half = t_quantile(dof, level) * stderr
+    return (value - half, value + half)
+
+
+def profile_threshold(s_min, dof, absolute_sigma, level=0.95) -> float:
+    if absolute_sigma:
+        return s_min + float(stats.chi2.ppf(level, 1))
+    return s_min * (1.0 + t_quantile(dof, level) ** 2 / max(dof, 1))
+
+
+def fit_theta(problem: Problem, theta0, max_nfev=None, tol=1e-10, jac="2-point", full=False):
+    """Minimise ``S`` from ``theta0`` with ``least_squares``; returns (theta, success).
+
+    With ``full`` also the Jacobian of the weighted residual at the solution, (n, p).
+    """
+    theta0 = np.clip(np.asarray(theta0, dtype=float), problem.lower, problem.upper)
+    bounded = np.isfinite(problem.lower).any() or np.isfinite(problem.upper).any()
+    try:
+        solution = optimize.least_squares(
+            problem.residual, theta0, bounds=(problem.lower, problem.upper) if bounded else (-np.inf, np.inf),
+            method="trf" if bounded else "lm", x_scale="jac", xtol=tol, ftol=tol, gtol=tol,
+            max_nfev=max_nfev, jac=jac)
+    except (ValueError, FloatingPointError, np.linalg.LinAlgError) as error:
+        log.debug("inner fit failed: %s", error)
+        return (theta0, False, None) if full else (theta0, False)
+    if full:
+        return solution.x, bool(solution.success), solution.jac
+    return solution.x, bool(solution.success)
+
+
+def covariance_from_jacobian(jacobian, scale: float):
+    """``scale (J^T J)^-1`` via SVD; None when J is numerically rank deficient."""
+    if jacobian is None or not np.all(np.isfinite(jacobian)):
+        return None
+    _, singular, vt = np.linalg.svd(np.asarray(jacobian, dtype=float), full_matrices=False)
+    if singular.size == 0 or singular[-1] <= singular[0] * 1e-13:
+        return None
+    return (vt.T / singular**2) @ vt * scale
+
+
+def best_amplitude(problem: Problem, theta, j: int) -> float:
+    """Least-squares optimum of the linear amplitude ``theta[j]`` with the others held.
+
+    ``f`` is proportional to a linear amplitude, so the optimum is closed form
+    (``sum(w^2 g y) / sum(w^2 g^2)`` with ``g`` the model at amplitude 1), clipped to bounds.
+    """
+    theta = np.array(theta, dtype=float)
+    theta[j] = 1.0
+    shape = problem.model(theta) * problem.weight
+    target = problem.y * problem.weight
+    denominator = float(np.sum(shape * shape))
+    amplitude = float(np.sum(shape * target)) / denominator if denominator > 0 else 0.0
+    return float(np.clip(amplitude, problem.lower[j], problem.upper[j]))
+
+
+class _Profiler:
+    """The profiled sum of squares of one parameter, warm-started along the search."""
+
+    def __init__(self, problem: Problem, theta_hat, index: int):
+        self.problem = problem
+        self.index = index
+        self.theta_hat = np.asarray(theta_hat, dtype=float)
+        self.others = [i for i in range(len(theta_hat)) if i != index]
+        self.last = self.theta_hat[self.others].copy()
+        self.closed_form = len(self.others) == 1 and problem.linear[self.others[0]]
+        sub_lower = problem.lower[self.others]
+        sub_upper = problem.upper[self.others]
+        self.sub = Problem(self._sub_predict, problem.time_s, problem.y, problem.weight,
+                           [problem.names[i] for i in self.others], {}, sub_lower, sub_upper,
+                           [problem.linear[i] for i in self.others])
+        self.current = float(self.theta_hat[index])
+
+    def _full(self, other_values, b):
+        theta = self.theta_hat.copy()
+        theta[self.index] = b
+        theta[self.others] = other_values
+        return theta
+
+    def _sub_predict(self, t, values):
+        other = np.array([values[self.problem.names[i]] for i in self.others])
+        return self.problem.model(self._full(other, self.current), t)
+
+    def __call__(self, b) -> float:
+        self.current = float(b)
+        if not self.others:
+            return self.problem.ssq(np.array([b]))
+        if self.closed_form:
+            j = self.others[0]
+            self.last = np.array([best_amplitude(self.problem, self._full(np.ones(1), b), j)])
+            return self.problem.ssq(self._full(self.last, b))
+        theta, _ = fit_theta(self.sub, self.last, max_nfev=200 * (len(self.others) + 1))
+        self.last = theta
+        return self.problem.ssq(self._full(theta, b))
+
+
+def profile_interval(problem: Problem, theta_hat, index: int, stderr, threshold, max_expand=40):
+    """Profile-likelihood interval ``(lo, hi)`` of parameter ``index``.
+
+    An edge that reaches a bound before crossing the threshold is reported as that bound;
+    an edge that cannot be found (the profile flattens out) is ``nan``.
+    """
+    value = float(theta_hat[index])
+    step0 = stderr if stderr is not None and np.isfinite(stderr) and stderr > 0 else 0.1 * max(abs(value), 1e-12)
+    edges = []
+    for direction in (-1.0, 1.0):
+        profiler = _Profiler(problem, theta_hat, index)
+        bound = problem.lower[index] if direction < 0 else problem.upper[index]
+        inner, step = value, 2.0 * step0
+        edge = np.nan
+        for _ in range(max_expand):
+            outer = value + direction * step
+            hit_bound = (outer - bound) * direction >= 0
+            if hit_bound:
+                outer = bound
+            s = profiler(outer)
+            if s > threshold:
+                def excess(b):
+                    return profiler(b) - threshold
+                try:
+                    edge = optimize.brentq(excess, inner, outer, xtol=1e-9 * max(abs(value), step0),
+                                           rtol=1e-10)
+                except ValueError:
+                    edge = outer
+                break
+            if hit_bound:
+                edge = bound
+                break
+            inner = outer
+            step *= 2.0
+        edges.append(edge)
+    return (float(edges[0]), float(edges[1]))
+
+
+def bootstrap_samples(problem: Problem, theta_hat, n_samples: int, rng, dof: int):
+    """Residual-bootstrap refits, shape (n_ok, p), and the number of failed refits."""
+    fitted = problem.model(theta_hat)
+    weighted = (problem.y - fitted) * problem.weight
+    m, n = weighted.shape
+    scale = np.sqrt(n * m / max(dof, 1))
+    centred = (weighted - weighted.mean(axis=1, keepdims=True)) * scale
+    samples, failed = [], 0
+    for _ in range(n_samples):
+        picks = rng.integers(0, n, size=(m, n))
+        y_star = fitted + np.take_along_axis(centred, picks, axis=1) / problem.weight
+        theta, ok = fit_theta(problem.with_y(y_star), theta_hat, max_nfev=100 * (len(theta_hat) + 1))
+        if ok and np.all(np.isfinite(theta)):
+            samples.append(theta)
+        else:
+            failed += 1
+    return np.array(samples).reshape(-1, len(theta_hat)), failed
+
+
+def numeric_gradient(func, theta, stderr):
+    """Central-difference gradient of scalar or vector ``func(theta)``; shape (p, ...)."""
+    theta = np.asarray(theta, dtype=float)
+    grads = []
+    for i in range(theta.size):
+        scale = stderr[i] if stderr is not None and np.isfinite(stderr[i]) and stderr[i] > 0 else abs(theta[i])
+        h = max(1e-6 * max(abs(theta[i]), 1e-300), 1e-4 * scale)
+        up, down = theta.copy(), theta.copy()
+        up[i] += h
+        down[i] -= h
+        grads.append((np.asarray(func(up), dtype=float) - np.asarray(func(down), dtype=float)) / (2 * h))
+    return np.array(grads)
+
+
+def runs_test(residual):
+    """Wald-Wolfowitz runs test on residual signs (Wald & Wolfowitz 1940).
+
+    Returns ``(runs, expected_runs, z, two_sided_p)``; too few runs means a systematic
+    misfit (the model misses the curvature of the data).
+    """
+    r = np.asarray(residual, dtype=float)
+    signs = np.sign(r[r != 0])
+    n_pos, n_neg = int(np.sum(signs > 0)), int(np.sum(signs < 0))
+    n = n_pos + n_neg
+    if n_pos == 0 or n_neg == 0 or n < 3:
+        return (1 if n else 0), float("nan"), float("nan"), float("nan")
+    runs = 1 + int(np.sum(signs[1:] != signs[:-1]))
+    mean = 2.0 * n_pos * n_neg / n + 1.0
+    variance = (mean - 1.0) * (mean - 2.0) / (n - 1.0)
+    z = (runs - mean) / np.sqrt(variance) if variance > 0 else float("nan")
+    p = float(2.0 * stats.norm.sf(abs(z))) if np.isfinite(z) else float("nan")
+    return runs, float(mean), float(z), p
+
+
+def lag1_autocorrelation(residual_rows) -> float:
+    """Lag-1 autocorrelation of residuals, pooled over the rows (each row a time series)."""
+    numerator, denominator = 0.0, 0.0
+    for row in np.atleast_2d(residual_rows):
+        centred = row - row.mean()
+        numerator += float(centred[1:] @ centred[:-1])
+        denominator += float(centred @ centred)
+    return numerator / denominator if denominator > 0 else float("nan")

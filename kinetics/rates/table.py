@@ -1,0 +1,218 @@
+"""Concentration tables: read a delimited file once, validate it, hand back arrays.
+
+A table has a header line and one row per time point; ``#`` lines are comments.  The
+delimiter (comma, tab, semicolon) is detected from the header.  Validation happens here
+(the boundary) so the fitter can trust :class:`ConcentrationData`.
+"""
+
+from __future__ import annotations
+
+import csv
+import logging
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from kinetics.errors import FitError, InputFileError
+
+log = logging.getLogger(__name__)
+
+
+@dataclass(frozen=True)
+class ConcentrationData:
+    """Validated concentration-time data.
+
+    Attributes
+    ----------
+    time_s : ndarray, shape (n,)
+        Strictly increasing times, s.
+    values : ndarray, shape (m, n)
+        Concentrations of ``m`` observed series, mol L^-1.
+    sigma : ndarray, shape (m, n), or None
+        Standard uncertainties of ``values`` (same unit), all > 0.
+    columns : tuple of str
+        Column names the rows came from.
+    source : str
+        File name or ``"<arrays>"``.
+    warnings : tuple of str
+        Things worth knowing that do not stop a fit (e.g. negative concentrations).
+    """
+
+    time_s: np.ndarray
+    values: np.ndarray
+    sigma: np.ndarray | None
+    columns: tuple
+    source: str = "<arrays>"
+    warnings: tuple = field(default_factory=tuple)
+
+    @property
+    def n_points(self) -> int:
+        return int(self.values.size)
+
+    def appended(self, time_s, values, sigma=None) -> "ConcentrationData":
+        """A new record with later points added (for live refits)."""
+        t = np.concatenate([self.time_s, np.atleast_1d(np.asarray(time_s, dtype=float))])
+        v = np.hstack([self.values, np.asarray(values, dtype=float).reshape(len(self.columns), -1)])
+        s = None
+        if self.sigma is not None:
+            s = np.hstack([self.sigma, np.asarray(sigma, dtype=float).reshape(len(self.columns), -1)])
+        return from_arrays(t, v, s, self.columns, self.source)
+
+
+def _validate(time_s, values, sigma, columns, source, lines=None):
+    """Shared checks; ``lines`` maps point index -> 1-based file line for messages."""
+    path = None if source == "<arrays>" else source
+
+    def line_of(i):
+        return None if lines is None else lines[i]
+
+    def where(i):
+        return "" if lines is not None else f" (point {i})"
+
+    n = time_s.size
+    if n == 0:
+        raise InputFileError(path, "no data rows", hint="the table needs a header and at least 3 rows")
+    bad_t = np.nonzero(~np.isfinite(time_s))[0]
+    if bad_t.size:
+        raise InputFileError(path, f"time is missing or not finite{where(bad_t[0])}", line=line_of(bad_t[0]),
+                             hint="every row needs a time")
+    for r, name in enumerate(columns):
+        bad = np.nonzero(~np.isfinite(values[r]))[0]
+        if bad.size:
+            raise InputFileError(path, f"column {name!r} is missing or NaN{where(bad[0])}",
+                                 line=line_of(bad[0]), hint="fill the cell or delete the row")
+        if sigma is not None:
+            bad = np.nonzero(~np.isfinite(sigma[r]) | (sigma[r] <= 0))[0]
+            if bad.size:
+                raise InputFileError(path, f"uncertainty for {name!r} must be a positive number"
+                                     f"{where(bad[0])}", line=line_of(bad[0]))
+    steps = np.diff(time_s)
+    bad = np.nonzero(steps <= 0)[0]
+    if bad.size:
+        i = bad[0] + 1
+        kind = "repeats" if steps[bad[0]] == 0 else "is earlier than"
+        raise InputFileError(path, f"time {time_s[i]:g}{where(i)} {kind} the previous row's "
+                             f"{time_s[i - 1]:g}", line=line_of(i),
+                             hint="times must increase strictly; sort the rows or average replicates")
+    if n < 3:
+        raise FitError(f"{source}: only {n} time point(s); a rate fit needs at least 3")
+    warnings = []
+    for r, name in enumerate(columns):
+        if np.ptp(values[r]) == 0:
+            raise FitError(f"{source}: column {name!r} is constant ({values[r][0]:g}); it carries no "
+                           "kinetic information")
+        negative = np.nonzero(values[r] < 0)[0]
+        if negative.size:
+            message = (f"column {name!r} has {negative.size} negative value(s) (lowest "
+                       f"{values[r].min():.3g}{'' if lines is None else ', line ' + str(lines[negative[0]])}); "
+                       "fine if noise around zero, otherwise check the baseline")
+            log.warning("%s: %s", source, message)
+            warnings.append(message)
+    return tuple(warnings)
+
+
+def from_arrays(time_s, values, sigma=None, columns=None, source="<arrays>") -> ConcentrationData:
+    """Validate arrays into :class:`ConcentrationData`.
+
+    Parameters
+    ----------
+    time_s : array, shape (n,)
+    values : array, shape (n,) or (m, n)
+    sigma : array like ``values``, optional
+    columns : sequence of str, optional
+        Names of the rows (default ``c0, c1, ...``).
+    """
+    t = np.asarray(time_s, dtype=float).ravel()
+    v = np.atleast_2d(np.asarray(values, dtype=float))
+    if v.shape[1] != t.size:
+        raise FitError(f"{source}: values have {v.shape[1]} points but time has {t.size}")
+    s = None
+    if sigma is not None:
+        s = np.atleast_2d(np.asarray(sigma, dtype=float))
+        if s.shape != v.shape:
+            raise FitError(f"{source}: sigma shape {s.shape} differs from values {v.shape}")
+    columns = tuple(columns) if columns is not None else tuple(f"series{i}" for i in range(v.shape[0]))
+    warnings = _validate(t, v, s, columns, source)
+    return ConcentrationData(t, v, s, columns, source, warnings)
+
+
+def _read_rows(path: Path):
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except FileNotFoundError:
+        raise InputFileError(path, "file not found") from None
+    except (OSError, UnicodeDecodeError) as error:
+        raise InputFileError(path, f"cannot read the file: {error}") from None
+    numbered = [(i, line) for i, line in enumerate(text.splitlines(), start=1)
+                if line.strip() and not line.lstrip().startswith("#")]
+    if not numbered:
+        raise InputFileError(path, "the file is empty", hint="expected a header line and data rows")
+    header = numbered[0][1]
+    delimiter = max([",", "\t", ";"], key=header.count)
+    if header.count(delimiter) == 0:
+        delimiter = ","
+    reader = csv.reader([line for _, line in numbered], delimiter=delimiter)
+    rows = list(reader)
+    return [name.strip() for name in rows[0]], rows[1:], [i for i, _ in numbered[1:]], numbered[0][0]
+
+
+def _number(cell, path, line, column):
+    text = cell.strip()
+    if text == "" or text.lower() in ("nan", "na", "n/a"):
+        return math.nan
+    try:
+        return float(text)
+    except ValueError:
+        raise InputFileError(path, f"column {column!r} holds {text!r}, not a number", line=line,
+                             hint="use a dot as decimal separator and no units in cells") from None
+
+
+def read_concentration_table(path, time_column, columns, sigma_columns=None) -> ConcentrationData:
+    """Read and validate a delimited concentration table.
+
+    Parameters
+    ----------
+    path : str or Path
+    time_column : str
+        Column with times in seconds from the reaction start.
+    columns : sequence of str
+        Concentration columns (mol L^-1), one per observed series.
+    sigma_columns : sequence of str, optional
+        Uncertainty columns, one per entry of ``columns`` (same order).
+
+    Raises
+    ------
+    InputFileError
+        Missing file or column, non-numeric cell, missing value, non-increasing time
+        (names the file, line and column).
+    FitError
+        Fewer than 3 points or a constant column.
+    """
+    path = Path(path)
+    header, rows, lines, header_line = _read_rows(path)
+    columns = list(columns)
+    sigma_columns = list(sigma_columns or [])
+    if sigma_columns and len(sigma_columns) != len(columns):
+        raise InputFileError(path, f"{len(sigma_columns)} sigma column(s) for {len(columns)} "
+                             "concentration column(s)", hint="give one --sigma-column per --column")
+    for name in [time_column, *columns, *sigma_columns]:
+        if name not in header:
+            raise InputFileError(path, f"no column named {name!r}", line=header_line,
+                                 hint="columns are: " + ", ".join(header))
+    index = {name: header.index(name) for name in header}
+    for row, line in zip(rows, lines):
+        if len(row) != len(header):
+            raise InputFileError(path, f"{len(row)} cells but the header has {len(header)}", line=line)
+
+    def column(name):
+        return np.array([_number(row[index[name]], path, line, name) for row, line in zip(rows, lines)])
+
+    t = column(time_column)
+    v = np.vstack([column(name) for name in columns]) if columns else np.empty((0, len(rows)))
+    s = np.vstack([column(name) for name in sigma_columns]) if sigma_columns else None
+    if not columns:
+        raise InputFileError(path, "no concentration column given", hint="pass --column NAME")
+    warnings = _validate(t, v, s, tuple(columns), str(path), lines)
+    return ConcentrationData(t, v, s, tuple(columns), str(path), warnings)

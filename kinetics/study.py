@@ -1,0 +1,451 @@
+"""Temperature studies from a TOML config: per-run fits, Arrhenius/Eyring, global fit, files.
+
+A study config has a top-level ``[study]`` table (that is how :func:`is_study_config`
+tells it from a single-run config) and one ``[[study.runs]]`` table per run.  Every key,
+its unit and its default:
+
+``[study]``
+    ``name`` (str, default: the config file name without extension) — title of plots/report.
+    ``model`` (str, default ``"first"``) — rate law (``kinetics.rates`` registry name) for
+    the per-run fits and the global fit: ``zero``, ``first``, ``second``, ``second-mixed`` or
+    ``pseudo-first`` (laws with one rate constant; ``nth``, ``reversible-first`` and
+    ``consecutive`` are refused, see :func:`kinetics.temperature.rates_model`).
+    ``observed`` (``"reactant"`` or ``"product"``, default ``"reactant"``) — which species
+    the concentration column holds.
+    ``reference_temperature_kelvin`` (K, default 298.15) — where dG‡ is evaluated.
+    ``t_ref_kelvin`` (K, default: harmonic mean of the run temperatures) — reference
+    temperature of the global fit.
+    ``global_fit`` (bool, default true) — also fit all raw data at once.
+    ``profile`` (bool, default true) — profile-likelihood interval for Ea in the global fit.
+    ``interval_basis`` (``"scatter"`` or ``"stated"``, default ``"scatter"``) — which
+    two-step intervals are the headline ones (see :mod:`kinetics.temperature`).
+
+``[[study.runs]]`` (at least two; three or more for intervals from the scatter)
+    ``label`` (str, default ``"run N"``).
+    ``temperature_c`` (°C) or ``temperature_kelvin`` (K) — exactly one.
+    ``table`` (path, relative to the config file) — a CSV series table with a time column
+    and concentration column(s); or ``config`` (path) — a single-run config, turned into a
+    table by ``kinetics.series.run_config_to_table``.  Exactly one of the two.
+    ``time_column`` (str, default ``"time_s"``) and ``time_unit`` (``"s"``, ``"min"`` or
+    ``"h"``, default ``"s"``).
+    ``column`` (str, required) — the concentration column, mol/L.
+    ``sigma_column`` (str, optional) — per-point standard deviations of ``column``, mol/L.
+
+Outputs written to the output folder: ``runs.csv`` (per-run fits), ``arrhenius.csv``
+(per-run Arrhenius/Eyring table), ``comparison.csv`` (two-step vs global),
+``study.json`` (everything), ``arrhenius.png``, ``eyring.png`` and ``global_fit.png``.
+"""
+
+from __future__ import annotations
+
+import logging
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Mapping
+
+import numpy as np
+
+from kinetics import temperature as temp
+from kinetics.errors import ConfigError, InputFileError, KineticsError
+from kinetics.jsonio import dumps
+
+log = logging.getLogger(__name__)
+
+_STUDY_KEYS = {"name", "model", "observed", "reference_temperature_kelvin", "t_ref_kelvin", "global_fit", "profile",
+               "interval_basis", "runs"}
+_RUN_KEYS = {"label", "temperature_c", "temperature_kelvin", "table", "config", "time_column", "time_unit",
+             "column", "sigma_column"}
+_TIME_UNITS_S = {"s": 1.0, "min": 60.0, "h": 3600.0}
+
+
+def is_study_config(config: Mapping[str, Any]) -> bool:
+    """True when a parsed config is a temperature study (it has a top-level ``[study]`` table)."""
+    return isinstance(config, Mapping) and isinstance(config.get("study"), Mapping)
+
+
+@dataclass(frozen=True)
+class StudyResult:
+    """Everything a study produced.
+
+    Attributes
+    ----------
+    name : str
+    config_path, out_dir : Path
+    runs : tuple of KineticRun
+    run_fits : tuple of RunFit
+    temperature : TemperatureResult or None
+        None when fewer than two runs gave a rate constant (``message`` says why).
+    global_result : GlobalFitResult or None
+    files : tuple of Path
+        Every file written.
+    warnings : tuple of str
+    message : str
+    """
+
+    name: str
+    config_path: Path
+    out_dir: Path
+    runs: tuple
+    run_fits: tuple
+    temperature: temp.TemperatureResult | None
+    global_result: temp.GlobalFitResult | None
+    files: tuple[Path, ...]
+    warnings: tuple[str, ...]
+    message: str = "ok"
+
+    @property
+    def success(self) -> bool:
+        return self.temperature is not None and (self.global_result is None or self.global_result.success)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "name": self.name,
+            "config": str(self.config_path),
+            "success": self.success,
+            "message": self.message,
+            "run_fits": [
+                {"label": f.label, "temperature_kelvin": f.temperature_kelvin, "k": f.k, "k_stderr": f.k_stderr,
+                 "n_points": f.n_points, "success": f.success, "message": f.message, **dict(f.params)}
+                for f in self.run_fits
+            ],
+            "two_step": None if self.temperature is None else self.temperature.to_dict(),
+            "global_fit": None if self.global_result is None else self.global_result.to_dict(),
+            "files": [str(p) for p in self.files],
+            "warnings": list(self.warnings),
+        }
+
+    def report(self) -> str:
+        lines = [f"Temperature study '{self.name}': {len(self.runs)} runs", "  per-run fits:"]
+        for f in self.run_fits:
+            state = "" if f.success else f"  ({f.message})"
+            lines.append(f"    {f.label:<16} {f.temperature_kelvin:8.2f} K  k = {f.k:.5g} ± {f.k_stderr:.2g}{state}")
+        if self.temperature is not None:
+            lines.append(self.temperature.report())
+        if self.global_result is not None:
+            lines.append(self.global_result.report())
+        if self.temperature is None:
+            lines.append(f"  no temperature analysis: {self.message}")
+        lines.append(f"  files: {', '.join(p.name for p in self.files)}")
+        return "\n".join(lines)
+
+
+# ---------------------------------------------------------------- config reading
+def load_study_config(config_path: str | Path) -> dict[str, Any]:
+    """Parse a study TOML file; errors name the file (and line, for syntax errors)."""
+    path = Path(config_path)
+    try:
+        with open(path, "rb") as handle:
+            config = tomllib.load(handle)
+    except FileNotFoundError:
+        raise InputFileError(path, "study config not found") from None
+    except tomllib.TOMLDecodeError as error:
+        line = getattr(error, "lineno", None)
+        raise InputFileError(path, f"not valid TOML ({error})", line=line) from None
+    if not is_study_config(config):
+        raise ConfigError("study", "missing the top-level [study] table", "a study config starts with [study]", source=path)
+    return config
+
+
+def _run_temperature(run: Mapping, key: str, source: Path) -> tuple[float, list[str]]:
+    has_c, has_k = "temperature_c" in run, "temperature_kelvin" in run
+    if has_c == has_k:
+        raise ConfigError(key, "needs exactly one of temperature_c (°C) and temperature_kelvin (K)", source=source)
+    name = "temperature_c" if has_c else "temperature_kelvin"
+    value = run[name]
+    if not isinstance(value, (int, float)) or isinstance(value, bool):
+        raise ConfigError(f"{key}.{name}", f"{value!r} is not a number", source=source)
+    kelvin, warnings = temp.to_kelvin([value], "c" if has_c else "k", [key])
+    return float(kelvin[0]), warnings
+
+
+def _read_series_table(run: Mapping, key: str, base: Path, source: Path):
+    import pandas as pd
+
+    if ("table" in run) == ("config" in run):
+        raise ConfigError(key, "needs exactly one of 'table' (a CSV series table) and 'config' (a run config)",
+                          source=source)
+    if "config" in run:
+        try:
+            from kinetics.series import run_config_to_table
+        except ImportError:
+            raise ConfigError(f"{key}.config", "run configs need kinetics.series.run_config_to_table, "
+                              "which this installation does not provide yet",
+                              "export the run as a CSV series table and give it as 'table'", source=source) from None
+        return run_config_to_table(base / run["config"]), base / run["config"]
+    path = base / run["table"]
+    try:
+        frame = pd.read_csv(path, comment="#", skipinitialspace=True)
+    except FileNotFoundError:
+        raise InputFileError(path, "series table not found", hint=f"named by {key}.table in {source}") from None
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as error:
+        raise InputFileError(path, f"not a readable CSV table ({error})") from None
+    frame.columns = [str(c).strip() for c in frame.columns]
+    return frame, path
+
+
+def _column(frame, name: str, path: Path, key: str) -> np.ndarray:
+    import pandas as pd
+
+    if name not in frame:
+        raise InputFileError(path, f"no column '{name}' (asked for by {key})", line=1,
+                             hint=f"columns are: {', '.join(map(str, frame.columns))}")
+    values = pd.to_numeric(frame[name], errors="coerce").to_numpy(float)
+    bad = np.flatnonzero(~np.isfinite(values) & frame[name].notna().to_numpy())
+    if bad.size:
+        i = int(bad[0])
+        raise InputFileError(path, f"column '{name}' value {frame[name].iloc[i]!r} is not a number", line=i + 2)
+    return values
+
+
+def _load_run(run: Mapping, index: int, base: Path, source: Path) -> tuple[temp.KineticRun, list[str]]:
+    key = f"study.runs[{index}]"
+    if not isinstance(run, Mapping):
+        raise ConfigError(key, "each run must be a table ([[study.runs]])", source=source)
+    unknown = set(run) - _RUN_KEYS
+    if unknown:
+        raise ConfigError(f"{key}.{sorted(unknown)[0]}", "unknown key", f"known keys: {', '.join(sorted(_RUN_KEYS))}",
+                          source=source)
+    label = str(run.get("label", f"run {index + 1}"))
+    kelvin, warnings = _run_temperature(run, key, source)
+    if "column" not in run:
+        raise ConfigError(f"{key}.column", "missing: which concentration column (mol/L) to fit", source=source)
+    time_unit = run.get("time_unit", "s")
+    if time_unit not in _TIME_UNITS_S:
+        raise ConfigError(f"{key}.time_unit", f"unknown unit {time_unit!r}", "use s, min or h", source=source)
+    frame, path = _read_series_table(run, key, base, source)
+    time_s = _column(frame, run.get("time_column", "time_s"), path, f"{key}.time_column") * _TIME_UNITS_S[time_unit]
+    conc = _column(frame, run["column"], path, f"{key}.column")
+    sigma = _column(frame, run["sigma_column"], path, f"{key}.sigma_column") if "sigma_column" in run else None
+    if np.any(time_s[np.isfinite(time_s)] < 0):
+        warnings.append(f"{label}: negative times in {path.name}; times are seconds from reaction start")
+    return temp.KineticRun(label, kelvin, time_s, conc, sigma), warnings
+
+
+def _study_options(study: Mapping, source: Path) -> dict[str, Any]:
+    unknown = set(study) - _STUDY_KEYS
+    if unknown:
+        raise ConfigError(f"study.{sorted(unknown)[0]}", "unknown key", f"known keys: {', '.join(sorted(_STUDY_KEYS))}",
+                          source=source)
+    options = {
+        "name": str(study.get("name", source.stem)),
+        "model": study.get("model", "first"),
+        "observed": study.get("observed", "reactant"),
+        "reference_temperature_kelvin": float(study.get("reference_temperature_kelvin",
+                                                        temp.DEFAULT_REFERENCE_TEMPERATURE_KELVIN)),
+        "t_ref_kelvin": study.get("t_ref_kelvin"),
+        "global_fit": bool(study.get("global_fit", True)),
+        "profile": bool(study.get("profile", True)),
+        "interval_basis": study.get("interval_basis", "scatter"),
+    }
+    if options["interval_basis"] not in ("scatter", "stated"):
+        raise ConfigError("study.interval_basis", f"{options['interval_basis']!r} is not 'scatter' or 'stated'",
+                          source=source)
+    if options["observed"] not in ("reactant", "product"):
+        raise ConfigError("study.observed", f"{options['observed']!r} is not 'reactant' or 'product'", source=source)
+    if not isinstance(options["model"], str):
+        raise ConfigError("study.model", f"{options['model']!r} is not a rate-law name", source=source)
+    try:
+        temp.resolve_model(options["model"], options["observed"])
+    except ConfigError as error:
+        raise ConfigError(f"study.{error.key}", error.problem, error.hint, source=source) from None
+    runs = study.get("runs")
+    if not isinstance(runs, list) or len(runs) < 2:
+        raise ConfigError("study.runs", f"{0 if not isinstance(runs, list) else len(runs)} run(s) listed; "
+                          "a temperature study needs at least 2 ([[study.runs]] tables), 3 or more recommended",
+                          source=source)
+    return options
+
+
+# ---------------------------------------------------------------- running
+def run_study(config_path: str | Path, out_dir: str | Path) -> StudyResult:
+    """Run a temperature study config and write its tables, JSON and plots.
+
+    Parameters
+    ----------
+    config_path : path to the study TOML (module docstring lists its keys).
+    out_dir : folder for the outputs (created if missing).
+
+    Returns
+    -------
+    StudyResult
+
+    Raises
+    ------
+    ConfigError, InputFileError
+        Bad config keys, unreadable tables, bad temperatures.
+    """
+    source = Path(config_path)
+    config = load_study_config(source)
+    study = config["study"]
+    options = _study_options(study, source)
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    base = source.parent
+    runs, warnings = [], []
+    for i, run in enumerate(study["runs"]):
+        loaded, run_warnings = _load_run(run, i, base, source)
+        runs.append(loaded)
+        warnings += run_warnings
+    labels = [r.label for r in runs]
+    if len(set(labels)) != len(labels):
+        raise ConfigError("study.runs.label", "two runs share a label", "give every run its own label", source=source)
+    model = temp.resolve_model(options["model"], options["observed"])
+    run_fits = [_fit_one(run, model) for run in runs]
+    warnings += [f"{f.label}: {f.message}" for f in run_fits if not f.success]
+    good = [f for f in run_fits if f.success]
+    temperature_result, message = None, "ok"
+    try:
+        temperature_result = temp.analyse_temperatures(
+            [f.temperature_kelvin for f in good], [f.k for f in good], [f.k_stderr for f in good],
+            labels=[f.label for f in good], reference_temperature_kelvin=options["reference_temperature_kelvin"],
+            basis=options["interval_basis"], k_unit=model.k_unit, extra_warnings=warnings)
+    except ConfigError as error:
+        message = f"two-step analysis not possible: {error}"
+        warnings.append(message)
+        log.warning(message)
+    global_result = None
+    if options["global_fit"]:
+        global_result = temp.global_fit(runs, model, t_ref_kelvin=options["t_ref_kelvin"], run_fits=run_fits,
+                                        profile=options["profile"],
+                                        reference_temperature_kelvin=options["reference_temperature_kelvin"])
+        if not global_result.success:
+            warnings.append(f"global fit: {global_result.message}")
+    all_warnings = tuple(dict.fromkeys(list(temperature_result.warnings if temperature_result else ()) + warnings))
+    partial = StudyResult(options["name"], source, out, tuple(runs), tuple(run_fits), temperature_result,
+                          global_result, (), all_warnings, message)
+    files = _write_outputs(partial, model)
+    return StudyResult(options["name"], source, out, tuple(runs), tuple(run_fits), temperature_result,
+                       global_result, tuple(files), all_warnings, message)
+
+
+def _fit_one(run: temp.KineticRun, model: temp.GlobalModel) -> temp.RunFit:
+    try:
+        return temp.fit_run_rates(run, model)
+    except (KineticsError, ValueError, FloatingPointError) as error:
+        return temp.RunFit(run.label, run.temperature_kelvin, float("nan"), float("nan"), {}, len(run.time_s),
+                           False, f"fit failed: {error}")
+
+
+def _write_outputs(result: StudyResult, model: temp.GlobalModel) -> list[Path]:
+    import pandas as pd
+
+    out = result.out_dir
+    files = []
+    runs_csv = out / "runs.csv"
+    pd.DataFrame(result.to_dict()["run_fits"]).to_csv(runs_csv, index=False)
+    files.append(runs_csv)
+    if result.temperature is not None:
+        path = out / "arrhenius.csv"
+        result.temperature.table().to_csv(path, index=False)
+        files.append(path)
+    if result.global_result is not None and result.global_result.comparison():
+        path = out / "comparison.csv"
+        pd.DataFrame(result.global_result.comparison()).to_csv(path, index=False)
+        files.append(path)
+    if result.temperature is not None:
+        files.append(arrhenius_plot(result.temperature, result.global_result, out / "arrhenius.png", result.name))
+        files.append(eyring_plot(result.temperature, out / "eyring.png", result.name))
+    if result.global_result is not None and result.global_result.success:
+        files.append(global_fit_plot(result.runs, result.global_result, model, out / "global_fit.png", result.name))
+    json_path = out / "study.json"
+    files.append(json_path)
+    payload = result.to_dict()
+    payload["files"] = [str(p) for p in files]
+    json_path.write_text(dumps(payload) + "\n")
+    return files
+
+
+# ---------------------------------------------------------------- plots
+# Greyscale-readable: black points, a dark solid line for the two-step fit, a light grey
+# band, a dashed mid-grey line for the global fit; markers differ by run in the raw-data plot.
+_INK = "#1b1b1b"
+_LINE = "#3a4a6b"
+_BAND = "#c9ced8"
+_GLOBAL = "#8a5a2b"
+_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*")
+
+
+def _figure():
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    fig, ax = plt.subplots(figsize=(6.0, 4.2), dpi=120)
+    return plt, fig, ax
+
+
+def _line_plot(result: temp.TemperatureResult, line: temp.LineFit, y, ylabel: str, title: str, path: Path,
+               global_curve=None) -> Path:
+    plt, fig, ax = _figure()
+    t = np.asarray(result.temperature_kelvin)
+    x = 1.0 / t
+    sigma = result._sigma_lnk() if result.k_stderr is not None else None
+    grid = np.linspace(x.min() - 0.05 * np.ptp(x), x.max() + 0.05 * np.ptp(x), 200)
+    fit, se = line.predict(grid, result.basis)
+    q = temp.quantile95(result.basis, line.dof)
+    ax.fill_between(1e3 * grid, fit - q * se, fit + q * se, color=_BAND, lw=0, label="95 % band of the line")
+    ax.plot(1e3 * grid, fit, color=_LINE, lw=1.6, label="weighted fit (two-step)")
+    if global_curve is not None:
+        ax.plot(1e3 * grid, global_curve(grid), color=_GLOBAL, lw=1.4, ls="--", label="global fit")
+    ax.errorbar(1e3 * x, y, yerr=sigma, fmt="o", color=_INK, ms=5, capsize=3, label="runs (± stderr)")
+    ax.set_xlabel("1000 / T (K$^{-1}$)")
+    ax.set_ylabel(ylabel)
+    ax.set_title(title, fontsize=10)
+    ax.legend(fontsize=8, frameon=False)
+    secondary = ax.secondary_xaxis("top", functions=(lambda v: 1e3 / np.maximum(v, 1e-9), lambda v: 1e3 / np.maximum(v, 1e-9)))
+    secondary.set_xlabel("T (K)")
+    fig.tight_layout()
+    fig.savefig(path)
+    plt.close(fig)
+    return path
+
+
+def arrhenius_plot(result: temp.TemperatureResult, global_result: temp.GlobalFitResult | None, path: Path,
+                   name: str = "") -> Path:
+    """ln k against 1000/T with the weighted line, its 95 % band and the global fit line."""
+    curve = None
+    if global_result is not None and global_result.success:
+        curve = lambda x: np.log(global_result.k_at(1.0 / x))  # noqa: E731
+    ea = result.ea()
+    title = f"{name}\nArrhenius: Ea = {ea.value:.1f} ± {ea.stderr:.1f} kJ/mol".lstrip("\n")
+    return _line_plot(result, result.arrhenius, np.log(result.k), f"ln(k / {result.k_unit})", title, path, curve)
+
+
+def eyring_plot(result: temp.TemperatureResult, path: Path, name: str = "") -> Path:
+    """ln(k/T) against 1000/T with the weighted line and its 95 % band."""
+    dh, ds = result.dh(), result.ds()
+    title = (f"{name}\nEyring: dH‡ = {dh.value:.1f} ± {dh.stderr:.1f} kJ/mol, "
+             f"dS‡ = {ds.value:.0f} ± {ds.stderr:.0f} J/(mol K)").lstrip("\n")
+    y = np.log(np.asarray(result.k) / np.asarray(result.temperature_kelvin))
+    return _line_plot(result, result.eyring, y, f"ln(k / T) (k in {result.k_unit}, T in K)", title, path)
+
+
+def global_fit_plot(runs, global_result: temp.GlobalFitResult, model: temp.GlobalModel, path: Path,
+                    name: str = "") -> Path:
+    """Every run's concentration data with the globally fitted curves."""
+    plt, fig, ax = _figure()
+    shades = np.linspace(0.0, 0.6, max(len(runs), 1))
+    for i, (run, params) in enumerate(zip(runs, global_result.nuisance)):
+        grey = str(shades[i])
+        marker = _MARKERS[i % len(_MARKERS)]
+        ax.plot(run.time_s, run.concentration_mol_per_l, marker, color=grey, ms=3.5, mfc="none",
+                label=f"{run.label} ({run.temperature_kelvin:.1f} K)")
+        grid = np.linspace(0.0, run.time_s.max(), 300)
+        k = float(global_result.k_at(run.temperature_kelvin))
+        ax.plot(grid, model.function(grid, k, **params), color=grey, lw=1.2)
+    ax.set_xlabel("time (s)")
+    ax.set_ylabel("concentration (mol/L)")
+    # Runs at different temperatures differ in time scale by orders of magnitude; a
+    # symmetric-log axis (linear near zero) keeps every run readable on one figure.
+    positive = np.concatenate([r.time_s[r.time_s > 0] for r in runs])
+    if positive.size:
+        ax.set_xscale("symlog", linthresh=float(positive.min()))
+    ax.set_title(f"{name}\nglobal fit: Ea = {global_result.ea.value:.1f} ± {global_result.ea.stderr:.1f} kJ/mol"
+                 .lstrip("\n"), fontsize=10)
+    ax.legend(fontsize=7, frameon=False)
+    fig.tight_layout()
+    fig.savefig(path)
+    plt.close(fig)
+    return path

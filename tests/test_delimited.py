@@ -1,0 +1,110 @@
+"""Delimited-text spectra: exact round trip, separators, header rows and clear errors."""
+
+from __future__ import annotations
+
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from kinetics.errors import InputFileError
+from kinetics.spectra import Spectrum
+from kinetics.spectra.delimited import csv_text, write_csv
+from kinetics.spectra.reader import read
+
+DATA = Path(__file__).parent / "data"
+
+
+def _spectrum(rng: np.random.Generator, imag: bool = True) -> Spectrum:
+    # Invented data: the test sets the truth.
+    ppm = np.linspace(10.0, -0.5, 500)
+    return Spectrum(
+        ppm=ppm, real=rng.normal(0, 1, 500) + 50 / (1 + ((ppm - 3.0) / 0.02) ** 2),
+        imag=rng.normal(0, 1, 500) if imag else None, nucleus="19F", observe_mhz=56.45,
+        acquired_utc=datetime(2026, 2, 3, 4, 5, 6, 789000, tzinfo=timezone.utc),
+        duration_s=30.5, n_scans=8, header={"title": "invented"},
+    )
+
+
+@pytest.mark.parametrize("imag", [True, False])
+def test_csv_round_trip_is_exact(tmp_path, imag):
+    original = _spectrum(np.random.default_rng(11), imag=imag)
+    back = read(write_csv(tmp_path / "s.csv", original))
+    np.testing.assert_array_equal(back.ppm, original.ppm)
+    np.testing.assert_array_equal(back.real, original.real)
+    if imag:
+        np.testing.assert_array_equal(back.imag, original.imag)
+    else:
+        assert back.imag is None
+    assert (back.nucleus, back.observe_mhz, back.n_scans, back.duration_s) == ("19F", 56.45, 8, 30.5)
+    assert back.acquired_utc == original.acquired_utc
+    assert back.header["title"] == "invented"
+    assert not list(tmp_path.glob("*.tmp"))
+
+
+def test_real_spectrum_through_csv(tmp_path):
+    # Real data (tests/data/README.md) exported to CSV and read back unchanged.
+    original = read(DATA / "ethyl-crotonate.1h.dx")
+    back = read(write_csv(tmp_path / "crotonate.csv", original))
+    np.testing.assert_array_equal(back.real, original.real)
+    np.testing.assert_array_equal(back.ppm, original.ppm)
+    assert back.acquired_utc == original.acquired_utc
+
+
+@pytest.mark.parametrize("separator", ["\t", " ", ";", ", "])
+def test_separators_and_ascending_axis(tmp_path, separator):
+    rows = "\n".join(separator.join(f"{v:g}" for v in (p, 2 * p + 1)) for p in np.linspace(0, 5, 11))
+    path = tmp_path / "t.txt"
+    path.write_text(f"# observe_mhz = 80.0\n# nucleus: 1H\n{rows}\n")
+    spectrum = read(path)
+    assert spectrum.ppm[0] == 5.0  # stored high-to-low
+    np.testing.assert_allclose(spectrum.real, 2 * spectrum.ppm + 1)
+
+
+def test_named_columns_in_any_order(tmp_path):
+    path = tmp_path / "n.csv"
+    path.write_text("# observe_mhz: 60\nintensity,shift_ppm,imaginary\n5,3.0,1\n6,2.0,2\n7,1.0,3\n")
+    spectrum = read(path)
+    np.testing.assert_array_equal(spectrum.ppm, [3.0, 2.0, 1.0])
+    np.testing.assert_array_equal(spectrum.real, [5, 6, 7])
+    np.testing.assert_array_equal(spectrum.imag, [1, 2, 3])
+
+
+def _error(tmp_path, text: str) -> InputFileError:
+    path = tmp_path / "bad.csv"
+    path.write_text(text)
+    with pytest.raises(InputFileError) as info:
+        read(path)
+    assert str(path) in str(info.value) and not info.value.problem.startswith("unexpected")
+    return info.value
+
+
+GOOD = "# observe_mhz: 60\nppm,real\n3.0,1\n2.0,2\n1.0,3\n"
+
+
+def test_errors_name_line_and_remedy(tmp_path):
+    error = _error(tmp_path, GOOD.replace("2.0,2", "2.0,abc"))
+    assert error.line == 4 and "non-numeric" in error.problem
+    error = _error(tmp_path, GOOD.replace("2.0,2", "2.0,nan"))
+    assert error.line == 4 and "NaN" in error.problem
+    error = _error(tmp_path, GOOD.replace("2.0,2", "3.5,2"))
+    assert error.line == 4 and "monotonic" in error.problem
+    error = _error(tmp_path, GOOD.replace("# observe_mhz: 60\n", ""))
+    assert "observe" in error.problem and "observe_mhz" in error.hint
+    error = _error(tmp_path, GOOD.replace("2.0,2", "2.0,2,3"))
+    assert error.line == 4 and "columns" in error.problem
+    error = _error(tmp_path, "# observe_mhz: 60\n# acquired: yesterday\n1,2\n0,3\n")
+    assert error.line == 2 and "ISO 8601" in error.problem
+    assert "fewer than 2" in _error(tmp_path, "# observe_mhz: 60\n1,2\n").problem
+
+
+def test_naive_time_taken_as_utc(tmp_path):
+    path = tmp_path / "t.csv"
+    path.write_text(GOOD.replace("ppm,real", "# acquired: 2026-01-01T12:00:00\nppm,real"))
+    assert read(path).acquired_utc == datetime(2026, 1, 1, 12, tzinfo=timezone.utc)
+
+
+def test_csv_text_has_metadata_lines():
+    text = csv_text(_spectrum(np.random.default_rng(2)))
+    assert "# observe_mhz: 56.45" in text and "# acquired: 2026-02-03T04:05:06.789000+00:00" in text

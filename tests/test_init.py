@@ -1,0 +1,155 @@
+"""``kinetics init``: a starter config drafted from the first spectrum of a folder.
+
+Folders are simulated (kinetics.simulate, truth set here): an invented ester with a CH2
+quartet (4.12 ppm) and a CH3 triplet (1.25 ppm), J = 7 Hz, a TMS line at 0 ppm and a big
+water-like solvent line at 4.79 ppm, on a 60 MHz axis.  The line positions follow from the
+first-order rule (n + 1 lines J apart, binomial intensities); the checks are that every
+true line of a multiplet falls in one proposed window, that no window holds two
+multiplets, that the reference and solvent lines are recognised, and that the written
+config loads with the project's config loader.
+"""
+
+from __future__ import annotations
+
+import re
+from datetime import datetime, timezone
+
+import numpy as np
+import pytest
+
+from kinetics import simulate
+from kinetics.cli import main
+from kinetics.config import load_run_config
+from kinetics.errors import InputFileError
+from kinetics.init import draft_config, first_spectrum
+
+MHZ = 60.0
+J_HZ = 7.0
+ESTER = simulate.SpeciesSignals("ester", (simulate.Multiplet(4.12, 2, J_HZ, 4),
+                                          simulate.Multiplet(1.25, 3, J_HZ, 3)))
+ACID = simulate.SpeciesSignals("acid", (simulate.Multiplet(2.05, 3),))
+TMS = simulate.SpeciesSignals("tms", (simulate.Multiplet(0.0, 12),))
+SOLVENT = simulate.Multiplet(4.79, 40, width_hz=2.0)
+
+
+def _true_lines(centre_ppm: float, n_lines: int) -> np.ndarray:
+    # First-order multiplet: n lines spaced J apart about the centre (textbook rule).
+    return centre_ppm + (np.arange(n_lines) - (n_lines - 1) / 2) * J_HZ / MHZ
+
+
+def _write(folder, kind="spectrum", n=3, seed=11, acid_start=0.5):
+    times = np.arange(n) * 300.0
+    conc = {"ester": 0.5 * np.exp(-1e-3 * times), "acid": acid_start + 0.5 * (1 - np.exp(-1e-3 * times)),
+            "tms": np.full(n, 0.01)}
+    simulate.write_series(folder, times, conc, [ESTER, ACID, TMS], np.random.default_rng(seed), kind=kind,
+                          snr=150.0, solvent=SOLVENT, phase0_deg=25.0 if kind == "fid" else 0.0,
+                          acquisition=simulate.Acquisition(observe_mhz=MHZ, n_points=8192))
+    return folder
+
+
+@pytest.fixture(scope="module")
+def spectra_folder(tmp_path_factory):
+    return _write(tmp_path_factory.mktemp("series") / "run_25c")
+
+
+def _check_windows(draft):
+    signals = draft.signals
+    multiplets = {"quartet": _true_lines(4.12, 4), "triplet": _true_lines(1.25, 3), "singlet": _true_lines(2.05, 1)}
+    holders = {}
+    for name, lines in multiplets.items():
+        inside = [w for w in signals if all(w.window_ppm[0] < x < w.window_ppm[1] for x in lines)]
+        assert len(inside) == 1, f"{name}: windows {[w.window_ppm for w in signals]}"
+        holders[name] = inside[0]
+    assert len({id(w) for w in holders.values()}) == 3  # one multiplet per window
+    assert len(signals) == 3
+    assert holders["quartet"].multiplicity == "quartet" and holders["triplet"].multiplicity == "triplet"
+    assert holders["quartet"].coupling_hz == pytest.approx(J_HZ, abs=0.3)
+    ordered = sorted(w.window_ppm for w in draft.windows)
+    assert all(a[1] <= b[0] for a, b in zip(ordered, ordered[1:]))  # no overlaps
+    assert draft.reference is not None and abs(draft.reference.peaks[0].shift_ppm) < 0.02
+    assert draft.solvent is not None and abs(draft.solvent.peaks[0].shift_ppm - 4.79) < 0.02
+    return holders
+
+
+def test_spectra_folder_gives_true_windows_and_loadable_config(spectra_folder, tmp_path):
+    out = tmp_path / "configs" / "run.toml"
+    draft = draft_config(spectra_folder, out)
+    holders = _check_windows(draft)
+    # Nuclei from integral ratios, CH2 : CH3 : CH3 = 2 : 3 : 3 scaled by concentration
+    # (ester and acid both 0.5 mol/L in the first spectrum), i.e. 2 : 3 : 3.
+    assert [holders[k].nuclei_guess for k in ("quartet", "triplet", "singlet")] == [2, 3, 3]
+    config = load_run_config(out)
+    assert config.folder.resolve() == spectra_folder.resolve()
+    assert config.pattern == "*.jdx" and config.order == "time" and config.time.source == "header"
+    assert [s.window_ppm for s in config.signals] == [tuple(round(v, 3) for v in w.window_ppm) for w in draft.signals]
+    assert config.processing["reference"] == {"ppm": 0.0, "window_ppm": 0.3}
+    text = out.read_text()
+    assert re.search(r"# Probable solvent line, .*singlet at 4\.79\d ppm", text)
+
+
+def test_fid_folder_is_transformed_first(tmp_path):
+    folder = _write(tmp_path / "fids", kind="fid", n=2)
+    draft = draft_config(folder, tmp_path / "fid.toml")
+    _check_windows(draft)
+    assert draft.source.name == "fid_0001.jdx"
+    assert load_run_config(tmp_path / "fid.toml").processing["phase"] == "auto"
+
+
+def test_first_in_acquisition_order_not_name_order(tmp_path):
+    folder = _write(tmp_path / "renamed", n=3)
+    # Rename so name order runs backwards in time: c.jdx holds the first acquisition.
+    for old, new in (("spectrum_0001.jdx", "c.jdx"), ("spectrum_0002.jdx", "b.jdx"), ("spectrum_0003.jdx", "a.jdx")):
+        (folder / old).rename(folder / new)
+    spectrum, files, skipped, from_fid = first_spectrum(folder)
+    assert [p.name for p in files] == ["a.jdx", "b.jdx", "c.jdx"]  # truth.csv is not a spectrum
+    assert spectrum.source_path.endswith("c.jdx") and not from_fid and skipped == []
+    assert spectrum.acquired_utc < datetime(2026, 1, 1, 9, 0, 0, tzinfo=timezone.utc)
+
+
+def test_never_overwrites_without_force(spectra_folder, tmp_path):
+    out = tmp_path / "mine.toml"
+    out.write_text("# my edited config\n")
+    with pytest.raises(InputFileError, match="--force"):
+        draft_config(spectra_folder, out)
+    assert out.read_text() == "# my edited config\n"
+    assert main(["init", str(spectra_folder), "--out", str(out)]) == 2
+    assert out.read_text() == "# my edited config\n"
+    assert main(["init", str(spectra_folder), "--out", str(out), "--force"]) == 0
+    assert "[[signals]]" in out.read_text()
+
+
+def test_cli_default_output_beside_folder(spectra_folder, capsys):
+    target = spectra_folder.parent / f"{spectra_folder.name}.toml"
+    target.unlink(missing_ok=True)
+    assert main(["init", str(spectra_folder)]) == 0
+    printed = capsys.readouterr().out
+    assert str(target) in printed and "quartet" in printed
+    assert target.is_file() and not (spectra_folder / f"{spectra_folder.name}.toml").exists()
+    load_run_config(target)
+
+
+def test_empty_folder_and_unreadable_first_file(tmp_path):
+    empty = tmp_path / "empty"
+    empty.mkdir()
+    (empty / "notes.md").write_text("not a spectrum\n")
+    with pytest.raises(InputFileError, match="no spectrum files"):
+        draft_config(empty)
+    broken = tmp_path / "broken"
+    broken.mkdir()
+    (broken / "0001.jdx").write_text("##TITLE= cut short\n##JCAMP-DX= 5.01\n##XYDATA=(X++(Y..Y))\n1 2 3\n")
+    with pytest.raises(InputFileError, match="0001.jdx"):
+        draft_config(broken)
+    assert not (tmp_path / "broken.toml").exists()
+    assert main(["init", str(tmp_path / "missing")]) == 2
+
+
+def test_later_unreadable_file_is_skipped_and_noted(spectra_folder, tmp_path):
+    import shutil
+
+    folder = tmp_path / "mixed"
+    shutil.copytree(spectra_folder, folder)
+    (folder / "spectrum_0099.jdx").write_text("garbage\n")
+    draft = draft_config(folder, tmp_path / "mixed.toml")
+    assert len(draft.skipped) == 1 and "spectrum_0099.jdx" in draft.skipped[0]
+    assert "skipped unreadable file" in draft.text
+    load_run_config(tmp_path / "mixed.toml")

@@ -1,0 +1,162 @@
+"""Figures: labelled axes with units, data drawn where the inputs say, greyscale-safe styles.
+
+The checks are analytic: the plotted points must be exactly the transforms the axes name
+(ln k against 1000/T for Arrhenius, ln(k/T) for Eyring, observed minus model for
+residuals), so a figure that draws the wrong quantity fails.
+"""
+
+from __future__ import annotations
+
+import re
+
+import matplotlib.pyplot as plt  # only to check that the library leaves pyplot alone
+import numpy as np
+import pytest
+from matplotlib.figure import Figure
+
+from kinetics import plots
+
+_UNIT_LABEL = re.compile(r"\S.* / \S.*")  # "quantity / unit", the layout every axis follows
+
+
+def _check_labelled(figure: Figure) -> None:
+    axes = list(figure.axes)
+    for ax in figure.axes:
+        axes.extend(ax.child_axes)
+    assert axes
+    for ax in axes:
+        for label in (ax.get_xlabel(), ax.get_ylabel()):
+            if label:
+                assert _UNIT_LABEL.fullmatch(label), label
+    for ax in figure.axes:
+        assert ax.get_ylabel(), "every main panel names its quantity and unit"
+    assert any(ax.get_xlabel() for ax in figure.axes)
+
+
+def _line_spectrum(ppm, centres, width_ppm=0.01, heights=None):
+    heights = np.ones(len(centres)) if heights is None else heights
+    return sum(h / (1 + ((ppm - c) / width_ppm) ** 2) for c, h in zip(centres, heights))
+
+
+def test_styles_differ_without_colour():
+    pairs = {(str(s.linestyle), s.marker) for s in plots.SERIES_STYLES}
+    assert len(pairs) == len(plots.SERIES_STYLES)
+    assert len({s.linestyle if isinstance(s.linestyle, str) else str(s.linestyle)
+                for s in plots.SERIES_STYLES}) == len(plots.SERIES_STYLES)
+    assert plots.series_style(len(plots.SERIES_STYLES)) == plots.series_style(0)
+
+
+def test_stacked_spectra_axis_reversed_and_windows_shaded():
+    ppm = np.linspace(8.0, -0.5, 3000)
+    spectra = [(ppm, _line_spectrum(ppm, [1.2, 4.1], heights=[1 - f, f])) for f in np.linspace(0, 1, 30)]
+    windows = {"ester CH3": (1.1, 1.3), "product CH2": (4.0, 4.2)}
+    before = len(plt.get_fignums())
+    figure = plots.stacked_spectra_figure(spectra, time_s=np.arange(30) * 60.0, windows=windows,
+                                          max_traces=8)
+    assert len(plt.get_fignums()) == before  # nothing registered with pyplot
+    assert isinstance(figure, Figure)
+    _check_labelled(figure)
+    ax = figure.axes[0]
+    assert ax.get_xlabel() == "chemical shift / ppm"
+    assert ax.xaxis_inverted()
+    assert ax.get_xlim() == pytest.approx((8.0, -0.5))
+    spans = sorted(patch.get_x() for patch in ax.patches)
+    assert spans == pytest.approx([1.1, 4.0])
+    assert sorted(patch.get_width() for patch in ax.patches) == pytest.approx([0.2, 0.2])
+    assert len(ax.lines) == 8  # first and last included, evenly thinned
+    hatches = {patch.get_hatch() or "" for patch in ax.patches}
+    assert len(hatches) == 2  # the windows differ by hatch, not colour alone
+
+
+def test_stacked_spectra_accepts_records():
+    from kinetics.spectra.spectrum import Spectrum
+
+    ppm = np.linspace(5.0, 0.0, 500)
+    records = [Spectrum(ppm=ppm, real=_line_spectrum(ppm, [2.0]) * s, observe_mhz=60.0) for s in (1, 2)]
+    figure = plots.stacked_spectra_figure(records)
+    assert len(figure.axes[0].lines) == 2
+
+
+def test_concentration_residuals_are_observed_minus_model():
+    time_s = np.linspace(0.0, 3000.0, 25)
+    k = 1e-3
+    truth = np.exp(-k * time_s)
+    observed = truth + 0.01 * np.sin(time_s / 300.0)  # known offsets, so residuals are known
+    curve_t = np.linspace(0.0, 3000.0, 301)
+    curve = np.exp(-k * curve_t)
+    figure = plots.concentration_figure(
+        time_s, {"A": observed, "P": 1 - observed, "S": np.full(25, 0.5)},
+        sigma={"A": np.full(25, 0.01)}, curve_time_s=curve_t,
+        curve={"A": curve, "P": 1 - curve}, band={"A": (curve - 0.02, curve + 0.02)},
+        fitted={"A": truth})
+    _check_labelled(figure)
+    main, residual = figure.axes
+    assert main.get_ylabel() == "concentration / mol L⁻¹"
+    assert residual.get_xlabel() == "time / min"  # 3000 s shown in minutes
+    assert residual.get_ylabel() == "residual / mol L⁻¹"
+    points_a = residual.containers[0].lines[0]
+    np.testing.assert_allclose(points_a.get_xdata(), time_s / 60.0)
+    np.testing.assert_allclose(points_a.get_ydata(), observed - truth, atol=1e-12)
+    points_p = residual.containers[1].lines[0]  # residual of P interpolated from its curve
+    np.testing.assert_allclose(points_p.get_ydata(), (1 - observed) - np.interp(time_s, curve_t, 1 - curve))
+    fits = [line for line in main.lines if line.get_label().endswith(" fit")]
+    assert len(fits) == 2
+    assert fits[0].get_linestyle() != fits[1].get_linestyle()
+    markers = [c.lines[0].get_marker() for c in main.containers]
+    assert len(set(markers)) == 3  # three species, three markers: readable in greyscale
+    assert len(main.collections) >= 1  # the 95 % band
+
+
+def test_concentration_without_fit_has_one_panel():
+    figure = plots.concentration_figure([0, 10, 20], {"A": [1.0, 0.8, 0.6]}, concentration_unit="fraction")
+    assert len(figure.axes) == 1
+    assert figure.axes[0].get_xlabel() == "time / s"
+    _check_labelled(figure)
+
+
+def _temperature_data():
+    # Invented study with a known Ea: k = A exp(-Ea/RT); the plot must show exactly ln k.
+    temperature_kelvin = np.array([298.15, 308.15, 318.15, 328.15])
+    k = 1.0e11 * np.exp(-80_000.0 / (8.314462618 * temperature_kelvin))
+    return temperature_kelvin, k, 0.04 * k
+
+
+def test_arrhenius_points_band_and_error_bars():
+    t_k, k, k_se = _temperature_data()
+    line_t = np.linspace(295.0, 330.0, 40)
+    ln_k_line = np.log(1.0e11) - 80_000.0 / (8.314462618 * line_t)
+    figure = plots.arrhenius_figure(t_k, k, k_se, line={"temperature_kelvin": line_t, "value": ln_k_line,
+                                                        "low": ln_k_line - 0.1, "high": ln_k_line + 0.1},
+                                    annotation="Ea = 80 kJ/mol", labels=["a", "b", "c", "d"])
+    _check_labelled(figure)
+    ax = figure.axes[0]
+    assert ax.get_xlabel() == "1000/T / K⁻¹"
+    assert ax.get_ylabel() == "ln(k / s⁻¹)"
+    points = ax.containers[0].lines[0]
+    np.testing.assert_allclose(points.get_xdata(), 1000.0 / t_k)
+    np.testing.assert_allclose(points.get_ydata(), np.log(k))
+    segments = ax.containers[0].lines[2][0].get_segments()
+    half_lengths = [0.5 * (seg[1][1] - seg[0][1]) for seg in segments]
+    np.testing.assert_allclose(half_lengths, k_se / k)  # sigma(ln k) = sigma(k)/k
+    assert len(ax.collections) >= 2  # band + error bars
+    assert ax.child_axes[0].get_xlabel() == "temperature / °C"
+
+
+def test_eyring_plots_ln_k_over_t():
+    t_k, k, k_se = _temperature_data()
+    figure = plots.eyring_figure(t_k, k, k_se)
+    _check_labelled(figure)
+    ax = figure.axes[0]
+    assert ax.get_ylabel() == "ln((k/T) / s⁻¹ K⁻¹)"
+    np.testing.assert_allclose(ax.containers[0].lines[0].get_ydata(), np.log(k / t_k))
+
+
+def test_png_output(tmp_path):
+    t_k, k, k_se = _temperature_data()
+    figure = plots.arrhenius_figure(t_k, k, k_se)
+    data = plots.png_bytes(figure)
+    assert data[:8] == b"\x89PNG\r\n\x1a\n"
+    assert b"http" not in data  # no software banner with a URL inside the image
+    path = plots.save_png(figure, tmp_path / "sub" / "arrhenius.png")
+    assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert [p.name for p in path.parent.iterdir()] == ["arrhenius.png"]  # no temporary left
