@@ -174,3 +174,223 @@ def _bench_rates(quick: bool) -> list[BenchRow]:
 
 
 SECTIONS.append(("rates", _bench_rates))
+
+
+# ---------------------------------------------------------------- live (issue 6)
+_LIVE_CONFIG = """
+[run]
+folder = "in"
+pattern = "*.jdx"
+
+[quantify]
+mode = "standard"
+standard = "S"
+reactant = "A"
+product = "B"
+
+[[signals]]
+name = "A"
+species = "A"
+window_ppm = [1.8, 2.2]
+nuclei = 3
+
+[[signals]]
+name = "B"
+species = "B"
+window_ppm = [3.3, 3.7]
+nuclei = 3
+
+[[signals]]
+name = "S"
+species = "S"
+window_ppm = [-0.2, 0.2]
+nuclei = 12
+standard = true
+concentration_mol_per_l = 0.05
+"""
+
+
+def _live_spectra(folder, n: int, rng: np.random.Generator):
+    """``n`` invented JCAMP-DX spectra of A -> B (first order, k = 1e-4 1/s), 2k points."""
+    from kinetics import simulate
+
+    a = simulate.SpeciesSignals("A", (simulate.Multiplet(2.0, 3.0, width_hz=1.5),))
+    b = simulate.SpeciesSignals("B", (simulate.Multiplet(3.5, 3.0, width_hz=1.5),))
+    s = simulate.SpeciesSignals("S", (simulate.Multiplet(0.0, 12.0, width_hz=1.5),))
+    times = np.arange(n) * 30.0
+    a_mol_per_l = 0.4 * np.exp(-1e-4 * times)
+    simulate.write_series(folder, times, {"A": a_mol_per_l, "B": 0.4 - a_mol_per_l,
+                                          "S": np.full(n, 0.05)},
+                          [a, b, s], rng, snr=300.0,
+                          acquisition=simulate.Acquisition(observe_mhz=60.0, n_points=2048))
+    return sorted(folder.glob("*.jdx"))
+
+
+def _rss_mb() -> float:
+    """Resident set size now (Linux /proc), in MB."""
+    import os
+
+    with open("/proc/self/statm") as handle:
+        pages = int(handle.read().split()[1])
+    return pages * os.sysconf("SC_PAGE_SIZE") / 1e6
+
+
+def _bench_live(quick: bool) -> list[BenchRow]:
+    """Latency of the live step and memory over a soak, on the real series + rates path.
+
+    Latency: from the moment a file is complete (handed over by the watcher; the quiet
+    period, a setting, comes on top) to the ledger row, the warm-start refit and the
+    rewritten page (series.csv, fit.json, series.png, index.html).  Floor: measuring the
+    same file alone (read, process, integrate) — what any pipeline must do per spectrum.
+    """
+    import os
+    import shutil
+    import tempfile
+    from pathlib import Path
+
+    from kinetics import series
+    from kinetics.config import load_run_config
+    from watchers.folder import ReadyFile
+    from watchers.live import RunState, build_from_config, process_ready
+
+    sizes = (50,) if quick else (50, 500)
+    new_files = 6 if quick else 20
+    soak_n, turn = (150, 50) if quick else (5000, 100)
+    rows = []
+    base = Path(tempfile.mkdtemp(prefix="kinetics-bench-live-"))
+    try:
+        staging = base / "staging"
+        files = _live_spectra(staging, max(max(sizes) + new_files, soak_n), np.random.default_rng(6))
+        for in_run in sizes:
+            run = base / f"run{in_run}"
+            (run / "in").mkdir(parents=True)
+            (run / "run.toml").write_text(_LIVE_CONFIG)
+            for path in files[:in_run]:
+                shutil.copy(path, run / "in" / path.name)
+            pipeline = build_from_config(run / "run.toml")
+            state = RunState(pipeline, run / "out")
+            folder = Path(pipeline.spec.folder)
+            now = "bench"
+            ready = [ReadyFile(p, p.name, p.stat().st_size, p.stat().st_mtime_ns, now)
+                     for p in sorted(folder.iterdir())]
+            process_ready(ready, state.ledger, pipeline.measure)
+            state.refit(from_scratch=True)
+            samples, parts = [], []
+            for path in files[in_run:in_run + new_files]:
+                target = folder / path.name
+                shutil.copy(path, target)
+                stat = target.stat()
+                start = time.perf_counter()
+                process_ready([ReadyFile(target, target.name, stat.st_size, stat.st_mtime_ns, now)],
+                              state.ledger, pipeline.measure)
+                ledger_s = time.perf_counter() - start
+                state.refit()
+                refit_s = time.perf_counter() - start - ledger_s
+                state.write_outputs()
+                samples.append(time.perf_counter() - start)
+                parts.append((ledger_s, refit_s))
+            config = load_run_config(run / "run.toml")
+            reference = series.make_reference(folder / files[0].name, config)
+            floor, _ = time_runs(lambda: series.measure_file(folder / files[1].name, config, reference), 5)
+            state.close()
+            ledger_s, refit_s = np.median(np.asarray(parts), axis=0)
+            rows.append(BenchRow(
+                "live", f"new file -> ledger, refit, page ({in_run} in run)",
+                float(np.median(samples)), float(np.percentile(samples, 95)), len(samples), floor,
+                f"median split: ledger (incl. measuring) {ledger_s * 1e3:.0f} ms, refit "
+                f"{refit_s * 1e3:.0f} ms, outputs the rest; quiet period not included"))
+        # soak: files in turns, refit and page after each turn; RSS must stay flat
+        run = base / "soak"
+        (run / "in").mkdir(parents=True)
+        (run / "run.toml").write_text(_LIVE_CONFIG)
+        pipeline = build_from_config(run / "run.toml")
+        state = RunState(pipeline, run / "out")
+        folder = Path(pipeline.spec.folder)
+        rss = []
+        start = time.perf_counter()
+        for offset in range(0, soak_n, turn):
+            batch = []
+            for path in files[offset:offset + turn]:
+                target = folder / path.name
+                os.link(path, target)
+                stat = target.stat()
+                batch.append(ReadyFile(target, target.name, stat.st_size, stat.st_mtime_ns, "bench"))
+            process_ready(batch, state.ledger, pipeline.measure)
+            state.refit()
+            state.write_outputs()
+            rss.append(_rss_mb())
+        elapsed = time.perf_counter() - start
+        state.close()
+        marker = max(1, len(rss) // 5)
+        early = rss[marker - 1]
+        per_turn = elapsed / len(rss)
+        rows.append(BenchRow(
+            "live", f"soak: {soak_n} spectra in turns of {turn} (per turn)", per_turn, per_turn,
+            len(rss), note=f"RSS {early:.0f} MB after {marker * turn} spectra -> {rss[-1]:.0f} MB "
+                           f"after {soak_n} ({rss[-1] - early:+.1f} MB)"))
+    finally:
+        shutil.rmtree(base, ignore_errors=True)
+    return rows
+
+
+SECTIONS.append(("live", _bench_live))
+
+
+# ---------------------------------------------------------------- signals (issue 3)
+def _bench_signals(quick: bool) -> list[BenchRow]:
+    """Region integrals (6 windows x 500 spectra) and a global deconvolution (100 spectra).
+
+    Floors: plain numpy window sums of the same points; one linear least-squares solve of
+    the deconvolution's amplitudes at the true line shapes (what variable projection
+    repeats for every trial of the shared parameters).
+    """
+    from kinetics import lineshapes
+    from kinetics.signals import Component, LineShape, deconvolve, estimate_noise, integrate_region
+    from kinetics.spectra import Spectrum
+
+    rng = np.random.default_rng(20261203)
+    mhz, n_points = 60.0, 16384
+    ppm = np.linspace(11.0, -1.0, n_points)
+    centres = [7.26, 5.1, 3.6, 2.1, 1.2, 0.0]
+    windows = [(c - 0.15, c + 0.15) for c in centres]
+    clean = sum(lineshapes.multiplet(ppm, 1.0, c, 1 + i % 3, 7.0 / mhz, "lorentzian", 1.0 / mhz)
+                for i, c in enumerate(centres))
+    spectra = [Spectrum(ppm=ppm, real=clean + rng.normal(0, 0.5, n_points), observe_mhz=mhz) for _ in range(500)]
+
+    def integrate_all():
+        for spectrum in spectra:
+            noise = estimate_noise(spectrum, (9.0, 10.5))
+            for window in windows:
+                integrate_region(spectrum, window, noise)
+
+    masks = [(ppm >= lo) & (ppm <= hi) for lo, hi in windows]
+    stack = np.array([s.real for s in spectra])
+
+    def floor_integrals():
+        return [stack[:, m].sum(axis=1) for m in masks]
+
+    runs = 1 if quick else 5
+    median, p95 = time_runs(integrate_all, runs, warmup=0 if quick else 1)
+    floor, _ = time_runs(floor_integrals, runs)
+    rows = [BenchRow("signals", "6 region integrals + noise, 500 spectra", median, p95, runs, floor,
+                     f"{median / 500 * 1e3:.2f} ms per spectrum; floor = numpy window sums")]
+
+    axis = np.linspace(1.5, 0.95, 800)
+    t = np.linspace(0.0, 1.0, 100)
+    amp_a, amp_b = 3.0 * np.exp(-1.5 * t), 2.0 * (1.0 - np.exp(-1.5 * t)) + 0.1
+    trip = lineshapes.multiplet(axis, 1.0, 1.20, 3, 7.0 / mhz, "lorentzian", 1.0 / mhz)
+    quart = lineshapes.multiplet(axis, 1.0, 1.25, 4, 7.0 / mhz, "lorentzian", 1.0 / mhz)
+    data = amp_a[:, None] * trip + amp_b[:, None] * quart
+    data = data + rng.normal(0, data[0].max() / 100, data.shape)
+    comps = [Component("triplet", 1.195, LineShape(3, 7.1, "lorentzian", 1.2), 0.05),
+             Component("quartet", 1.255, LineShape(4, 6.9, "lorentzian", 1.2), 0.05)]
+    design = np.column_stack([trip, quart, np.ones_like(axis), axis - axis.mean()])
+    runs = 2 if quick else 7
+    median, p95 = time_runs(lambda: deconvolve(axis, data, comps, mhz), runs)
+    floor, _ = time_runs(lambda: np.linalg.lstsq(design, data.T, rcond=None), runs)
+    rows.append(BenchRow("signals", "global deconvolution, triplet+quartet, 100 spectra", median, p95, runs,
+                         floor, "variable projection; floor = one linear solve at the true shapes"))
+    return rows
+
+
+SECTIONS.append(("signals", _bench_signals))

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import logging
+import os
 import sys
 from pathlib import Path
 
@@ -177,13 +178,15 @@ def _add_init(sub) -> None:
     p.add_argument("--out", type=Path, default=None,
                    help="config to write (default: <folder name>.toml beside the folder)")
     p.add_argument("--force", action="store_true", help="replace an existing config")
+    p.add_argument("--coupling-hz", type=float, default=8.0,
+                   help="largest J between lines of one multiplet, Hz (default 8; ~18 for trans alkenes)")
     p.set_defaults(func=_cmd_init)
 
 
 def _cmd_init(args) -> int:
     from kinetics.init import draft_config
 
-    draft = draft_config(args.folder, args.out, force=args.force)
+    draft = draft_config(args.folder, args.out, force=args.force, coupling_hz=args.coupling_hz)
     config = draft.config_path
     print(f"read {draft.source} ({draft.spectrum.nucleus}, {draft.spectrum.observe_mhz:.3f} MHz): "
           f"{len(draft.peaks)} lines above {draft.threshold:.3g} (noise sigma {draft.noise_sigma:.3g})")
@@ -196,8 +199,47 @@ def _cmd_init(args) -> int:
     return 0
 
 
+# ---------------------------------------------------------------- integrate (signals)
+def _add_integrate(sub) -> None:
+    p = sub.add_parser("integrate", help="region integrals of one spectrum (or FID, processed first)")
+    p.add_argument("file", type=Path)
+    p.add_argument("--region", action="append", required=True, metavar="NAME=LO:HI[:NUCLEI]",
+                   help="a named ppm window and its number of nuclei (default 1); repeat for more")
+    p.add_argument("--reference", type=float, default=None, metavar="PPM",
+                   help="move the tallest peak near PPM (within 0.3 ppm) to PPM first, e.g. 0 for TMS")
+    p.add_argument("--baseline", choices=("edges", "processed"), default="edges",
+                   help="local straight baseline through the window edges (default) or none")
+    p.add_argument("--local-phase", action="store_true",
+                   help="correct a zero-order phase error local to each window (needs an imaginary part)")
+    p.add_argument("--noise-region", default=None, metavar="LO:HI",
+                   help="signal-free ppm range for the noise (default: found automatically)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=_cmd_integrate)
+
+
+def _cmd_integrate(args) -> int:
+    from kinetics.series import integrate_file, parse_region
+
+    regions = [parse_region(text) for text in args.region]
+    noise = None if args.noise_region is None else parse_region(f"noise={args.noise_region}")[1]
+    info = integrate_file(args.file, regions, reference_ppm=args.reference, baseline=args.baseline,
+                          local_phase=args.local_phase, noise_region_ppm=noise)
+    if args.json:
+        _print_json(info)
+        return 0
+    print(f"file      {info['file']}")
+    print(f"noise     sigma {info['noise_sigma']:.4g} from {len(info['noise_region_ppm'])} range(s); "
+          f"integrals in {info['unit']}")
+    print(f"{'region':<14} {'ppm':>17} {'nuclei':>6} {'integral':>12} {'sigma':>10} {'per nucleus':>12} {'trunc.':>7}")
+    for r in info["regions"]:
+        lo, hi = r["ppm"]
+        print(f"{r['name']:<14} {lo:8.3f}..{hi:7.3f} {r['nuclei']:6d} {r['integral']:12.5g} "
+              f"{r['sigma']:10.3g} {r['per_nucleus']:12.5g} {100 * r['truncation_loss']:6.2f}%")
+    return 0
+
+
 # ---------------------------------------------------------------- commands registry
-_ADDERS = [_add_inspect, _add_arrhenius, _add_watch, _add_fit, _add_init]
+_ADDERS = [_add_inspect, _add_arrhenius, _add_watch, _add_fit, _add_init, _add_integrate]
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -227,6 +269,11 @@ def main(argv: list[str] | None = None) -> int:
     except KineticsError as error:
         print(f"kinetics {args.command}: error: {error}", file=sys.stderr)
         return 2
+    except BrokenPipeError:
+        # the reader of our stdout went away (e.g. `kinetics inspect F | head`): not an error
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 0
 
 
 if __name__ == "__main__":  # pragma: no cover

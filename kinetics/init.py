@@ -39,6 +39,7 @@ SPECTRUM_SUFFIXES = (".dx", ".jdx", ".jcamp", ".jcm", ".csv", ".tsv", ".txt", ".
 
 _TMS_WINDOW_PPM = 0.15       # a reference line must lie within this of 0 ppm
 _SOLVENT_FACTOR = 5.0        # a solvent line is this many times the next-largest group
+_MINOR_FRACTION = 0.3        # signals below this share of the median integral are "minor"
 
 
 @dataclass(frozen=True)
@@ -69,6 +70,8 @@ class ProposedWindow:
         Nuclei from the integral ratios (the smallest signal taken as 1); check it.
     coupling_hz : float or None
         Mean spacing of adjacent lines for multiplets, in Hz.
+    minor : bool
+        Integral below 30 % of the median signal: perhaps a solvent residue or impurity.
     """
 
     name: str
@@ -78,6 +81,7 @@ class ProposedWindow:
     integral: float
     nuclei_guess: int
     coupling_hz: float | None
+    minor: bool = False
 
     @property
     def centre_ppm(self) -> float:
@@ -202,8 +206,16 @@ def _robust_noise(spectrum: Spectrum) -> float:
         return float(1.4826 * np.median(np.abs(differences - np.median(differences))) / math.sqrt(2.0))
 
 
-def pick_peaks(spectrum: Spectrum, snr_threshold: float = 8.0) -> tuple[list[Peak], float, float]:
-    """Lines whose height above the baseline exceeds ``snr_threshold`` noise sigmas.
+def pick_peaks(spectrum: Spectrum, snr_threshold: float = 8.0,
+               min_relative_height: float = 0.02) -> tuple[list[Peak], float, float]:
+    """Lines that rise above the noise and are not negligible next to the main signals.
+
+    The height threshold is the larger of ``snr_threshold`` noise sigmas and
+    ``min_relative_height`` times the tallest line (the tallest but one when the tallest
+    is a dominant solvent line, more than 5 times the next).  On a low-field benchtop
+    spectrum the noise term decides; on a high-field spectrum with SNR in the thousands
+    the relative term keeps 13C satellites, spinning sidebands and traces out of the
+    proposal.
 
     Returns
     -------
@@ -220,6 +232,11 @@ def pick_peaks(spectrum: Spectrum, snr_threshold: float = 8.0) -> tuple[list[Pea
     index, _ = scipy_signal.find_peaks(intensity, height=threshold, prominence=threshold)
     if index.size == 0:
         return [], noise, threshold
+    heights = np.sort(intensity[index])[::-1]
+    main = heights[1] if heights.size > 1 and heights[0] > _SOLVENT_FACTOR * heights[1] else heights[0]
+    if min_relative_height * main > threshold:
+        threshold = float(min_relative_height * main)
+        index = index[intensity[index] >= threshold]
     widths, *_ = scipy_signal.peak_widths(intensity, index, rel_height=0.5)
     spacing_hz = spectrum.spacing_hz
     peaks = [Peak(float(spectrum.ppm[i]), float(intensity[i]), float(w * spacing_hz), float(intensity[i] / noise))
@@ -273,12 +290,19 @@ def _lorentzian(ppm: np.ndarray, peak: Peak, observe_mhz: float) -> np.ndarray:
     return peak.height / (1.0 + ((ppm - peak.shift_ppm) / half_width_ppm) ** 2)
 
 
+def _is_reference(group: list[Peak]) -> bool:
+    """A TMS-like group: its tallest line within 0.15 ppm of 0 and carrying most of the
+    group's height (at high field the 29Si satellites, 6.6 Hz apart, join the group)."""
+    tallest = max(group, key=lambda p: p.height)
+    return (abs(tallest.shift_ppm) <= _TMS_WINDOW_PPM and len(group) <= 3
+            and tallest.height >= 0.7 * sum(p.height for p in group))
+
+
 def _roles(groups: list[list[Peak]], integrals: list[float]) -> list[str]:
     roles = ["signal"] * len(groups)
-    for number, group in enumerate(groups):
-        if len(group) == 1 and abs(group[0].shift_ppm) <= _TMS_WINDOW_PPM:
-            roles[number] = "reference"
-            break
+    references = [n for n, group in enumerate(groups) if _is_reference(group)]
+    if references:
+        roles[max(references, key=lambda n: max(p.height for p in groups[n]))] = "reference"
     candidates = [n for n, role in enumerate(roles) if role == "signal"]
     if len(candidates) >= 2:
         order = sorted(candidates, key=lambda n: integrals[n], reverse=True)
@@ -311,7 +335,7 @@ def _nuclei_unit(integrals: list[float]) -> float:
 
 
 def propose_windows(spectrum: Spectrum, *, snr_threshold: float = 8.0, coupling_hz: float = 8.0,
-                    gap_factor: float = 1.6, margin_hz: float = 10.0):
+                    gap_factor: float = 1.6, margin_hz: float = 10.0, min_relative_height: float = 0.02):
     """Peaks, noise and proposed windows of one spectrum (no files touched).
 
     Parameters
@@ -319,6 +343,8 @@ def propose_windows(spectrum: Spectrum, *, snr_threshold: float = 8.0, coupling_
     spectrum : Spectrum
     snr_threshold : float
         Lines below this many noise sigmas are ignored.
+    min_relative_height : float
+        Lines below this fraction of the tallest (non-solvent) line are ignored.
     coupling_hz : float
         Largest coupling expected between lines of one multiplet, Hz.
     gap_factor : float
@@ -332,7 +358,7 @@ def propose_windows(spectrum: Spectrum, *, snr_threshold: float = 8.0, coupling_
     noise_sigma, threshold : float
     windows : list of ProposedWindow, high shift first
     """
-    peaks, noise, threshold = pick_peaks(spectrum, snr_threshold)
+    peaks, noise, threshold = pick_peaks(spectrum, snr_threshold, min_relative_height)
     groups = group_peaks(peaks, spectrum.observe_mhz, gap_factor * coupling_hz)
     bounds = _window_bounds(groups, spectrum.observe_mhz, margin_hz,
                             (spectrum.ppm_range[0], spectrum.ppm_range[1]))
@@ -345,7 +371,10 @@ def propose_windows(spectrum: Spectrum, *, snr_threshold: float = 8.0, coupling_
         cleaned = spectrum.replace(real=spectrum.real - _lorentzian(spectrum.ppm, solvent, spectrum.observe_mhz))
         integrals = [_integral(cleaned, lo, hi) if role == "signal" else integral
                      for (lo, hi), integral, role in zip(bounds, integrals, roles)]
-    unit = _nuclei_unit([i for i, r in zip(integrals, roles) if r == "signal" and i > 0])
+    # Small lines (a solvent residue, an impurity) would set the unit; leave them out.
+    positive = [i for i, r in zip(integrals, roles) if r == "signal" and i > 0]
+    cutoff = _MINOR_FRACTION * float(np.median(positive)) if positive else 0.0
+    unit = _nuclei_unit([i for i in positive if i >= cutoff])
     windows = []
     counter = 0
     for group, (lo, hi), integral, role in zip(groups, bounds, integrals, roles):
@@ -356,8 +385,9 @@ def propose_windows(spectrum: Spectrum, *, snr_threshold: float = 8.0, coupling_
             name = role
         spacing = (np.diff([p.shift_ppm for p in group]) * -spectrum.observe_mhz).mean() if len(group) > 1 else None
         nuclei = int(min(9, max(1, round(integral / unit)))) if role == "signal" and integral > 0 else 1
+        minor = role == "signal" and integral < cutoff
         windows.append(ProposedWindow(name, (float(lo), float(hi)), tuple(group), role, integral, nuclei,
-                                      None if spacing is None else float(spacing)))
+                                      None if spacing is None else float(spacing), minor))
     return peaks, noise, threshold, windows
 
 
@@ -396,9 +426,11 @@ def _pattern(files: list[Path]) -> str:
 
 def _signal_lines(window: ProposedWindow) -> list[str]:
     lo, hi = window.window_ppm
+    remark = ("small signal: a solvent residue or an impurity? delete it if so" if window.minor
+              else "nuclei guessed from the integral ratios: check it")
     return [
         "",
-        f"# {_describe(window)}; nuclei guessed from the integral ratios: check it",
+        f"# {_describe(window)}; {remark}",
         "[[signals]]",
         f"name = {_q(window.name)}",
         f"species = {_q(window.name)}        # the compound, e.g. \"ester\"; signals of one species share it",

@@ -97,13 +97,24 @@ def multiplet(x, area: float, center: float, n_lines: int, coupling: float, prof
     """A first-order multiplet of total ``area``: binomial lines ``coupling`` apart.
 
     All quantities in the unit of ``x`` (convert J from Hz to ppm by dividing by the
-    observe frequency in MHz before calling).
+    observe frequency in MHz before calling).  ``x`` of any shape; the lines are
+    evaluated together by broadcasting over a trailing axis.
     """
     x = np.asarray(x, dtype=float)
-    total = np.zeros_like(x)
-    for weight, offset in zip(binomial_weights(n_lines), line_offsets(n_lines, coupling)):
-        total += line(x, area * weight, center + offset, profile, fwhm, fwhm_gauss)
-    return total
+    weights = _binomial_cached(int(n_lines))
+    # centre of shape (...) -> line centres (..., 1, n_lines), broadcast against (..., n, 1)
+    centres = np.asarray(center, float)[..., None] + (np.arange(n_lines) - 0.5 * (n_lines - 1)) * coupling
+    centres = np.expand_dims(centres, -2)
+    return line(x[..., None], area * weights, centres, profile, fwhm, fwhm_gauss).sum(axis=-1)
+
+
+_BINOMIAL: dict[int, np.ndarray] = {}
+
+
+def _binomial_cached(n_lines: int) -> np.ndarray:
+    if n_lines not in _BINOMIAL:
+        _BINOMIAL[n_lines] = binomial_weights(n_lines)
+    return _BINOMIAL[n_lines]
 
 
 def lorentzian_window_fraction(lo: float, hi: float, center: float, fwhm: float) -> float:

@@ -27,7 +27,6 @@ import base64
 import html
 import importlib.metadata
 import io
-import json
 import logging
 import os
 import platform
@@ -44,8 +43,8 @@ import pandas as pd
 from matplotlib.backends.backend_pdf import PdfPages
 from matplotlib.figure import Figure
 
-from kinetics.jsonio import dumps
 from kinetics import plots
+from kinetics.jsonio import dumps
 from kinetics.plots import png_bytes
 
 __all__ = [
@@ -506,15 +505,14 @@ def _provenance_html(config_text, packages: Mapping[str, str], inputs: pd.DataFr
 
 # ---------------------------------------------------------------- PDF
 _PAGE_IN = (8.27, 11.69)  # A4 portrait
-_LINES_PER_PAGE = 78
 
 
 def _text_pages(pdf: PdfPages, heading: str, lines: Sequence[str]) -> None:
     """Monospaced text pages; the font shrinks so the widest line fits the page width."""
     lines = list(lines) or [""]
     widest = max(len(line) for line in lines)
-    size = float(np.clip(560.0 / (0.61 * max(widest, 1)), 4.5, 9.0))
-    per_page = int(_LINES_PER_PAGE * 9.0 / size * 0.95)
+    size = float(np.clip(530.0 / (0.68 * max(widest, 1)), 4.5, 9.0))  # pt; mono glyphs ~0.6 em plus spacing
+    per_page = int(760.0 / (size * 1.25 * 1.17))  # usable height / line pitch, both in pt
     for start in range(0, len(lines), per_page):
         page = Figure(figsize=_PAGE_IN)
         page.text(0.06, 0.965, heading + ("" if start == 0 else " (continued)"), fontsize=13,
@@ -524,10 +522,29 @@ def _text_pages(pdf: PdfPages, heading: str, lines: Sequence[str]) -> None:
         pdf.savefig(page)
 
 
+_PDF_TABLE_CHARS = 120  # widest table line on an A4 page at a readable size
+
+
 def _table_lines(frame: pd.DataFrame, digits: int) -> list[str]:
+    """The table as text; wide tables are cut into column blocks (first column repeated)."""
     frame = _plain_frame(frame)
-    shown = frame.apply(lambda column: column.map(lambda v: _format_cell(v, digits)))
-    return shown.to_string(index=False).splitlines() if len(frame) else ["(empty table)"]
+    if not len(frame):
+        return ["(empty table)"]
+    shown = frame.apply(lambda column: column.map(lambda v: _format_cell(v, digits))).astype(str)
+    widths = [max(len(str(c)), int(shown[c].str.len().max())) + 2 for c in shown.columns]
+    blocks, current, used = [], [], widths[0]
+    for index in range(1, len(widths)):
+        if current and used + widths[index] > _PDF_TABLE_CHARS:
+            blocks.append(current)
+            current, used = [], widths[0]
+        current.append(index)
+        used += widths[index]
+    blocks.append(current)
+    lines: list[str] = []
+    for block in blocks:
+        columns = [shown.columns[0]] + [shown.columns[i] for i in block]
+        lines += shown[columns].to_string(index=False).splitlines() + [""]
+    return lines[:-1]
 
 
 def _wrap(paragraphs: Sequence[str], width: int = 95) -> list[str]:
@@ -550,7 +567,14 @@ def _pdf_bytes(title, run_utc, summary, sections, config_text, packages, inputs,
             for block in section.blocks:
                 heading = f"{section.heading}: {block.heading}"
                 if isinstance(block, FigureBlock):
-                    pdf.savefig(block.figure)
+                    # A page label for the PDF only; removed again so the caller's figure
+                    # is left as it was handed in.
+                    label = block.figure.text(0.005, 0.998, heading, fontsize=7, color="#5b6070",
+                                              ha="left", va="top")
+                    try:
+                        pdf.savefig(block.figure)
+                    finally:
+                        label.remove()
                 elif isinstance(block, TableBlock):
                     caption = _wrap([block.caption]) if block.caption else []
                     _text_pages(pdf, heading, caption + _table_lines(block.frame, block.digits))

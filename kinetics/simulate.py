@@ -263,6 +263,10 @@ def _band_limited_delay(data: np.ndarray, delay_points: float, beta: float = 8.0
     80 % of the spectral width (measured) and falls off towards the edges, like a real
     receiver's.
     """
+    data = np.array(data, copy=True)
+    # the analogue signal steps up at t = 0; a band-limited sample there takes the
+    # midpoint, s(0) / 2 (which is why filtered data need no first-point scaling)
+    data[0] *= 0.5
     half = max(delay_points, 1.0)
     taps = np.arange(int(math.floor(2 * delay_points)) + 1)
     u = (taps - delay_points) / (half + 1.0)

@@ -16,8 +16,10 @@ files
     latest version counts), ``duplicate_of`` (the row whose identical content was counted),
     ``acquired_utc`` (ISO 8601, from the file header when it has one), ``first_seen_utc``.
 measurements
-    One row per file and signal: integral, concentration and its standard uncertainty
-    (mol/L), plus ``extra_json`` for anything else the measurer reports.
+    One row per file and signal: integral and its standard uncertainty, concentration and
+    its standard uncertainty (mol/L) when known per file, plus ``extra_json`` for anything
+    else the measurer reports.  ``files.record_json`` keeps the whole per-file record the
+    series table is rebuilt from.
 refits
     Each refit: time, number of points and the fit as JSON.
 config
@@ -73,6 +75,7 @@ CREATE TABLE IF NOT EXISTS files (
     duplicate_of INTEGER REFERENCES files(id),
     acquired_utc TEXT,
     first_seen_utc TEXT NOT NULL,
+    record_json TEXT,
     UNIQUE (path, version)
 );
 CREATE INDEX IF NOT EXISTS files_sha ON files (sha256);
@@ -80,6 +83,7 @@ CREATE TABLE IF NOT EXISTS measurements (
     file_id INTEGER NOT NULL REFERENCES files(id),
     signal TEXT NOT NULL,
     integral REAL,
+    integral_sigma REAL,
     concentration_mol_per_l REAL,
     concentration_stderr_mol_per_l REAL,
     extra_json TEXT,
@@ -142,6 +146,8 @@ class SignalRow:
         Signal (region) name from the config.
     integral : float
         Integral in the spectrum's intensity units.
+    integral_sigma : float or None
+        Its standard uncertainty.
     concentration_mol_per_l : float or None
         Concentration, when the run is quantified.
     concentration_stderr_mol_per_l : float or None
@@ -152,6 +158,7 @@ class SignalRow:
 
     signal: str
     integral: float
+    integral_sigma: float | None = None
     concentration_mol_per_l: float | None = None
     concentration_stderr_mol_per_l: float | None = None
     extra: Mapping[str, Any] | None = None
@@ -159,10 +166,21 @@ class SignalRow:
 
 @dataclass(frozen=True)
 class FileMeasurement:
-    """What the ledger keeps of one measured file: its acquisition time and its signals."""
+    """What the ledger keeps of one measured file.
+
+    Attributes
+    ----------
+    acquired_utc : datetime or None
+        Acquisition time (orders the series; from the file header when it has one).
+    signals : tuple of SignalRow
+    record : Mapping or None
+        The measurer's whole per-file record as JSON-ready values (kept in
+        ``files.record_json``; NaN allowed), for rebuilding the series table.
+    """
 
     acquired_utc: datetime | None
     signals: tuple[SignalRow, ...]
+    record: Mapping[str, Any] | None = None
 
 
 @dataclass(frozen=True)
@@ -357,18 +375,26 @@ class Ledger:
 
         Only current processed files count (not duplicates, not replaced versions), in
         acquisition order (then path).  Columns: ``path``, ``acquired_utc`` (ISO text),
-        ``signal``, ``integral``, ``concentration_mol_per_l``,
+        ``signal``, ``integral``, ``integral_sigma``, ``concentration_mol_per_l``,
         ``concentration_stderr_mol_per_l``, ``extra_json``.
         """
         query = (
-            "SELECT f.path, f.acquired_utc, m.signal, m.integral, m.concentration_mol_per_l, "
-            "m.concentration_stderr_mol_per_l, m.extra_json FROM files f "
+            "SELECT f.path, f.acquired_utc, m.signal, m.integral, m.integral_sigma, "
+            "m.concentration_mol_per_l, m.concentration_stderr_mol_per_l, m.extra_json "
+            "FROM files f "
             "JOIN measurements m ON m.file_id = f.id "
             "WHERE f.status = 'processed' AND f.replaced = 0 "
             "ORDER BY f.acquired_utc, f.path, m.signal")
-        columns = ["path", "acquired_utc", "signal", "integral", "concentration_mol_per_l",
-                   "concentration_stderr_mol_per_l", "extra_json"]
+        columns = ["path", "acquired_utc", "signal", "integral", "integral_sigma",
+                   "concentration_mol_per_l", "concentration_stderr_mol_per_l", "extra_json"]
         return pd.DataFrame(self._db.execute(query).fetchall(), columns=columns)
+
+    def records(self) -> list[tuple[str, dict]]:
+        """``(path, record)`` of every counted file, in acquisition order (then path)."""
+        rows = self._db.execute(
+            "SELECT path, record_json FROM files WHERE status = 'processed' AND replaced = 0 "
+            "ORDER BY acquired_utc, path")
+        return [(path, json.loads(text) if text else {}) for path, text in rows]
 
     def n_processed(self) -> int:
         return self._db.execute(
@@ -451,19 +477,22 @@ class Ledger:
         acquired = None
         if measurement is not None and measurement.acquired_utc is not None:
             acquired = measurement.acquired_utc.astimezone(timezone.utc).isoformat()
+        record = None
+        if status == "processed" and measurement.record is not None:
+            record = json.dumps(dict(measurement.record), sort_keys=True)
         if final.replaces is not None:
             db.execute("UPDATE files SET replaced = 1 WHERE id = ?", (final.replaces,))
         cursor = db.execute(
             "INSERT INTO files (path, sha256, size_bytes, mtime_ns, status, error, version, "
-            "replaced, duplicate_of, acquired_utc, first_seen_utc) "
-            "VALUES (?, ?, ?, ?, ?, ?, ?, 0, ?, ?, ?)",
+            "replaced, duplicate_of, acquired_utc, first_seen_utc, record_json) "
+            "VALUES (?, ?, ?, ?, ?, ?, ?, 0, ?, ?, ?, ?)",
             (path, sha256, int(size_bytes), int(mtime_ns), status, error_text,
-             final.version, final.duplicate_of, acquired, first_seen))
+             final.version, final.duplicate_of, acquired, first_seen, record))
         file_id = cursor.lastrowid
         if status == "processed":
             db.executemany(
-                "INSERT INTO measurements VALUES (?, ?, ?, ?, ?, ?)",
-                [(file_id, row.signal, _finite(row.integral),
+                "INSERT INTO measurements VALUES (?, ?, ?, ?, ?, ?, ?)",
+                [(file_id, row.signal, _finite(row.integral), _finite(row.integral_sigma),
                   _finite(row.concentration_mol_per_l),
                   _finite(row.concentration_stderr_mol_per_l),
                   None if not row.extra else json.dumps(dict(row.extra), sort_keys=True))
@@ -490,8 +519,9 @@ class Ledger:
             "d.path, f.acquired_utc FROM files f LEFT JOIN files d ON d.id = f.duplicate_of "
             "ORDER BY f.path, f.version").fetchall()
         measured = self._db.execute(
-            "SELECT f.path, f.version, m.signal, m.integral, m.concentration_mol_per_l, "
-            "m.concentration_stderr_mol_per_l, m.extra_json FROM measurements m "
+            "SELECT f.path, f.version, m.signal, m.integral, m.integral_sigma, "
+            "m.concentration_mol_per_l, m.concentration_stderr_mol_per_l, m.extra_json, "
+            "f.record_json FROM measurements m "
             "JOIN files f ON f.id = m.file_id ORDER BY f.path, f.version, m.signal").fetchall()
         return [tuple(row) for row in rows] + [tuple(row) for row in measured]
 

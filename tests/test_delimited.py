@@ -108,3 +108,27 @@ def test_naive_time_taken_as_utc(tmp_path):
 def test_csv_text_has_metadata_lines():
     text = csv_text(_spectrum(np.random.default_rng(2)))
     assert "# observe_mhz: 56.45" in text and "# acquired: 2026-02-03T04:05:06.789000+00:00" in text
+
+
+def test_hostile_long_lines_do_not_hang(tmp_path):
+    # A regular expression that backtracks quadratically would take hours on these lines.
+    path = tmp_path / "long.csv"
+    path.write_text("#" + " " * 200_000 + "x\n# observe_mhz:" + " " * 200_000 + "60\n1,2\n0,3\n")
+    assert read(path).observe_mhz == 60.0
+    path.write_text("# observe_mhz: 60\n" + "1" * 300_000 + ",2\n0,3\n")
+    with pytest.raises(InputFileError):
+        read(path)  # 1e300000 is infinite -> NaN/inf error, quickly
+
+
+def test_format_specific_readers_refuse_the_other_format(tmp_path):
+    from kinetics.spectra.delimited import read_delimited
+    from kinetics.spectra.jcampdx import read_jcampdx
+
+    csv_path = tmp_path / "s.csv"
+    csv_path.write_text(GOOD)
+    assert read_delimited(csv_path).n_points == 3
+    with pytest.raises(InputFileError, match="not jcamp-dx"):
+        read_jcampdx(csv_path)
+    with pytest.raises(InputFileError, match="not delimited"):
+        read_delimited(DATA / "ethyl-crotonate.1h.dx")
+    assert read_jcampdx(DATA / "ethyl-crotonate.1h.dx").n_points == 16384

@@ -153,3 +153,33 @@ def test_later_unreadable_file_is_skipped_and_noted(spectra_folder, tmp_path):
     assert len(draft.skipped) == 1 and "spectrum_0099.jdx" in draft.skipped[0]
     assert "skipped unreadable file" in draft.text
     load_run_config(tmp_path / "mixed.toml")
+
+
+@pytest.mark.parametrize("name, groups, coupling_hz", [
+    # Windows and proton counts from tests/data/README.md (open dataset nmr-dataset1,
+    # proton counts from the structures).  Trans-alkene couplings reach ~17 Hz (common
+    # practice), hence --coupling-hz 18 to keep each alkene doublet of doublets together.
+    ("butyl-acrylate.1h.dx", [(6.25, 6.40, 1), (5.95, 6.12, 1), (5.68, 5.80, 1), (4.02, 4.16, 2),
+                              (1.52, 1.66, 2), (1.26, 1.42, 2), (0.82, 0.94, 3)], 18.0),
+    ("ethyl-crotonate.1h.fid.dx", [(6.80, 7.02, 1), (5.66, 5.86, 1), (4.00, 4.20, 2), (1.74, 1.86, 3),
+                                   (1.13, 1.27, 3)], 18.0),
+])
+def test_real_spectra_groups_and_proton_counts(tmp_path, name, groups, coupling_hz):
+    import shutil
+    from pathlib import Path
+
+    folder = tmp_path / "real"
+    folder.mkdir()
+    shutil.copy(Path(__file__).parent / "data" / name, folder / name)
+    draft = draft_config(folder, tmp_path / "real.toml", coupling_hz=coupling_hz)
+    for low, high, protons in groups:
+        holders = [w for w in draft.signals if any(low <= p.shift_ppm <= high for p in w.peaks)]
+        assert len(holders) == 1, (low, high, [w.window_ppm for w in holders])  # not split
+        assert all(low <= p.shift_ppm <= high for p in holders[0].peaks)  # not merged
+        assert holders[0].nuclei_guess == protons, (low, high)
+    listed = [w for w in draft.signals if any(lo <= w.centre_ppm <= hi for lo, hi, _ in groups)]
+    others = [w for w in draft.signals if w not in listed]
+    assert all(w.minor for w in others)  # solvent residue / impurity lines are flagged as minor
+    if name.startswith("butyl"):
+        assert draft.reference is not None and abs(draft.reference.peaks[0].shift_ppm) < 0.01  # TMS
+    load_run_config(tmp_path / "real.toml")

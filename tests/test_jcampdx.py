@@ -189,14 +189,23 @@ def test_spectrum_round_trip_and_nmrglue_reads_it_identically(tmp_path, compress
 
 def test_dif_output_is_compressed_and_has_y_checks(tmp_path):
     original = _synthetic_spectrum(np.random.default_rng(3), imag=False)
+    ramp = np.where(np.arange(original.n_points) < 300, 5.0 * np.arange(original.n_points), original.real)
+    original = original.replace(real=ramp)  # an evenly rising stretch: repeated differences -> DUP
     affn = write_spectrum(tmp_path / "a.dx", original, compression="affn")
     dif = write_spectrum(tmp_path / "d.dx", original, compression="dif")
     assert os.path.getsize(dif) < 0.8 * os.path.getsize(affn)
     lines = Path(dif).read_text().splitlines()
     assert max(len(line) for line in lines) <= 80  # JCAMP-DX line limit
-    # Every data line after the first starts at the abscissa where the previous one ended.
+    # Y-checks: decoded on its own, every data line starts with the value (and abscissa)
+    # the previous line ended with.
+    from kinetics.spectra.jcampdx import _decode_asdf
+
     data = lines[lines.index("##XYDATA= (X++(Y..Y))") + 1: -1]
-    assert len(data) > 10
+    assert len(data) > 10 and any(char in "STUVWXYZs" for char in "".join(data))  # DUP used
+    alone = [_decode_asdf("x", [(1, line)]) for line in data]
+    for previous, current in zip(alone, alone[1:]):
+        assert current.values[0] == previous.values[-1]
+    assert sum(table.values.size for table in alone) - (len(alone) - 1) == original.n_points
     assert not [name for name in os.listdir(tmp_path) if name.endswith(".tmp")]  # atomic writes
 
 
@@ -367,3 +376,24 @@ def test_hz_axis_without_shift_reference_uses_observe_frequency(tmp_path):
 def test_format_detected_by_content_not_extension(tmp_path):
     spectrum = read(_write(tmp_path, SMALL, name="looks_like.csv"))
     assert spectrum.n_points == 11
+
+
+def test_hostile_long_lines_do_not_hang(tmp_path):
+    # Long digit runs and padding must be refused (or read) in linear time, never hang.
+    assert "NaN" in _error(tmp_path, SMALL.replace("5 6 7 8", "5 " + "7" * 300_000 + " 7 8")).problem
+    text = SMALL.replace("5 6 7 8 9 10 11", "5F" + "J" * 100_000)
+    assert "NPOINTS" in _error(tmp_path, text).problem
+    text = SMALL.replace("##TITLE= small", "##TITLE= " + " " * 300_000 + "small")
+    assert read(_write(tmp_path, text)).n_points == 11
+
+
+def test_hand_made_asdf_sqz_dup_dif_agrees_with_nmrglue(tmp_path):
+    # Worked by hand from the ASDF rules (McDonald & Wilks 1988): SQZ A=1 B=2 E=5 g=-7 a=-1,
+    # DIF j=-1, DUP T=2 and U=3 occurrences; line 3 opens with the y-check of line 2's end.
+    text = SMALL.replace("##NPOINTS= 11", "##NPOINTS= 10").replace("##LASTX= 0.0", "##LASTX= 1.0")
+    text = text.replace("10 1 2 3 4 5\n5 6 7 8 9 10 11\n", "10ABT\n7EjU\n4BgTa\n")
+    path = _write(tmp_path, text)
+    expected = [1, 2, 2, 5, 4, 3, 2, -7, -7, -1]
+    np.testing.assert_array_equal(read(path).real, expected)
+    _, real, _ = _nmrglue(path)
+    np.testing.assert_array_equal(real, expected)

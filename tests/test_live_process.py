@@ -94,7 +94,7 @@ def test_sigterm_ends_the_run_cleanly_with_a_final_report(tmp_path):
     assert watcher.returncode == 0, stderr
     report = json.loads((out / "fit.json").read_text())
     assert report["final"] is True and report["stop_reason"] == "SIGTERM received"
-    assert report["fit"]["succeeded"] and report["n_points"] == 20
+    assert report["fit"]["converged"] and report["n_points"] == 20
     page = (out / "index.html").read_text()
     assert "SIGTERM received" in page and 'http-equiv="refresh"' not in page
 
@@ -102,7 +102,7 @@ def test_sigterm_ends_the_run_cleanly_with_a_final_report(tmp_path):
 def test_missing_input_folder_is_a_clear_error(tmp_path):
     result = start_watcher(tmp_path / "nowhere", tmp_path / "out")
     stdout, stderr = result.communicate(timeout=30)
-    assert result.returncode == 2
+    assert result.returncode == 2, stderr
     assert "nowhere: the input folder does not exist" in stderr
 
 
@@ -122,7 +122,7 @@ def test_read_only_output_folder_is_a_clear_error_and_nothing_is_written(tmp_pat
     try:
         watcher = start_watcher(folder, out)
         stdout, stderr = watcher.communicate(timeout=30)
-        assert watcher.returncode == 2
+        assert watcher.returncode == 2, stderr
         assert "output folder is not writable" in stderr
         assert list(out.iterdir()) == []
     finally:

@@ -103,12 +103,13 @@ def measure(path: Path) -> FileMeasurement:
     for name, (high, low) in WINDOWS_PPM.items():
         inside = (ppm <= high) & (ppm >= low)
         area = float(np.trapezoid(intensity[inside][::-1], ppm[inside][::-1]))
-        rows.append(SignalRow(name, area, area, 0.004))
+        rows.append(SignalRow(name, area, 0.004, area, 0.004))
     return FileMeasurement(acquired, tuple(rows))
 
 
-def build_table(long: pd.DataFrame) -> pd.DataFrame:
-    """Ledger measurements (long) -> one row per spectrum: path, time_s, A, B (+ stderr)."""
+def build_table(ledger) -> pd.DataFrame:
+    """Ledger measurements -> one row per spectrum: path, time_s, A, B (+ stderr)."""
+    long = ledger.measurements()
     if long.empty:
         return pd.DataFrame(columns=["path", "acquired_utc", "time_s"])
     wide = long.pivot(index=["path", "acquired_utc"], columns="signal",

@@ -10,7 +10,7 @@ import pytest
 from kinetics import cli
 from kinetics.errors import FitError
 from kinetics.rates import laws
-from kinetics.rates.fit import fit_function, fit_law, fit_mechanism, refit
+from kinetics.rates.fit import fit_function, fit_law, fit_mechanism, fit_model, refit
 from kinetics.rates.table import from_arrays
 
 NIST = Path(__file__).parent / "data" / "nist"
@@ -106,9 +106,9 @@ def test_fit_recovers_first_order_and_reports():
     assert "converged" in text and "k" in text and "AICc" in text and "runs" in text
     d = result.to_dict()
     assert set(d["params"]["k"]) >= {"value", "stderr", "ci95", "unit"}
-    json.dumps(d, allow_nan=False) if False else None
     from kinetics.jsonio import dumps
-    json.loads(dumps(d))
+
+    assert json.loads(dumps(d))["params"]["k"]["ci95"] == list(k.ci_profile)
     # band: the fitted curve sits inside; its width at t=0 is the c0 interval
     curve, lo, hi = result.band(np.array([0.0, 300.0]))
     assert np.all(lo < curve) and np.all(curve < hi)
@@ -174,8 +174,10 @@ def test_warm_refit_matches_cold_fit_with_fewer_evaluations():
     rng = np.random.default_rng(9)
     t = np.linspace(0, 400, 60)
     y = simulate(laws.second_order, t, {"c0": 0.5, "k": 0.02}, 0.005, rng)
-    early = fit_law(from_arrays(t[:40], y[:40]), "second", profile=False)
-    full = from_arrays(t, y)
+    early_data = from_arrays(t[:40], y[:40])
+    early = fit_law(early_data, "second", profile=False)
+    full = early_data.appended(t[40:], y[40:])  # points arriving during a live run
+    assert np.array_equal(full.time_s, t)
     warm = refit(early, full)
     cold = fit_law(full, "second", profile=False)
     assert warm.converged and warm.n_points == 60
@@ -206,8 +208,41 @@ def test_unidentifiable_fit_is_flagged_not_silent():
     rng = np.random.default_rng(8)
     b = 1.0 - laws.reversible_first_order(t, 1.0, 0.02, 0.01) + rng.normal(0, 0.005, t.size)
     result = fit_law(from_arrays(t, b), "reversible-first", observed="product")
-    assert not result.converged or any("does not close" in w for w in result.warnings)
-    assert result.message
+    assert not result.converged
+    assert "not separately identifiable" in result.message and "NOT CONVERGED" in result.report()
+    assert result.time_to_conversion(0.5).ci95 is None  # no interval from a fit that failed
+    # fixing the initial concentration makes the same data sufficient
+    fixed = fit_law(from_arrays(t, b), "reversible-first", observed="product", fixed={"a0": 1.0})
+    assert fixed.converged
+    assert fixed.param("k_f").ci95[0] < 0.02 < fixed.param("k_f").ci95[1]
+    K = {q.name: q for q in fixed.extra_quantities()}["K"]
+    assert K.ci95[0] < 2.0 < K.ci95[1]
+
+
+def test_minimiser_that_runs_out_of_evaluations_says_so():
+    t = np.linspace(0, 300, 30)
+    y = laws.second_order(t, 1.0, 0.01) + np.random.default_rng(1).normal(0, 0.01, t.size)
+    result = fit_model(from_arrays(t, y), laws.get_model("nth"), max_nfev=3)
+    assert not result.converged
+    assert result.message and "NOT CONVERGED" in result.report()
+    assert all(p.ci_profile is None for p in result.params)
+
+
+@pytest.mark.parametrize("name, law, truth, checked", [
+    ("zero", laws.zero_order, {"c0": 1.0, "k": 0.002}, "k"),
+    ("nth", laws.nth_order, {"c0": 1.0, "k": 0.01, "n": 2.0}, "n"),
+    ("second-mixed", lambda t, a0, b0, k: laws.second_order_mixed(t, a0, b0, k),
+     {"a0": 0.5, "b0": 0.8, "k": 0.03}, "k"),
+])
+def test_other_laws_recover_their_truth(name, law, truth, checked):
+    rng = np.random.default_rng(17)
+    t = np.linspace(0, 300, 40)
+    y = law(t, **truth) + rng.normal(0, 0.004, t.size)
+    fixed = {"b0": 0.8} if name == "second-mixed" else None
+    result = fit_law(from_arrays(t, y), name, fixed=fixed)
+    assert result.converged, result.message
+    lo, hi = result.param(checked).ci95
+    assert lo < truth[checked] < hi
 
 
 @pytest.mark.slow

@@ -137,3 +137,16 @@ def test_cli_mechanism_with_two_observed_species(capsys, tmp_path):
     assert payload["params"]["k2"]["unit"] == "s^-1"
     assert payload["conservation"] == ["A + B + C = const"]
     assert payload["forecast"]["time_s"]["value"] == pytest.approx(np.log(2) / payload["params"]["k1"]["value"], rel=1e-4)
+
+
+def test_cli_unidentifiable_fit_exits_1_with_converged_false(capsys, tmp_path):
+    from kinetics.rates.laws import reversible_first_order
+
+    t = np.linspace(0, 300, 30)
+    b = 1.0 - reversible_first_order(t, 1.0, 0.02, 0.01) + np.random.default_rng(8).normal(0, 0.005, t.size)
+    path = write(tmp_path, list(zip(t, b)), header="time_s,B")
+    code = cli.main(["fit", str(path), "--time-column", "time_s", "--column", "B", "--model",
+                     "reversible-first", "--observed", "product", "--json", "--target-conversion", "0.5"])
+    payload = json.loads(capsys.readouterr().out)
+    assert code == 1 and payload["converged"] is False
+    assert "identifiable" in payload["message"] and payload["forecast"] is None

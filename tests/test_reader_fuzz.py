@@ -134,3 +134,31 @@ def test_mutated_documents_fail_only_with_input_file_error(raw):
                  .map(lambda t: ("##TITLE= x\n" + t).encode())))
 def test_arbitrary_bytes_fail_only_with_input_file_error(raw):
     _check(raw)
+
+
+def _data_tables(raw: bytes):
+    """(line number, text) lists of every data table in a JCAMP-DX text, or []."""
+    from kinetics.spectra import jcampdx
+    from kinetics.spectra.reader import LoadedText
+
+    try:
+        blocks = jcampdx._split_blocks(LoadedText("fuzz", "", raw.decode("latin-1")))
+    except InputFileError:
+        return []
+    return [record.data for block in blocks for record in block.records
+            if record.key in ("XYDATA", "DATATABLE") and record.data]
+
+
+@FUZZ
+@given(st.one_of(documents(), mutated_documents()))
+def test_vectorised_asdf_decoder_matches_the_line_by_line_one(raw):
+    # The numpy fast path must give exactly what the line-by-line decoder gives, or decline.
+    from kinetics.spectra import jcampdx
+
+    for lines in _data_tables(raw):
+        fast = jcampdx._decode_asdf_fast(lines)
+        if fast is None:
+            continue
+        slow = jcampdx._decode_asdf("fuzz", lines)
+        np.testing.assert_array_equal(fast.values, slow.values)
+        assert fast.line_x == slow.line_x

@@ -188,13 +188,16 @@ def test_sections_from_real_fit_and_temperature_results(tmp_path):
     k = 1e10 * np.exp(-75_000 / (8.314462618 * t_k)) * np.exp(rng.normal(0, 0.03, 4))
     temperature = analyse_temperatures(t_k, k, 0.04 * k, labels=["15 C", "25 C", "35 C", "45 C"])
 
-    files = report.write_report(tmp_path, report.fit_section(fit, comparison=compare_models(data)),
+    comparison = compare_models(data)
+    files = report.write_report(tmp_path, report.fit_section(fit, comparison=comparison),
                                 report.temperature_section(temperature))
     params = pd.read_csv(files.csv["fit_parameters"]).set_index("parameter")
     for name, entry in fit.to_dict()["params"].items():
         assert params.loc[name, "value"] == entry["value"]
         assert [params.loc[name, "ci95_low"], params.loc[name, "ci95_high"]] == entry["ci95"]
-    assert list(pd.read_csv(files.csv["fit_model_comparison"])["model"])[0] == "first"
+    ranked = pd.read_csv(files.csv["fit_model_comparison"])
+    assert list(ranked["model"]) == list(comparison.table["model"])
+    np.testing.assert_array_equal(ranked["aicc"], comparison.table["aicc"])
     activation = pd.read_csv(files.csv["temperature_parameters"]).set_index("parameter")
     assert activation.loc["ea_kj_per_mol", "value"] == temperature.to_dict()["ea_kj_per_mol"]["value"]
     assert len(pd.read_csv(files.csv["temperature_runs"])) == 4

@@ -24,7 +24,8 @@ WHEN = datetime(2026, 1, 1, 12, 0, tzinfo=timezone.utc)
 
 
 def measured(a: float = 0.4, b: float = 0.1):
-    return lambda: FileMeasurement(WHEN, (SignalRow("A", a, a, 0.01), SignalRow("B", b, b, 0.01)))
+    return lambda: FileMeasurement(WHEN, (SignalRow("A", a, 0.02, a, 0.01), SignalRow("B", b, 0.02, b, 0.01)),
+                                   {"note": "whole record", "nan": float("nan")})
 
 
 def bad():
@@ -44,6 +45,8 @@ def test_new_file_is_processed_with_all_its_signals(ledger):
     assert list(table["signal"]) == ["A", "B"]
     assert table["concentration_mol_per_l"].tolist() == [0.4, 0.1]
     assert table["acquired_utc"].iloc[0] == WHEN.isoformat()
+    [(path, record)] = ledger.records()
+    assert path == "s1.dx" and record["note"] == "whole record" and record["nan"] != record["nan"]
 
 
 def test_same_path_same_content_is_not_taken_twice(ledger):

@@ -34,6 +34,7 @@ import signal
 import threading
 import time
 from dataclasses import dataclass, field, replace
+from datetime import datetime
 from pathlib import Path
 from typing import Any, Callable, Protocol
 
@@ -107,12 +108,14 @@ class Pipeline:
         Folder, include/exclude patterns, recursion (the quiet period and poll mode
         may be overridden by :class:`LiveOptions`).
     measure : Measurer
-    build_table : callable (DataFrame) -> DataFrame
-        Ledger measurements (:meth:`Ledger.measurements`, long) -> the series table
-        (``time_s`` plus one column per signal).
+    build_table : callable (Ledger) -> DataFrame
+        The ledger's counted files -> the series table (``time_s`` plus one column per
+        signal), rebuilt from the ledger alone so a restart needs nothing else.
     refit : Refitter
-    signals : list of str
+    signals : tuple of str
         Columns of the series table to plot and show.
+    sigma_suffix : str
+        ``<signal><sigma_suffix>`` is the column of each signal's standard uncertainty.
     config_text : str
         The config the run is made from (kept in the ledger).
     target_conversion : float or None
@@ -121,11 +124,12 @@ class Pipeline:
 
     spec: WatchSpec
     measure: Measurer
-    build_table: Callable[[pd.DataFrame], pd.DataFrame]
+    build_table: Callable[[Ledger], pd.DataFrame]
     refit: Refitter
     signals: tuple[str, ...]
     config_text: str
     target_conversion: float | None = None
+    sigma_suffix: str = "_stderr"
 
 
 @dataclass(frozen=True)
@@ -334,15 +338,22 @@ class RunState:
 
     def refit(self, from_scratch: bool = False) -> FitOutcome | None:
         """Rebuild the table from the ledger and refit (warm start unless from scratch)."""
-        long = self.ledger.measurements()
-        self.table = self.pipeline.build_table(long)
+        # A table or fit that cannot be made yet (too few points, a numerical failure) is
+        # shown as such; it must not end a live run that later spectra may rescue.
+        try:
+            self.table = self.pipeline.build_table(self.ledger)
+        except (KineticsError, ValueError, ArithmeticError) as error:
+            self.table = None
+            self.outcome = FitOutcome(False, f"series table: {error}",
+                                      {"succeeded": False, "message": str(error)})
+            return self.outcome
         if self.table is None or len(self.table) == 0:
             self.outcome = None
             return None
         previous = None if from_scratch else self.outcome
         try:
             self.outcome = self.pipeline.refit(self.table, previous)
-        except KineticsError as error:
+        except (KineticsError, ValueError, ArithmeticError) as error:
             self.outcome = FitOutcome(False, str(error), {"succeeded": False, "message": str(error)})
         self.ledger.record_refit(self.outcome.fit, len(self.table))
         return self.outcome
@@ -353,12 +364,13 @@ class RunState:
         concentrations: dict[str, tuple[float | None, float | None]] = {}
         if self.table is not None and len(self.table):
             last = self.table.iloc[-1]
-            latest_path = str(last.get("path")) if "path" in self.table else None
-            latest_acquired = last.get("acquired_utc") if "acquired_utc" in self.table else None
+            latest_path = next((str(last[c]) for c in ("path", "file") if c in self.table), None)
+            latest_acquired = next((str(last[c]) for c in ("acquired_utc", "acquired_mid_utc")
+                                    if c in self.table), None)
             latest_time = float(last["time_s"])
             for name in self.pipeline.signals:
                 if name in self.table:
-                    stderr = last.get(f"{name}_stderr")
+                    stderr = last.get(f"{name}{self.pipeline.sigma_suffix}")
                     concentrations[name] = (_float(last[name]), _float(stderr))
         return LiveStatus(
             folder=str(self.pipeline.spec.folder), started_utc=self.started_utc,
@@ -393,7 +405,7 @@ class RunState:
         }
         write_atomic(self.out_dir / "fit.json", dumps(document) + "\n")
         png = render_png(table, list(self.pipeline.signals),
-                         self.outcome.curve if self.outcome else None)
+                         self.outcome.curve if self.outcome else None, self.pipeline.sigma_suffix)
         write_atomic(self.out_dir / "series.png", png)
         write_atomic(self.out_dir / "index.html",
                      render_html(status, png, None if final else self.refresh_s))
@@ -428,13 +440,22 @@ def target_reached(outcome: FitOutcome | None, target: float | None) -> bool:
 
 
 # ---------------------------------------------------------------- batch
-def batch_run(pipeline: Pipeline, out_dir: Path) -> RunSummary:
+def batch_run(pipeline: Pipeline | str | Path, out_dir: Path) -> RunSummary:
     """A finished folder through the live code path: same ledger rows, same final fit.
 
     Every wanted file is taken by :func:`process_ready` in acquisition order, then one fit
     from scratch on the ledger table is written with the outputs (marked final).
+
+    Parameters
+    ----------
+    pipeline : Pipeline, or the path of a run config (see :func:`build_from_config`)
+    out_dir : Path
+        Gets ``ledger.sqlite``, ``series.csv``, ``fit.json``, ``series.png``, ``index.html``.
     """
     from watchers.folder import check_folder
+
+    if not isinstance(pipeline, Pipeline):
+        pipeline = build_from_config(Path(pipeline), Path(out_dir) / LEDGER_NAME)
 
     folder = check_folder(pipeline.spec.folder)
     pipeline = replace(pipeline, spec=replace(pipeline.spec, folder=folder))
@@ -507,14 +528,14 @@ def run_live(pipeline: Pipeline, options: LiveOptions, stop: _StopFlag | None = 
     stop = stop or _StopFlag()
     watcher = FolderWatcher(spec)
     watcher.start()
-    pipeline = replace(pipeline, spec=watcher.spec)
-    out_dir = prepare_out_dir(options.out_dir)
     previous_handlers = []
-    if options.handle_signals and threading.current_thread() is threading.main_thread():
-        previous_handlers = _install_signal_handlers(stop)
     view = TerminalView(enabled=options.view)
     server = plot = None
     try:
+        pipeline = replace(pipeline, spec=watcher.spec)
+        out_dir = prepare_out_dir(options.out_dir)
+        if options.handle_signals and threading.current_thread() is threading.main_thread():
+            previous_handlers = _install_signal_handlers(stop)
         with RunLock(out_dir):
             state = RunState(pipeline, out_dir, options.refresh_s)
             try:
@@ -614,12 +635,15 @@ class RatesRefitter:
         ``"reactant"`` or ``"product"``: what ``column`` holds.
     target_conversion : float or None
         For the forecast of the time to the target.
+    sigma_suffix : str
+        ``<column><sigma_suffix>`` holds the standard uncertainties (weights) when present.
     """
 
     column: str
     model: str = "first"
     observed: str = "reactant"
     target_conversion: float | None = None
+    sigma_suffix: str = "_stderr"
 
     def __call__(self, table: pd.DataFrame, previous: FitOutcome | None) -> FitOutcome:
         import numpy as np
@@ -630,7 +654,7 @@ class RatesRefitter:
         if self.column not in table:
             raise KineticsError(f"the series table has no column {self.column!r} to fit")
         rows = table[["time_s", self.column]].dropna()
-        sigma_column = f"{self.column}_stderr"
+        sigma_column = f"{self.column}{self.sigma_suffix}"
         if len(rows) < 3:
             return FitOutcome(False, f"{len(rows)} spectra so far: a fit needs at least 3",
                               {"succeeded": False, "n_points": int(len(rows))})
@@ -668,17 +692,21 @@ def watch_command(args) -> dict:
     from kinetics.errors import ConfigError
     from watchers.replay import ReplayThread
 
-    pipeline = build_from_config(args.config)
+    from kinetics.config import load_run_config
+
+    out_dir = args.out or Path(args.config).with_suffix(".live")
+    pipeline = build_from_config(args.config, Path(out_dir) / LEDGER_NAME)
+    settings = live_settings(load_run_config(args.config))
     if args.target_conversion is not None:
         if not 0.0 < args.target_conversion < 1.0:
             raise ConfigError("--target-conversion", "must be a fraction between 0 and 1")
         pipeline = replace(pipeline, target_conversion=args.target_conversion)
-    out_dir = args.out or Path(args.config).with_suffix(".live")
+    idle_minutes = args.idle_minutes if args.idle_minutes is not None else settings["idle_minutes"]
     options = LiveOptions(
         out_dir=out_dir, quiet_period_s=args.quiet_period, poll=True if args.poll else None,
-        max_duration_s=args.max_duration,
-        idle_s=None if args.idle_minutes is None else 60.0 * args.idle_minutes,
-        serve_port=args.serve, plot=args.plot)
+        max_duration_s=args.max_duration if args.max_duration is not None else settings["max_duration_s"],
+        idle_s=None if idle_minutes is None else 60.0 * idle_minutes,
+        refresh_s=settings["refresh_s"], serve_port=args.serve, plot=args.plot)
     replayer = None
     if args.replay is not None:
         folder = Path(pipeline.spec.folder)
@@ -706,14 +734,181 @@ def watch_command(args) -> dict:
 
 
 # ---------------------------------------------------------------- wiring from a config
-def build_from_config(config_path: Path) -> Pipeline:
-    """The real pipeline of a run config (series measurement + rates refit).
+LIVE_KEYS = {
+    # key: (type, default, meaning) -- the [live] table of a run config
+    "quiet_period_s": (float, 2.0, "seconds a file must stay unchanged to count as complete"),
+    "poll": (bool, False, "list the folder instead of listening to file events"),
+    "poll_interval_s": (float, 1.0, "seconds between listings in poll mode"),
+    "recursive": (bool, False, "also watch sub-folders"),
+    "exclude": (list, [], "glob patterns of files never taken"),
+    "target_conversion": (float, None, "stop once the conversion's lower 95 % bound reaches it"),
+    "idle_minutes": (float, None, "stop after this many minutes without a new spectrum"),
+    "max_duration_s": (float, None, "stop after this many seconds"),
+    "refresh_s": (float, 5.0, "seconds between reloads of the HTML page"),
+}
 
-    Imported lazily so the live shell can be tested without the science modules.
+
+def live_settings(config) -> dict:
+    """The validated ``[live]`` table of a run config, defaults filled in."""
+    from kinetics.errors import ConfigError
+
+    raw = dict(config.sections.get("live", {}) or {})
+    unknown = sorted(set(raw) - set(LIVE_KEYS))
+    if unknown:
+        raise ConfigError(f"live.{unknown[0]}", "unknown key",
+                          hint="known keys: " + ", ".join(sorted(LIVE_KEYS)), source=config.path)
+    settings = {}
+    for key, (kind, default, _meaning) in LIVE_KEYS.items():
+        value = raw.get(key, default)
+        if value is not None:
+            if kind is float and (isinstance(value, bool) or not isinstance(value, (int, float))
+                                  or value < 0):
+                raise ConfigError(f"live.{key}", f"expected a number >= 0, got {value!r}",
+                                  source=config.path)
+            if kind is bool and not isinstance(value, bool):
+                raise ConfigError(f"live.{key}", f"expected true or false, got {value!r}",
+                                  source=config.path)
+            if kind is list and not (isinstance(value, list) and all(isinstance(v, str) for v in value)):
+                raise ConfigError(f"live.{key}", "expected a list of glob patterns", source=config.path)
+            value = float(value) if kind is float else value
+        settings[key] = value
+    target = settings["target_conversion"]
+    if target is not None and not 0.0 < target < 1.0:
+        raise ConfigError("live.target_conversion", "must be a fraction between 0 and 1",
+                          source=config.path)
+    return settings
+
+
+def _record_of(measurement, folder: Path, reference_path: str) -> dict:
+    """A series FileMeasurement as JSON-ready values (paths relative to the folder)."""
+    import dataclasses
+
+    def iso(moment):
+        return None if moment is None else moment.isoformat()
+
+    return {
+        "file": measurement.file, "sha256": measurement.sha256,
+        "path": Path(measurement.path).resolve().relative_to(folder).as_posix(),
+        "reference": reference_path,
+        "start_utc": iso(measurement.start_utc), "mid_utc": iso(measurement.mid_utc),
+        "elapsed_mid_s": measurement.elapsed_mid_s, "duration_s": measurement.duration_s,
+        "time_source": measurement.time_source,
+        "alignment_shift_ppm": measurement.alignment_shift_ppm,
+        "noise_sigma": measurement.noise_sigma, "observe_mhz": measurement.observe_mhz,
+        "signals": [dataclasses.asdict(item) for item in measurement.signals],
+        "fit_windows": [{"group": w.group, "ppm": [float(x) for x in w.ppm],
+                         "values": [float(x) for x in w.values]} for w in measurement.fit_windows],
+        "notes": list(measurement.notes),
+    }
+
+
+def _measurement_of(record: dict, folder: Path):
+    """Inverse of :func:`_record_of` (floats round-trip exactly through JSON)."""
+    import numpy as np
+
+    from kinetics import series
+
+    def moment(text):
+        return None if text is None else datetime.fromisoformat(text)
+
+    signals = tuple(series.SignalResult(**{**item, "window_ppm": tuple(item["window_ppm"]),
+                                           "flags": tuple(item["flags"])})
+                    for item in record["signals"])
+    windows = tuple(series.FitWindow(w["group"], np.asarray(w["ppm"], float),
+                                     np.asarray(w["values"], float)) for w in record["fit_windows"])
+    return series.FileMeasurement(
+        path=str(folder / record["path"]), file=record["file"], sha256=record["sha256"],
+        start_utc=moment(record["start_utc"]), mid_utc=moment(record["mid_utc"]),
+        elapsed_mid_s=record["elapsed_mid_s"], duration_s=record["duration_s"],
+        time_source=record["time_source"], alignment_shift_ppm=record["alignment_shift_ppm"],
+        noise_sigma=record["noise_sigma"], observe_mhz=record["observe_mhz"],
+        signals=signals, fit_windows=windows, notes=tuple(record["notes"]))
+
+
+class SeriesMeasurer:
+    """:func:`kinetics.series.measure_file` as a live :class:`Measurer`.
+
+    The first file measured becomes the run's reference spectrum (alignment target), as in
+    the batch path; its path is kept in every record, so a restart finds it again.
+    Any error measuring a file quarantines that file (the run goes on).
     """
-    from watchers.wiring import build_pipeline  # pragma: no cover - see the note
 
-    return build_pipeline(Path(config_path))
+    def __init__(self, config, folder: Path, reference_path: str | None = None):
+        self.config = config
+        self.folder = Path(folder).resolve()
+        self.reference = None
+        self.reference_path = reference_path
+
+    def __call__(self, path: Path) -> FileMeasurement:
+        from kinetics import series
+        from kinetics.store import SignalRow
+
+        path = Path(path).resolve()
+        try:
+            if self.reference is None:
+                first = self.folder / self.reference_path if self.reference_path else path
+                self.reference = series.make_reference(first, self.config)
+                self.reference_path = first.relative_to(self.folder).as_posix()
+            measurement = series.measure_file(path, self.config, self.reference)
+        except InputFileError:
+            raise
+        except (KineticsError, ValueError, ArithmeticError) as error:
+            log.debug("measuring %s failed", path, exc_info=True)
+            raise InputFileError(path, f"could not be measured: {error}") from error
+        rows = tuple(SignalRow(item.name, item.integral, item.sigma, extra={
+            "shift_ppm": item.shift_ppm, "flags": list(item.flags), "method": item.method})
+            for item in measurement.signals)
+        return FileMeasurement(measurement.mid_utc or measurement.start_utc, rows,
+                               _record_of(measurement, self.folder, self.reference_path))
+
+
+def _series_table(config, folder: Path, ledger: Ledger) -> pd.DataFrame:
+    from kinetics import series
+
+    records = ledger.records()
+    if not records:
+        return pd.DataFrame({"time_s": []})
+    table = series.table_from_measurements([_measurement_of(r, folder) for _, r in records], config)
+    return table
+
+
+def build_from_config(config_path: Path, ledger_path: Path | None = None) -> Pipeline:
+    """The real pipeline of a run config: series measurement, rates refit, ``[live]`` keys.
+
+    The fitted column is ``<species>_concentration`` of ``[fit] species`` (default: the
+    ``[quantify] reactant``, else the first species), with the law ``[fit] model``
+    (default ``"first"``) observed as ``[fit] observed`` (default ``"reactant"``).
+    ``ledger_path``, when it exists, gives a restarted run its reference spectrum.
+    """
+    from functools import partial
+
+    from kinetics.config import load_run_config
+
+    config_path = Path(config_path)
+    config = load_run_config(config_path)
+    settings = live_settings(config)
+    fit = dict(config.sections.get("fit", {}) or {})
+    species = fit.get("species") or config.quantify.reactant or config.species[0]
+    column = f"{species}_concentration"
+    folder = Path(config.folder)
+    spec = WatchSpec(folder, include=(config.pattern,), exclude=tuple(settings["exclude"]),
+                     recursive=settings["recursive"], quiet_period_s=settings["quiet_period_s"],
+                     poll=settings["poll"], poll_interval_s=settings["poll_interval_s"])
+    reference = None
+    if ledger_path is not None and Path(ledger_path).exists():
+        with Ledger(ledger_path) as ledger:
+            records = ledger.records()
+        reference = records[0][1].get("reference") if records else None
+    resolved = folder.resolve() if folder.exists() else folder
+    refitter = RatesRefitter(column, str(fit.get("model", "first")),
+                             str(fit.get("observed", "reactant")), settings["target_conversion"],
+                             sigma_suffix="_sigma")
+    return Pipeline(
+        spec=spec, measure=SeriesMeasurer(config, resolved, reference),
+        build_table=partial(_series_table, config, resolved), refit=refitter,
+        signals=tuple(f"{name}_concentration" for name in config.species),
+        config_text=config_path.read_text(encoding="utf-8"),
+        target_conversion=settings["target_conversion"], sigma_suffix="_sigma")
 
 
 __all__ = ["FitOutcome", "LiveOptions", "Measurer", "Pipeline", "Refitter", "RunState",

@@ -109,13 +109,13 @@ def status_lines(status: LiveStatus) -> list[tuple[str, str]]:
 
 # ---------------------------------------------------------------- figure
 def render_png(table: pd.DataFrame, signals: list[str], curve: dict | None = None,
-               title: str = "") -> bytes:
+               sigma_suffix: str = "_stderr", title: str = "") -> bytes:
     """PNG of the series: one marker per spectrum and signal, the fitted curves as lines.
 
     Parameters
     ----------
     table : DataFrame
-        Needs ``time_s`` and one column per name in ``signals`` (``<name>_stderr``
+        Needs ``time_s`` and one column per name in ``signals`` (``<name><sigma_suffix>``
         optional, drawn as error bars).
     curve : dict, optional
         ``{"time_s": [...], name: [...]}`` of the fitted model.
@@ -128,7 +128,7 @@ def render_png(table: pd.DataFrame, signals: list[str], curve: dict | None = Non
         for name in signals:
             if name not in table:
                 continue
-            stderr = table.get(f"{name}_stderr")
+            stderr = table.get(f"{name}{sigma_suffix}")
             axes.errorbar(table["time_s"], table[name],
                           yerr=None if stderr is None else stderr.to_numpy(dtype=float),
                           fmt="o", markersize=3, capsize=0, label=name)

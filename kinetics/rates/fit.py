@@ -114,6 +114,7 @@ class FitOptions:
     absolute_sigma: bool = False
     tol: float = 1e-10
     max_nfev: int | None = None
+    warm: bool = False
 
 
 @dataclass(frozen=True)
@@ -148,7 +149,7 @@ class FitResult:
     species: tuple
     columns: tuple
     source: str
-    n_evaluations: int
+    n_evaluations: int  # residual evaluations of minimiser + polish (Jacobians included)
     warnings: tuple = ()
     bootstrap_failed: int = 0
     model: RateModel | None = field(default=None, repr=False, compare=False)
@@ -191,7 +192,7 @@ class FitResult:
         """
         t = np.asarray(time_s, dtype=float)
         curve = self.predict(t)
-        if self.covariance is None:
+        if self.covariance is None or not self.converged:
             nan = np.full_like(curve, np.nan)
             return curve, nan, nan
         grad = iv.numeric_gradient(
@@ -215,8 +216,8 @@ class FitResult:
         value = _safe(func, self.values)
         if not np.isfinite(value):
             return DerivedQuantity(name, value, None, None, unit, "none", "not defined for these parameters")
-        if self.covariance is None:
-            return DerivedQuantity(name, value, None, None, unit, "none", "no covariance: fit did not converge")
+        if self.covariance is None or not self.converged:
+            return DerivedQuantity(name, value, None, None, unit, "none", "no interval: the fit did not converge")
         theta = self._theta()
         grad = iv.numeric_gradient(lambda th: _safe(func, self._values_at(th)), theta, self._stderr())
         stderr = float(np.sqrt(max(grad @ self.covariance @ grad, 0.0)))
@@ -394,9 +395,9 @@ def _build_problem(model: RateModel, data: ConcentrationData, options: FitOption
     names, lower, upper, linear, fixed = [], [], [], [], {}
     for spec in model.params:
         lo, hi = options.bounds.get(spec.name, (spec.lower, spec.upper))
-        vary = spec.vary and spec.name not in options.fixed
-        if vary and spec.name in options.start and not spec.vary:
-            vary = True
+        # A start value frees a parameter the model holds by default (a hidden species'
+        # initial concentration); a fixed value always holds it.
+        vary = (spec.vary or spec.name in options.start) and spec.name not in options.fixed
         if vary:
             names.append(spec.name)
             lower.append(lo)
@@ -435,7 +436,7 @@ def _lmfit_minimise(problem: iv.Problem, theta0, options: FitOptions):
 
 def fit_model(data: ConcentrationData, model: RateModel, *, start=None, fixed=None, bounds=None,
               profile=True, bootstrap=0, rng=None, absolute_sigma=False, tol=1e-10,
-              max_nfev=None) -> FitResult:
+              max_nfev=None, warm=False) -> FitResult:
     """Fit ``model`` to all observed series of ``data`` at once (a global fit).
 
     Parameters
@@ -444,7 +445,8 @@ def fit_model(data: ConcentrationData, model: RateModel, *, start=None, fixed=No
         ``values`` shape (m, n) with ``m == len(model.species)``; rows match species order.
     model : RateModel
     start : dict, optional
-        Starting values (default: the model's guesses from the data).
+        Starting values (default: the model's guesses from the data).  Giving one for a
+        parameter the model holds fixed by default frees it.
     fixed : dict, optional
         Parameters held at the given values.
     bounds : dict name -> (lo, hi), optional
@@ -459,6 +461,10 @@ def fit_model(data: ConcentrationData, model: RateModel, *, start=None, fixed=No
         Treat the data sigmas as absolute (covariance not rescaled; chi-square profile).
     tol : float
         xtol/ftol of the minimiser.
+    warm : bool
+        ``start`` is a previous optimum (see :func:`refit`): go straight to the final
+        central-difference least-squares stage, falling back to the full lmfit path if
+        that does not converge.
 
     Returns
     -------
@@ -478,7 +484,7 @@ def fit_model(data: ConcentrationData, model: RateModel, *, start=None, fixed=No
         if unknown:
             raise FitError(f"cannot profile {unknown[0]!r}: not a parameter of {model.name!r}")
     options = FitOptions(dict(start or {}), dict(fixed or {}), dict(bounds or {}), profile,
-                         int(bootstrap), bool(absolute_sigma), float(tol), max_nfev)
+                         int(bootstrap), bool(absolute_sigma), float(tol), max_nfev, bool(warm))
     problem, theta0 = _build_problem(model, data, options)
     n = data.n_points
     p = len(problem.names)
@@ -491,15 +497,33 @@ def fit_model(data: ConcentrationData, model: RateModel, *, start=None, fixed=No
 def _finish(model, data, problem, theta0, options, rng) -> FitResult:
     n, p = data.n_points, len(problem.names)
     dof = n - p
-    outcome = _lmfit_minimise(problem, theta0, options)
-    theta = np.array([outcome.params[name].value for name in problem.names])
+    messages, warnings = [], list(data.warnings)
+    warm = None
+    if options.warm:
+        warm = iv.fit_theta(problem, theta0, max_nfev=100 * (p + 1), tol=1e-15, jac="3-point", full=True)
+        if not warm[1]:
+            warm = None
+    if warm is not None:
+        theta, _, jacobian = warm
+        converged = True
+        messages.append("warm start from the previous optimum: converged")
+    else:
+        outcome = _lmfit_minimise(problem, theta0, options)
+        theta = np.array([outcome.params[name].value for name in problem.names])
+        converged = bool(outcome.success) and np.all(np.isfinite(theta))
+        messages.append("minimiser: " + str(outcome.message).strip().rstrip("."))
+        budget = options.max_nfev or 2000 * (p + 1)
+        if not outcome.success and outcome.nfev >= budget:
+            messages.append(f"stopped after using its budget of {budget} model evaluations "
+                            "(better --start values may help)")
     residual = problem.residual(theta).reshape(data.values.shape)
     chi_square = float(np.sum(residual**2))
-    messages, warnings = [], list(data.warnings)
-    converged = bool(outcome.success) and np.all(np.isfinite(theta)) and np.isfinite(chi_square)
-    messages.append("minimiser: " + str(outcome.message).strip().rstrip("."))
+    converged = converged and np.isfinite(chi_square)
     covariance = None
-    if converged:
+    if converged and warm is not None:
+        scale = 1.0 if options.absolute_sigma else (chi_square / dof if dof > 0 else np.nan)
+        covariance = iv.covariance_from_jacobian(jacobian, scale)
+    elif converged:
         # Polish with central differences: MINPACK's forward-difference Jacobian leaves the
         # optimum uncertain at ~1e-6 relative when residuals are large (NIST BoxBOD).
         polished, ok, jacobian = iv.fit_theta(problem, theta, max_nfev=100 * (p + 1), tol=1e-15,
@@ -515,19 +539,22 @@ def _finish(model, data, problem, theta0, options, rng) -> FitResult:
     if covariance is not None:
         if not np.all(np.isfinite(covariance)) or np.any(np.diag(covariance) <= 0):
             covariance = None
+    n_evaluations = problem.calls  # minimiser + polish, before any interval work
     at_bound = [bool(np.isclose(v, lo, rtol=1e-9, atol=1e-300) or np.isclose(v, hi, rtol=1e-9))
                 for v, lo, hi in zip(theta, problem.lower, problem.upper)]
-    if covariance is None:
+    if covariance is None and converged:
         converged = False
         stuck = [name for name, b in zip(problem.names, at_bound) if b]
-        messages.append("the covariance could not be estimated"
-                        + (f" ({', '.join(stuck)} at a bound)" if stuck else
-                           " (parameters not identifiable from these data?)"))
+        if chi_square == 0.0:
+            messages.append("the model passes exactly through the data: no scatter to estimate "
+                            "uncertainties from")
+        else:
+            messages.append("the covariance could not be estimated"
+                            + (f" ({', '.join(stuck)} at a bound)" if stuck else
+                               " (parameters not identifiable from these data?)"))
     elif any(at_bound):
         warnings.append("at a bound: " + ", ".join(n_ for n_, b in zip(problem.names, at_bound) if b)
                         + "; its interval is one-sided or meaningless")
-    if chi_square == 0.0:
-        warnings.append("the model passes exactly through the data: intervals are degenerate")
     stderr = np.sqrt(np.diag(covariance)) if covariance is not None else np.full(p, np.nan)
     correlation = None
     if covariance is not None:
@@ -545,7 +572,8 @@ def _finish(model, data, problem, theta0, options, rng) -> FitResult:
         threshold = iv.profile_threshold(chi_square, dof, options.absolute_sigma)
         wanted = problem.names if options.profile is True else list(options.profile)
         for i in (i for i, name in enumerate(problem.names) if name in wanted):
-            profiles[i] = iv.profile_interval(problem, theta, i, stderr[i], threshold)
+            profiles[i] = iv.profile_interval(problem, theta, i, stderr[i], threshold, s_min=chi_square,
+                                              covariance=covariance)
             if not all(np.isfinite(profiles[i])):
                 warnings.append(f"profile of {problem.names[i]} does not close on one side: "
                                 "the data do not bound it")
@@ -566,7 +594,7 @@ def _finish(model, data, problem, theta0, options, rng) -> FitResult:
             se = float(stderr[i]) if np.isfinite(stderr[i]) else None
             estimates.append(ParameterEstimate(
                 spec.name, float(theta[i]), se, spec.unit, True,
-                iv.covariance_interval(theta[i], se, dof) if se is not None else None,
+                iv.covariance_interval(theta[i], se, dof) if se is not None and converged else None,
                 profiles[i], boots[i], at_bound[i]))
         else:
             estimates.append(ParameterEstimate(spec.name, problem.fixed[spec.name], None,
@@ -587,7 +615,7 @@ def _finish(model, data, problem, theta0, options, rng) -> FitResult:
         model.name, model.description, tuple(estimates), tuple(problem.names), covariance, correlation,
         chi_square, chi_square / dof if dof > 0 else math.nan, aic, aicc, bic, n, dof, bool(converged),
         message, diagnostics, data.time_s, data.values, problem.model(theta), residual, model.species,
-        data.columns, data.source, int(outcome.nfev), tuple(warnings), failed, model, data, options)
+        data.columns, data.source, n_evaluations, tuple(warnings), failed, model, data, options)
 
 
 # ---------------------------------------------------------------- convenience entry points
@@ -654,7 +682,7 @@ def refit(previous: FitResult, data: ConcentrationData, *, profile=None) -> FitR
     opts = previous.options
     return fit_model(data, previous.model, start=start, fixed=opts.fixed, bounds=opts.bounds,
                      profile=opts.profile if profile is None else profile, bootstrap=0,
-                     absolute_sigma=opts.absolute_sigma, tol=opts.tol, max_nfev=opts.max_nfev)
+                     absolute_sigma=opts.absolute_sigma, tol=opts.tol, max_nfev=opts.max_nfev, warm=True)
 
 
 def fit_arrays(time_s, values, model: RateModel | str, observed="reactant", sigma=None, **options) -> FitResult:

@@ -56,6 +56,7 @@ class Problem:
     lower: np.ndarray
     upper: np.ndarray
     linear: list
+    calls: int = 0  # residual evaluations so far (cost accounting)
 
     def values(self, theta) -> dict:
         values = dict(self.fixed)
@@ -67,6 +68,7 @@ class Problem:
         return np.asarray(self.predict(t, self.values(theta)), dtype=float).reshape(-1, np.size(t))
 
     def residual(self, theta):
+        self.calls += 1
         with np.errstate(all="ignore"):
             r = ((self.y - self.model(theta)) * self.weight).ravel()
         # A non-finite model value would derail MINPACK; a large residual steers it away.
@@ -105,6 +107,16 @@ def fit_theta(problem: Problem, theta0, max_nfev=None, tol=1e-10, jac="2-point",
     """
     theta0 = np.clip(np.asarray(theta0, dtype=float), problem.lower, problem.upper)
     bounded = np.isfinite(problem.lower).any() or np.isfinite(problem.upper).any()
+    if bounded and np.all((theta0 > problem.lower) & (theta0 < problem.upper)):
+        # Unconstrained LM is several times cheaper than TRF; keep it when it stays inside.
+        try:
+            solution = optimize.least_squares(problem.residual, theta0, method="lm", x_scale="jac",
+                                              xtol=tol, ftol=tol, gtol=tol, max_nfev=max_nfev, jac=jac)
+        except (ValueError, FloatingPointError, np.linalg.LinAlgError):
+            solution = None
+        if (solution is not None and solution.success
+                and np.all((solution.x >= problem.lower) & (solution.x <= problem.upper))):
+            return (solution.x, True, solution.jac) if full else (solution.x, True)
     try:
         solution = optimize.least_squares(
             problem.residual, theta0, bounds=(problem.lower, problem.upper) if bounded else (-np.inf, np.inf),
@@ -146,8 +158,14 @@ def best_amplitude(problem: Problem, theta, j: int) -> float:
 class _Profiler:
     """The profiled sum of squares of one parameter, warm-started along the search."""
 
-    def __init__(self, problem: Problem, theta_hat, index: int):
+    def __init__(self, problem: Problem, theta_hat, index: int, covariance=None):
         self.problem = problem
+        # Along the profile the others move by cov[o, i]/cov[i, i] per unit of parameter i
+        # (exact for a linear model): the warm start for each inner fit.
+        self.slope = None
+        if covariance is not None:
+            others = [j for j in range(len(theta_hat)) if j != index]
+            self.slope = np.asarray(covariance)[others, index] / covariance[index, index]
         self.index = index
         self.theta_hat = np.asarray(theta_hat, dtype=float)
         self.others = [i for i in range(len(theta_hat)) if i != index]
@@ -178,12 +196,45 @@ class _Profiler:
             j = self.others[0]
             self.last = np.array([best_amplitude(self.problem, self._full(np.ones(1), b), j)])
             return self.problem.ssq(self._full(self.last, b))
-        theta, _ = fit_theta(self.sub, self.last, max_nfev=200 * (len(self.others) + 1))
+        # S only has to be right to ~1e-6 relative near the threshold: a looser inner tolerance.
+        start = self.last
+        if self.slope is not None:
+            start = self.theta_hat[self.others] + self.slope * (b - self.theta_hat[self.index])
+            if self.problem.ssq(self._full(self.last, b)) < self.problem.ssq(self._full(start, b)):
+                start = self.last
+        theta, _ = fit_theta(self.sub, start, max_nfev=200 * (len(self.others) + 1), tol=1e-8)
         self.last = theta
         return self.problem.ssq(self._full(theta, b))
 
 
-def profile_interval(problem: Problem, theta_hat, index: int, stderr, threshold, max_expand=40):
+def _secant_edge(profiler, value, bound, direction, step0, s_min, threshold, tol=1e-4, max_iter=8):
+    """Edge by secant steps on the signed root ``z(b) = sqrt(S(b) - S_min)``.
+
+    ``z`` is nearly linear in ``b`` (exactly so for a linear model), so two to four profile
+    evaluations usually suffice; None when it does not settle (the caller then brackets).
+    """
+    target = np.sqrt(threshold - s_min)
+    if not np.isfinite(target) or target <= 0:
+        return None
+    b_prev, z_prev = value, 0.0
+    b = value + direction * step0 * 1.96  # covariance estimate of the edge
+    for _ in range(max_iter):
+        if (b - bound) * direction >= 0:
+            return None
+        z = np.sqrt(max(profiler(b) - s_min, 0.0))
+        if abs(z - target) <= tol * target:
+            return float(b)
+        slope = (z - z_prev) / (b - b_prev)
+        if not np.isfinite(slope) or slope * direction <= 0:
+            return None
+        b_prev, z_prev = b, z
+        step = (target - z) / slope
+        b = b + float(np.clip(step, -4 * abs(b - value), 4 * abs(b - value)))
+    return None
+
+
+def profile_interval(problem: Problem, theta_hat, index: int, stderr, threshold, max_expand=40,
+                     s_min=None, covariance=None):
     """Profile-likelihood interval ``(lo, hi)`` of parameter ``index``.
 
     An edge that reaches a bound before crossing the threshold is reported as that bound;
@@ -191,9 +242,17 @@ def profile_interval(problem: Problem, theta_hat, index: int, stderr, threshold,
     """
     value = float(theta_hat[index])
     step0 = stderr if stderr is not None and np.isfinite(stderr) and stderr > 0 else 0.1 * max(abs(value), 1e-12)
+    if s_min is None:
+        s_min = problem.ssq(theta_hat)
     edges = []
     for direction in (-1.0, 1.0):
-        profiler = _Profiler(problem, theta_hat, index)
+        profiler = _Profiler(problem, theta_hat, index, covariance)
+        bound = problem.lower[index] if direction < 0 else problem.upper[index]
+        edge = _secant_edge(profiler, value, bound, direction, step0, s_min, threshold)
+        if edge is not None:
+            edges.append(edge)
+            continue
+        profiler = _Profiler(problem, theta_hat, index, covariance)
         bound = problem.lower[index] if direction < 0 else problem.upper[index]
         inner, step = value, 2.0 * step0
         edge = np.nan
@@ -232,7 +291,8 @@ def bootstrap_samples(problem: Problem, theta_hat, n_samples: int, rng, dof: int
     for _ in range(n_samples):
         picks = rng.integers(0, n, size=(m, n))
         y_star = fitted + np.take_along_axis(centred, picks, axis=1) / problem.weight
-        theta, ok = fit_theta(problem.with_y(y_star), theta_hat, max_nfev=100 * (len(theta_hat) + 1))
+        # Percentiles need ~4 digits: a looser tolerance than the main fit.
+        theta, ok = fit_theta(problem.with_y(y_star), theta_hat, max_nfev=100 * (len(theta_hat) + 1), tol=1e-8)
         if ok and np.all(np.isfinite(theta)):
             samples.append(theta)
         else:

@@ -385,7 +385,6 @@ def mechanism_model(mechanism, observed, initial=None, fit_initial=(), method="L
         vary = (name in fit_initial) or (name in observed and name not in initial)
         specs.append(ParamSpec(f"c0_{name}", CONC_UNIT, 0.0, vary=vary))
     rows = [mechanism.species.index(name) for name in observed]
-    n_rates = len(mechanism.rate_names)
 
     def predict(t, v):
         k = np.array([v[name] for name in mechanism.rate_names])
@@ -418,7 +417,6 @@ def mechanism_model(mechanism, observed, initial=None, fit_initial=(), method="L
         first = mechanism.simulate(grid, c0, k, method=method, rtol=rtol, atol=atol)[0]
         return np.interp(t, grid, 1.0 - first / c0[0]) if c0[0] > 0 else np.full(t.shape, np.nan)
 
-    del n_rates
     return RateModel("mechanism", tuple(specs), observed, predict, guess, reactant=mechanism.species[0],
-                     description=f"mechanism: {' ; '.join(s.text for s in mechanism.steps)}",
+                     description=' ; '.join(s.text for s in mechanism.steps),
                      extra={"mechanism": mechanism, "conversion": conversion})

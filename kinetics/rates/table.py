@@ -108,7 +108,7 @@ def _validate(time_s, values, sigma, columns, source, lines=None):
             message = (f"column {name!r} has {negative.size} negative value(s) (lowest "
                        f"{values[r].min():.3g}{'' if lines is None else ', line ' + str(lines[negative[0]])}); "
                        "fine if noise around zero, otherwise check the baseline")
-            log.warning("%s: %s", source, message)
+            log.info("%s: %s", source, message)
             warnings.append(message)
     return tuple(warnings)
 

@@ -41,7 +41,8 @@ from kinetics.spectra.spectrum import Spectrum
 
 log = logging.getLogger(__name__)
 
-_META_RE = re.compile(r"^#+\s*([A-Za-z][\w .\-/]*?)\s*[:=]\s*(.*?)\s*$")
+# Key words joined by single spaces: the pattern stays linear on hostile long lines.
+_META_RE = re.compile(r"^#+\s*([A-Za-z][\w.\-/]*(?: [\w.\-/]+)*)\s*[:=](.*)$")
 _ROLE_NAMES = {
     "ppm": "ppm", "shift_ppm": "ppm", "shift": "ppm", "delta_ppm": "ppm", "chemical_shift_ppm": "ppm",
     "real": "real", "intensity": "real", "re": "real", "absorption": "real", "y": "real",
@@ -139,8 +140,9 @@ def parse_delimited(loaded: LoadedText) -> Spectrum:
             match = _META_RE.match(line)
             if match and not rows:
                 key = match.group(1).strip()
-                meta.setdefault(key.lower().replace(" ", "_"), (match.group(2), number))
-                header.setdefault(key, match.group(2))
+                value = match.group(2).strip()
+                meta.setdefault(key.lower().replace(" ", "_"), (value, number))
+                header.setdefault(key, value)
             continue
         if roles is None:
             separator = _separator(line)
@@ -206,13 +208,10 @@ def _whole(path: str, meta: dict, value: float) -> int:
 
 
 def read_delimited(path: str | Path) -> Spectrum:
-    """Read a delimited-text spectrum (through the shared boundary of ``reader.read``)."""
-    from kinetics.spectra.reader import read
+    """Read a delimited-text spectrum (refuses JCAMP-DX content; see ``reader.read``)."""
+    from kinetics.spectra.reader import load_text, parse_loaded
 
-    record = read(path)
-    if not isinstance(record, Spectrum):  # pragma: no cover - JCAMP-DX content given instead
-        raise InputFileError(path, "file holds an FID, not a delimited spectrum")
-    return record
+    return parse_loaded(load_text(path), expected_format="delimited")
 
 
 def csv_text(spectrum: Spectrum) -> str:

@@ -40,7 +40,7 @@ from pathlib import Path
 import numpy as np
 
 from kinetics.errors import InputFileError
-from kinetics.spectra.reader import MAX_POINTS, LoadedText, atomic_write_text, load_text
+from kinetics.spectra.reader import MAX_POINTS, LoadedText, atomic_write_text
 from kinetics.spectra.spectrum import Fid, Spectrum
 
 log = logging.getLogger(__name__)
@@ -90,12 +90,13 @@ def _split_blocks(loaded: LoadedText) -> list[_Block]:
     blocks: list[_Block] = []
     current: _Record | None = None
     seen_label = False
-    for number, raw_line in enumerate(loaded.text.splitlines(), start=1):
-        line = raw_line.split("$$", 1)[0]
+    for number, line in enumerate(loaded.text.splitlines(), start=1):
+        if "$$" in line:
+            line = line.split("$$", 1)[0]
         stripped = line.strip()
         if not stripped:
             continue
-        if stripped.startswith("##"):
+        if stripped[0] == "#" and stripped.startswith("##"):
             label, equals, value = stripped[2:].partition("=")
             if not equals or not label.strip():
                 raise InputFileError(path, f"malformed label line {stripped[:40]!r} (expected ##LABEL= value)",
@@ -155,6 +156,16 @@ def _count(path: str, record: _Record, text: str | None = None) -> int:
                              f"{MAX_POINTS} this reader accepts", line=record.line,
                              hint="check the header; split very large data sets")
     return int(value)
+
+
+def _factor(path: str, record: _Record | None, text: str | None = None) -> float:
+    """A FACTOR label's value (1 when absent); zero would silently erase the data."""
+    if record is None:
+        return 1.0
+    value = _number(path, record, text)
+    if value == 0.0:
+        raise InputFileError(path, f"##{record.label}= is zero", line=record.line, hint=_FIX_HINT)
+    return value
 
 
 def _columns(record: _Record) -> list[str]:
@@ -315,7 +326,6 @@ class _Table:
 
     values: np.ndarray  # raw ordinates (before FACTOR)
     line_x: list[tuple[int, float, int, int]]  # (file line, X as written, index of its point, decimals)
-    first_line: int
 
 
 def _decimals(text: str) -> int:
@@ -351,7 +361,7 @@ def _decode_affn(path: str, lines: list[tuple[int, str]]) -> _Table:
         if len(values) > MAX_POINTS:
             raise InputFileError(path, f"data table holds more than {MAX_POINTS} points", line=number,
                                  hint="check the file; split very large data sets")
-    return _Table(np.asarray(values, dtype=float), line_x, lines[0][0] if lines else 0)
+    return _Table(np.asarray(values, dtype=float), line_x)
 
 
 # ---- fast path: the whole table decoded with numpy (no per-value Python)
@@ -377,7 +387,9 @@ def _byte_tables() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 
 _BYTE_KIND, _BYTE_DIGIT, _BYTE_SIGN = _byte_tables()
-_POW10 = 10.0 ** np.arange(16)
+_BYTE_DIGIT_INT = _BYTE_DIGIT.astype(np.int64)
+_POW10_INT = 10 ** np.arange(13, dtype=np.int64)
+_FAST_MAX_CHARS = 16 * 1024 * 1024
 
 
 def _decode_asdf_fast(lines: list[tuple[int, str]]) -> _Table | None:
@@ -390,6 +402,8 @@ def _decode_asdf_fast(lines: list[tuple[int, str]]) -> _Table | None:
     try:
         raw = "\n".join(text for _, text in lines).encode("ascii")
     except UnicodeEncodeError:
+        return None
+    if len(raw) > _FAST_MAX_CHARS:  # keep the int64 work arrays to a few hundred MB
         return None
     chars = np.frombuffer(raw, dtype=np.uint8)
     kind = _BYTE_KIND[chars]
@@ -407,19 +421,25 @@ def _decode_asdf_fast(lines: list[tuple[int, str]]) -> _Table | None:
         return None
     is_start = pseudo | line_start
     starts = np.flatnonzero(is_start)
-    token = np.cumsum(is_start) - 1
+    ends = np.append(starts[1:], n_chars)
+    token = np.cumsum(is_start, dtype=np.int32) - 1
     counted = (kind == _K_DIGIT) | pseudo
-    cum = np.cumsum(counted)
-    total = np.add.reduceat(counted.astype(np.int64), starts)
-    if total.max() > 15:
+    # Per-token sums as differences of running sums (int64: exact, no reduceat).
+    cum = np.zeros(n_chars + 1, dtype=np.int32)
+    np.cumsum(counted, out=cum[1:])
+    total = cum[ends] - cum[starts]
+    if total.max() > 12:  # keeps every running sum below 2**63
         return None
-    cum_end = cum[starts] - counted[starts] + total
-    after = cum_end[token] - cum
-    contribution = _BYTE_DIGIT[chars] * _POW10[np.clip(after, 0, 15)] * counted
-    magnitude = np.add.reduceat(contribution, starts)
+    after = cum[ends][token] - cum[1:]
+    contribution = _BYTE_DIGIT_INT[chars] * _POW10_INT[np.clip(after, 0, 12)] * counted
+    running = np.zeros(n_chars + 1, dtype=np.int64)
+    np.cumsum(contribution, out=running[1:])
+    magnitude = (running[ends] - running[starts]).astype(np.float64)
     token_kind = np.where(line_start[starts], 0, kind[starts])
     is_x = token_kind == 0
-    dots = np.add.reduceat((kind == _K_DOT).astype(np.int64), starts)
+    dot_count = np.zeros(n_chars + 1, dtype=np.int32)
+    np.cumsum(kind == _K_DOT, out=dot_count[1:])
+    dots = dot_count[ends] - dot_count[starts]
     if np.any(dots[~is_x] > 0) or np.any(dots > 1) or np.any(total[is_x] == 0):
         return None
     x_sign = np.where(kind[starts] == _K_SIGN, _BYTE_SIGN[chars[starts]], 1.0)
@@ -429,7 +449,7 @@ def _decode_asdf_fast(lines: list[tuple[int, str]]) -> _Table | None:
     dot_positions = np.flatnonzero(kind == _K_DOT)
     if dot_positions.size:
         dot_tokens = token[dot_positions]
-        decimals[dot_tokens] = cum_end[dot_tokens] - cum[dot_positions]
+        decimals[dot_tokens] = cum[ends[dot_tokens]] - cum[dot_positions + 1]
         value[dot_tokens] = value[dot_tokens] / 10.0 ** decimals[dot_tokens]
     # --- per-line semantics
     next_kind = np.append(token_kind[1:], 0)
@@ -477,7 +497,7 @@ def _decode_asdf_fast(lines: list[tuple[int, str]]) -> _Table | None:
     x_tokens = np.flatnonzero(is_x)
     line_x = list(zip([number for number, _ in lines], value[x_tokens].tolist(),
                       line_first_point.tolist(), decimals[x_tokens].tolist()))
-    return _Table(values, line_x, lines[0][0])
+    return _Table(values, line_x)
 
 
 def _decode_asdf(path: str, lines: list[tuple[int, str]]) -> _Table:
@@ -540,7 +560,7 @@ def _decode_asdf(path: str, lines: list[tuple[int, str]]) -> _Table:
             raise InputFileError(path, f"data table holds more than {MAX_POINTS} points", line=number,
                                  hint="check the file; split very large data sets")
         expect_check = last_is_dif
-    return _Table(np.asarray(values, dtype=float), line_x, lines[0][0] if lines else 0)
+    return _Table(np.asarray(values, dtype=float), line_x)
 
 
 def _decode(path: str, lines: list[tuple[int, str]], form: str | None) -> _Table:
@@ -555,16 +575,23 @@ def _decode(path: str, lines: list[tuple[int, str]], form: str | None) -> _Table
 
 
 def _check_abscissa(path: str, table: _Table, first: float, step: float, x_factor: float) -> None:
-    """Each line's X (times its factor) must sit on the axis at that line's first point."""
-    for number, x_written, index, decimals in table.line_x:
-        expected = first + index * step
-        rounding = 0.5 * 10.0 ** (-decimals) * abs(x_factor)
-        if abs(x_written * x_factor - expected) > abs(step) * 1.01 + rounding + 1e-9 * abs(expected):
-            raise InputFileError(
-                path, f"abscissa check failed: line starts at X={x_written:g} but point {index + 1} "
-                f"lies at {expected / x_factor:g}", line=number,
-                hint="the file is damaged (a line missing or repeated); re-export it",
-            )
+    """Each line's X (times its factor) must sit on the axis at that line's first point.
+
+    Allowed slack: one point spacing plus the rounding of X as written.
+    """
+    if not table.line_x:
+        return
+    numbers, x_written, index, decimals = (np.asarray(column) for column in zip(*table.line_x))
+    expected = first + index * step
+    slack = abs(step) * 1.01 + 0.5 * 10.0 ** (-decimals.astype(float)) * abs(x_factor) + 1e-9 * np.abs(expected)
+    bad = np.flatnonzero(~(np.abs(x_written * x_factor - expected) <= slack))
+    if bad.size:
+        k = int(bad[0])
+        raise InputFileError(
+            path, f"abscissa check failed: line starts at X={x_written[k]:g} but point {index[k] + 1} "
+            f"lies at {expected[k] / x_factor:g}", line=int(numbers[k]),
+            hint="the file is damaged (a line missing or repeated); re-export it",
+        )
 
 
 # ============================================================ data tables
@@ -604,8 +631,8 @@ def _xydata(path: str, block: _Block) -> tuple[_Axis, np.ndarray, None, int]:
     record = block.first("XYDATA") or block.first("XYPOINTS")
     if record is None:
         raise InputFileError(path, "no ##XYDATA=, ##XYPOINTS= or ##NTUPLES= data in the file", hint=_FIX_HINT)
-    x_factor = _optional_number(path, block, "XFACTOR") or 1.0
-    y_factor = _optional_number(path, block, "YFACTOR") or 1.0
+    x_factor = _factor(path, block.first("XFACTOR"))
+    y_factor = _factor(path, block.first("YFACTOR"))
     units = (block.first("XUNITS").value if block.first("XUNITS") else "").upper().strip()
     npoints = block.first("NPOINTS")
     if _PAIR_FORM_RE.match(record.value):
@@ -692,7 +719,7 @@ def _ntuples(path: str, block: _Block) -> tuple[_Axis, np.ndarray | None, np.nda
     first = _number(path, block.first("FIRST"), firsts[ix])
     last = _number(path, block.first("LAST"), lasts[ix])
     n_points = _count(path, dims_record, dims[ix])
-    x_factor = _number(path, block.first("FACTOR"), factors[ix]) if block.first("FACTOR") else 1.0
+    x_factor = _factor(path, block.first("FACTOR"), factors[ix])
     axis = _Axis(first, last, n_points, units[ix].upper(), x_factor)
     step = _step(path, axis, dims_record.line)
     pages: dict[str, np.ndarray] = {}
@@ -717,7 +744,7 @@ def _ntuples(path: str, block: _Block) -> tuple[_Axis, np.ndarray | None, np.nda
                                  f"{table.values.size}", line=record.line,
                                  hint="the file is truncated or damaged; re-export it")
         _check_abscissa(path, table, first, step, x_factor)
-        factor = _number(path, block.first("FACTOR"), factors[index]) if block.first("FACTOR") else 1.0
+        factor = _factor(path, block.first("FACTOR"), factors[index])
         pages[symbol] = _scaled(path, table, factor, record.line)
     if "R" not in pages:
         raise InputFileError(path, "NTUPLES without a real (R) page", line=head.line, hint=_FIX_HINT)
@@ -867,9 +894,10 @@ def read_jcampdx(path: str | Path) -> Spectrum | Fid:
         ##NPOINTS/##VAR_DIM, failed DIF y-check or abscissa check, missing observe
         frequency, NaN/inf, unsupported data type or table form.
     """
-    from kinetics.spectra.reader import read
+    from kinetics.spectra.reader import load_text, parse_loaded
 
-    return read(path)  # the shared boundary: size/binary checks and the safety net
+    # The shared boundary: size/binary checks and the safety net.
+    return parse_loaded(load_text(path), expected_format="jcamp-dx")
 
 
 # ============================================================ writing
@@ -977,7 +1005,7 @@ def _long_date(stamp: datetime) -> str:
 
 
 def _common_header(record, data_type: str, data_class: str, shift_reference: str) -> list[str]:
-    title = str(record.header.get("TITLE", "")).strip() or (
+    title = str(record.header.get("TITLE") or record.header.get("title") or "").strip() or (
         Path(record.source_path).stem if record.source_path else "kinetics spectrum")
     lines = [
         f"##TITLE= {title}",
@@ -1128,5 +1156,4 @@ def write_fid(path: str | Path, fid: Fid, compression: str = "dif") -> Path:
     return Path(path)
 
 
-__all__ = ["read_jcampdx", "parse_jcampdx", "write_spectrum", "write_fid", "spectrum_text", "fid_text",
-           "load_text"]
+__all__ = ["read_jcampdx", "parse_jcampdx", "write_spectrum", "write_fid", "spectrum_text", "fid_text"]

@@ -1,0 +1,672 @@
+"""A folder of spectra + a run config -> a tidy time-series table (one row per spectrum).
+
+Two entry points give identical rows:
+
+* batch: :func:`run_series` (or :func:`run_config_to_table`) over a finished folder;
+* live, one file at a time: ``reference = make_reference(first_path, config)``, then
+  ``measure_file(path, config, reference)`` for each file (a frozen
+  :class:`FileMeasurement`, safe to store), and ``table_from_measurements(ms, config)``
+  whenever a table is wanted.  The batch path is exactly these calls in a loop.
+
+Per file: read -> process (``[processing]``) -> align to the reference spectrum
+(``[alignment]``) -> noise estimate -> region integrals with drift tracking and
+per-spectrum deconvolution of ``fit`` groups.  Across the series (in
+:func:`table_from_measurements`): global deconvolution of the ``fit`` groups (shared
+positions, widths and J, areas per spectrum), saturation correction, concentrations,
+conversion, yield and the mass balance.
+
+Table columns: ``index, file, sha256, time_s, time_source, acquired_mid_utc, duration_s,
+alignment_shift_ppm, noise_sigma`` and per signal ``<name>_integral, <name>_sigma,
+<name>_shift_ppm, <name>_concentration, <name>_concentration_sigma, <name>_flags``, per
+species ``<species>_concentration, <species>_concentration_sigma``, then
+``conversion(_sigma)``, ``yield(_sigma)``, ``mass_balance_deviation(_sigma)``,
+``mass_balance_flag``.  Concentrations are mol/L (``df.attrs['concentration_unit']``;
+fractions in mode 'relative').  Integrals are ppm x intensity.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import os
+import re
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+from types import MappingProxyType
+from typing import Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+
+from kinetics import quantify, signals as sg
+from kinetics.config import RunConfig, load_run_config
+from kinetics.errors import ConfigError, FitError, InputFileError
+from kinetics.spectra.spectrum import Spectrum, sha256_of_file
+
+log = logging.getLogger(__name__)
+
+WEAK_SNR = 5.0  # below this integral/sigma a window is not re-centred (nothing to follow)
+
+
+# ---------------------------------------------------------------- records
+@dataclass(frozen=True)
+class SignalResult:
+    """One signal measured in one spectrum.
+
+    Attributes
+    ----------
+    name, species, method : str
+    integral, sigma : float
+        ppm x intensity (area of the multiplet for 'fit').
+    shift_ppm : float
+        Window displacement (tracking) or fitted centre minus window centre (fit).
+    window_ppm : (low, high) used
+    truncation_loss : float
+        Share of the area outside the window ('integral' only; NaN for fits).
+    flags : tuple of str
+        'left_window', 'weak', 'fit_failed', 'global_fit', ...
+    """
+
+    name: str
+    species: str
+    method: str
+    integral: float
+    sigma: float
+    shift_ppm: float
+    window_ppm: tuple[float, float]
+    truncation_loss: float = float("nan")
+    flags: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class FitWindow:
+    """The data of one fit group in one spectrum, kept for the series-wide fit.
+
+    Attributes
+    ----------
+    group : str
+    ppm, values : ndarray, shape (n,)
+    """
+
+    group: str
+    ppm: np.ndarray
+    values: np.ndarray
+
+
+@dataclass(frozen=True)
+class FileMeasurement:
+    """Everything measured in one file (what a ledger row stores).
+
+    Attributes
+    ----------
+    path, file, sha256 : str
+    start_utc, mid_utc : datetime or None
+        Acquisition start and midpoint (absolute time sources).
+    elapsed_mid_s : float or None
+        Midpoint relative to the reaction start (``elapsed_*`` file-name groups).
+    duration_s : float or None
+    time_source : str
+    alignment_shift_ppm : float
+    noise_sigma : float
+    observe_mhz : float
+    signals : tuple of SignalResult
+    fit_windows : tuple of FitWindow
+    notes : tuple of str
+    """
+
+    path: str
+    file: str
+    sha256: str
+    start_utc: datetime | None
+    mid_utc: datetime | None
+    elapsed_mid_s: float | None
+    duration_s: float | None
+    time_source: str
+    alignment_shift_ppm: float
+    noise_sigma: float
+    observe_mhz: float
+    signals: tuple[SignalResult, ...]
+    fit_windows: tuple[FitWindow, ...] = ()
+    notes: tuple[str, ...] = ()
+
+    def signal(self, name: str) -> SignalResult:
+        for item in self.signals:
+            if item.name == name:
+                return item
+        raise KeyError(name)
+
+
+@dataclass(frozen=True)
+class Reference:
+    """What every later file is compared with: the first spectrum of the run.
+
+    Attributes
+    ----------
+    spectrum : Spectrum
+        The processed first spectrum (alignment target).
+    centroids_ppm : mapping signal name -> float
+        Where each tracked signal sits in it (window centre when too weak to tell).
+    fit_points : mapping group -> int
+        Points of each fit window (the same count is cut from every spectrum).
+    path : str
+    """
+
+    spectrum: Spectrum
+    centroids_ppm: Mapping[str, float]
+    fit_points: Mapping[str, int]
+    path: str
+
+
+# ---------------------------------------------------------------- files and time
+def list_files(config: RunConfig) -> list[Path]:
+    """Spectrum files of the run folder matching ``run.pattern``, sorted by name."""
+    if not config.folder.is_dir():
+        raise ConfigError("run.folder", f"folder {config.folder} does not exist")
+    files = sorted(p for p in config.folder.glob(config.pattern) if p.is_file())
+    if not files:
+        raise ConfigError("run.pattern", f"no file in {config.folder} matches {config.pattern!r}")
+    return files
+
+
+def _filename_time(name: str, pattern: str, path: str):
+    match = re.search(pattern, name)
+    if match is None:
+        raise InputFileError(path, f"file name does not match time.filename_pattern {pattern!r}",
+                             hint="fix the pattern or rename the file")
+    groups = {k: v for k, v in match.groupdict().items() if v is not None}
+    try:
+        for unit, factor in (("elapsed_s", 1.0), ("elapsed_min", 60.0), ("elapsed_h", 3600.0)):
+            if unit in groups:
+                return None, float(groups[unit]) * factor
+        if "timestamp" in groups:
+            stamp = datetime.fromisoformat(groups["timestamp"].replace("Z", "+00:00"))
+        else:
+            stamp = datetime(int(groups["year"]), int(groups["month"]), int(groups["day"]),
+                             int(groups["hour"]), int(groups["minute"]), int(float(groups.get("second", 0))))
+    except (ValueError, KeyError) as error:
+        raise InputFileError(path, f"time in the file name cannot be read: {error}") from error
+    if stamp.tzinfo is None:
+        stamp = stamp.replace(tzinfo=timezone.utc)
+    return stamp.astimezone(timezone.utc), None
+
+
+def acquisition_time(path: str | Path, record, config: RunConfig):
+    """(start_utc, mid_utc, elapsed_mid_s, duration_s) of one file per ``[time]``.
+
+    'header' and 'filename' give the acquisition start; 'mtime' is the moment the file
+    was last written, taken as the end of acquisition.  The midpoint adds half the
+    duration (header ``duration_s``, else ``time.duration_s``, else 0).
+    """
+    tc = config.time
+    duration = record.duration_s if record.duration_s is not None else tc.duration_s
+    half = 0.5 * (duration or 0.0)
+    path = str(path)
+    if tc.source == "header":
+        if record.acquired_utc is None:
+            raise InputFileError(path, "the header gives no acquisition time",
+                                 hint="set time.source = 'filename' or 'mtime' in the config")
+        start = record.acquired_utc
+    elif tc.source == "filename":
+        start, elapsed = _filename_time(Path(path).name, tc.filename_pattern, path)
+        if elapsed is not None:
+            return None, None, elapsed + half, duration
+    else:
+        end = datetime.fromtimestamp(os.stat(path).st_mtime, tz=timezone.utc)
+        start = end - _seconds(duration or 0.0)
+    return start, start + _seconds(half), None, duration
+
+
+def _seconds(value: float):
+    from datetime import timedelta
+
+    return timedelta(seconds=float(value))
+
+
+# ---------------------------------------------------------------- one file
+def _pipeline(config: RunConfig):
+    from kinetics.processing import Pipeline
+
+    return Pipeline.from_config(dict(config.processing))
+
+
+def _read_processed(path, config: RunConfig):
+    from kinetics.spectra.reader import read
+
+    record = read(path)
+    processed = _pipeline(config)(record)
+    return record, processed
+
+
+def _noise(spectrum: Spectrum, config: RunConfig) -> sg.NoiseEstimate:
+    integ = config.integration
+    order = 1 if integ.baseline == "edges" else 0
+    region = None if integ.noise_region_ppm is None else list(integ.noise_region_ppm)
+    return sg.estimate_noise(spectrum, region, exclude_ppm=[s.window_ppm for s in config.signals],
+                             detrend_order=order)
+
+
+def _fit_groups(config: RunConfig) -> dict[str, list[sg.SignalDefinition]]:
+    groups: dict[str, list[sg.SignalDefinition]] = {}
+    for sig in config.signals:
+        if sig.method == "fit":
+            groups.setdefault(sig.fit_group, []).append(sig)
+    return groups
+
+
+def make_reference(path: str | Path, config: RunConfig) -> Reference:
+    """Process the first file of a run and record what later files are compared with."""
+    _, processed = _read_processed(path, config)
+    spectrum = processed.spectrum
+    sg.validate_signals(config.signals, spectrum.ppm_range)
+    noise = _noise(spectrum, config)
+    centroids = {}
+    for sig in config.signals:
+        if sig.method != "integral":
+            continue
+        region = sg.integrate_region(spectrum, sig.window_ppm, noise, baseline=config.integration.baseline,
+                                     edge_fraction=config.integration.edge_fraction)
+        strong = region.sigma > 0 and region.integral / region.sigma >= WEAK_SNR
+        centroids[sig.name] = sg.centroid_ppm(spectrum, sig.window_ppm) if strong else sig.center_ppm
+    points = {group: int(sg.window_data(spectrum, sg.fit_window(members))[0].size)
+              for group, members in _fit_groups(config).items()}
+    return Reference(spectrum=spectrum, centroids_ppm=MappingProxyType(centroids),
+                     fit_points=MappingProxyType(points), path=str(path))
+
+
+def _align(spectrum: Spectrum, reference: Reference, config: RunConfig) -> tuple[Spectrum, float]:
+    window = config.alignment.window_ppm
+    if window is None:
+        return spectrum, 0.0
+    from kinetics.processing import align_series
+
+    try:
+        result = align_series([reference.spectrum, spectrum], window, 0, config.alignment.max_shift_ppm)
+    except ValueError as error:
+        raise ConfigError("alignment.window_ppm", str(error)) from error
+    return result.spectra[1], float(result.shifts_ppm[1])
+
+
+def _measure_integral(spectrum, sig, noise, reference: Reference, config: RunConfig) -> SignalResult:
+    integ = config.integration
+    kwargs = dict(name=sig.name, nuclei=sig.nuclei, baseline=integ.baseline, edge_fraction=integ.edge_fraction,
+                  lineshape=sig.lineshape)
+    flags = []
+    window, shift = sig.window_ppm, 0.0
+    first = sg.integrate_region(spectrum, window, noise, **kwargs)
+    weak = not (first.sigma > 0 and abs(first.integral) / first.sigma >= WEAK_SNR)
+    if weak:
+        flags.append("weak")
+    if sig.tolerance_ppm > 0 and not weak:
+        tracked = sg.track(spectrum, window, reference.centroids_ppm.get(sig.name, sig.center_ppm),
+                           sig.tolerance_ppm)
+        window, shift = tracked.window_ppm, tracked.shift_ppm
+        if tracked.left_window:
+            flags.append("left_window")
+        region = sg.integrate_region(spectrum, window, noise, **kwargs) if shift else first
+    else:
+        region = first
+        if not weak and sg._max_on_edge(spectrum, window):
+            flags.append("left_window")
+    if "left_window" in flags:
+        log.warning("%s: signal %s is leaving its window (shift %.4f ppm)", spectrum.source_path, sig.name, shift)
+    return SignalResult(sig.name, sig.species, "integral", region.integral, region.sigma, shift,
+                        tuple(window), region.truncation_loss, tuple(flags))
+
+
+def _measure_group(spectrum, members, reference: Reference, config: RunConfig):
+    window = sg.fit_window(members)
+    ppm, values = sg.window_data(spectrum, window, reference.fit_points.get(members[0].fit_group))
+    comps = sg.components_for(members)
+    results = []
+    try:
+        fit = sg.deconvolve(ppm, values, comps, spectrum.observe_mhz, config.integration.fit_baseline_order)
+        for k, sig in enumerate(members):
+            flags = () if fit.success else ("fit_failed",)
+            results.append(SignalResult(sig.name, sig.species, "fit", float(fit.areas[0, k]),
+                                        float(fit.area_stderr[0, k]), fit.center_ppm[sig.name][0] - sig.center_ppm,
+                                        sig.window_ppm, float("nan"), flags))
+    except FitError as error:
+        log.warning("%s: deconvolution of %s failed: %s", spectrum.source_path, members[0].fit_group, error)
+        results = [SignalResult(s.name, s.species, "fit", float("nan"), float("nan"), 0.0, s.window_ppm,
+                                float("nan"), ("fit_failed",)) for s in members]
+    return results, FitWindow(members[0].fit_group, ppm.copy(), values.copy())
+
+
+def measure_spectrum(spectrum: Spectrum, config: RunConfig, reference: Reference) -> tuple:
+    """Signals of one processed, aligned spectrum: (noise, signal results, fit windows)."""
+    sg.validate_signals(config.signals, spectrum.ppm_range)
+    noise = _noise(spectrum, config)
+    results = {}
+    for sig in config.signals:
+        if sig.method == "integral":
+            results[sig.name] = _measure_integral(spectrum, sig, noise, reference, config)
+    windows = []
+    for members in _fit_groups(config).values():
+        group_results, data = _measure_group(spectrum, members, reference, config)
+        windows.append(data)
+        results.update({r.name: r for r in group_results})
+    ordered = tuple(results[s.name] for s in config.signals)
+    return noise, ordered, tuple(windows)
+
+
+def measure_file(path: str | Path, config: RunConfig, reference: Reference | None = None) -> FileMeasurement:
+    """Read, process, align and measure one file (the live watcher's unit of work).
+
+    Parameters
+    ----------
+    path : path of the spectrum/FID file
+    config : RunConfig
+    reference : Reference, optional
+        From :func:`make_reference` on the run's first file; when None this file is
+        its own reference (it is the first file).
+    """
+    record, processed = _read_processed(path, config)
+    if reference is None:
+        reference = make_reference(path, config)
+    spectrum, shift = _align(processed.spectrum, reference, config)
+    noise, results, windows = measure_spectrum(spectrum, config, reference)
+    start, mid, elapsed, duration = acquisition_time(path, record, config)
+    sha = record.sha256 or sha256_of_file(path)
+    return FileMeasurement(
+        path=str(path), file=Path(path).name, sha256=sha, start_utc=start, mid_utc=mid,
+        elapsed_mid_s=elapsed, duration_s=duration, time_source=config.time.source,
+        alignment_shift_ppm=shift, noise_sigma=noise.sigma, observe_mhz=spectrum.observe_mhz,
+        signals=results, fit_windows=windows, notes=tuple(processed.notes))
+
+
+# ---------------------------------------------------------------- the series
+def time_axis(measurements: Sequence[FileMeasurement], config: RunConfig) -> np.ndarray:
+    """Mid-acquisition times in s from the reaction start, shape (m,), in the given order.
+
+    With ``time.reaction_start`` t = mid - start; otherwise the earliest midpoint is
+    ``time.first_spectrum_offset_s``.  ``elapsed_*`` file-name times are already relative.
+    """
+    tc = config.time
+    if all(m.elapsed_mid_s is not None for m in measurements):
+        return np.array([m.elapsed_mid_s for m in measurements], float)
+    if any(m.mid_utc is None for m in measurements):
+        raise ConfigError("time.source", "some files give relative and others absolute times")
+    if tc.reaction_start_utc is not None:
+        origin, offset = tc.reaction_start_utc, 0.0
+    else:
+        origin, offset = min(m.mid_utc for m in measurements), tc.first_spectrum_offset_s
+    return np.array([(m.mid_utc - origin).total_seconds() + offset for m in measurements])
+
+
+def _apply_global_fits(measurements, config: RunConfig, integral, sigma, shift, flags, notes) -> None:
+    names = [s.name for s in config.signals]
+    for group, members in _fit_groups(config).items():
+        data = [next(w for w in m.fit_windows if w.group == group) for m in measurements]
+        n = min(w.values.size for w in data)
+        ppm = np.array([w.ppm[:n] for w in data])
+        values = np.array([w.values[:n] for w in data])
+        shared_axis = np.allclose(ppm, ppm[0], rtol=0, atol=1e-12)
+        try:
+            fit = sg.deconvolve(ppm[0] if shared_axis else ppm, values, sg.components_for(members),
+                                measurements[0].observe_mhz, config.integration.fit_baseline_order)
+        except FitError as error:
+            notes.append(f"global fit of {group} failed: {error}")
+            for sig in members:
+                for row in range(len(measurements)):
+                    flags[names.index(sig.name)][row].append("global_fit_failed")
+            continue
+        notes.append(fit.report())
+        for k, sig in enumerate(members):
+            col = names.index(sig.name)
+            integral[col] = fit.areas[:, k]
+            sigma[col] = fit.area_stderr[:, k]
+            shift[col] = fit.center_ppm[sig.name][0] - sig.center_ppm
+            for row in range(len(measurements)):
+                flags[col][row] = [f for f in flags[col][row] if f != "fit_failed"]
+                flags[col][row].append("global_fit" if fit.success else "global_fit_failed")
+
+
+def _saturation(config: RunConfig, integral, sigma, warnings: list[str]) -> None:
+    q = config.quantify
+    if q.repetition_time_s is None:
+        return
+    for col, sig in enumerate(config.signals):
+        t1 = q.t1_s.get(sig.name)
+        if t1 is None:
+            continue
+        factor = quantify.saturation_factor(t1, q.repetition_time_s, q.flip_angle_deg)
+        integral[col], sigma[col] = quantify.correct_saturation(integral[col], sigma[col], factor)
+        text = quantify.saturation_warning(sig.name, t1, q.repetition_time_s)
+        if text:
+            log.warning(text)
+            warnings.append(text)
+
+
+def _concentrations(config: RunConfig, integral, sigma):
+    """Per-signal concentrations (k, m) and unit, by ``quantify.mode``."""
+    q = config.quantify
+    nuclei = np.array([s.nuclei for s in config.signals], float)
+    names = [s.name for s in config.signals]
+    if q.mode == "standard":
+        i = names.index(q.standard)
+        std = config.signals[i]
+        conc, csig = quantify.from_standard(integral, sigma, nuclei[:, None], integral[i], sigma[i], std.nuclei,
+                                            std.concentration_mol_per_l, std.concentration_sigma_mol_per_l)
+        return conc, csig, "mol/L"
+    if q.mode == "initial":
+        i = next(k for k, s in enumerate(config.signals) if s.species == q.initial_species)
+        conc, csig = quantify.from_initial(integral, sigma, nuclei[:, None], integral[i, 0], sigma[i, 0],
+                                           config.signals[i].nuclei, q.initial_concentration_mol_per_l,
+                                           q.initial_sigma_mol_per_l)
+        return conc, csig, "mol/L"
+    if q.mode == "relative":
+        tracked = [k for k, s in enumerate(config.signals) if not s.is_standard]
+        per, per_sigma = integral / nuclei[:, None], sigma / nuclei[:, None]
+        species = config_species(config, tracked)
+        # one estimate per species (mean of its signals), then fractions of the total
+        rows, sigs = [], []
+        for sp, cols in species.items():
+            mean, s = quantify.combine(per[cols], per_sigma[cols])
+            rows.append(mean)
+            sigs.append(s)
+        frac, fsig = quantify.relative(np.array(rows), np.array(sigs))
+        conc = np.full_like(integral, np.nan)
+        csig = np.full_like(integral, np.nan)
+        for (sp, cols), f, fs in zip(species.items(), frac, fsig):
+            for c in cols:
+                conc[c], csig[c] = f, fs
+        return conc, csig, "fraction"
+    nan = np.full_like(integral, np.nan)
+    return nan, nan.copy(), ""
+
+
+def config_species(config: RunConfig, columns=None) -> dict[str, list[int]]:
+    """Species -> signal indices (standards excluded unless listed in ``columns``)."""
+    out: dict[str, list[int]] = {}
+    for k, sig in enumerate(config.signals):
+        if columns is None and sig.is_standard:
+            continue
+        if columns is not None and k not in columns:
+            continue
+        out.setdefault(sig.species, []).append(k)
+    return out
+
+
+def table_from_measurements(measurements: Sequence[FileMeasurement], config: RunConfig) -> pd.DataFrame:
+    """The tidy table of a run from per-file measurements (batch and live alike).
+
+    Rows are ordered by ``run.order`` (file name or time) and indexed 0..m-1.
+    ``df.attrs`` holds 'warnings', 'notes' (global-fit reports) and 'concentration_unit'.
+    """
+    if not measurements:
+        raise FitError("no measurements to tabulate")
+    times = time_axis(measurements, config)
+    order = np.argsort(times, kind="stable") if config.order == "time" else np.argsort(
+        [m.file for m in measurements], kind="stable")
+    ms = [measurements[i] for i in order]
+    times = times[order]
+    k, m = len(config.signals), len(ms)
+    integral = np.array([[x.signal(s.name).integral for x in ms] for s in config.signals], float).reshape(k, m)
+    sigma = np.array([[x.signal(s.name).sigma for x in ms] for s in config.signals], float).reshape(k, m)
+    shift = np.array([[x.signal(s.name).shift_ppm for x in ms] for s in config.signals], float).reshape(k, m)
+    flags = [[list(x.signal(s.name).flags) for x in ms] for s in config.signals]
+    notes: list[str] = []
+    warnings: list[str] = []
+    if config.integration.global_fit and m >= 2 and _fit_groups(config):
+        _apply_global_fits(ms, config, integral, sigma, shift, flags, notes)
+    _saturation(config, integral, sigma, warnings)
+    conc, csig, unit = _concentrations(config, integral, sigma)
+
+    table = {
+        "index": np.arange(m), "file": [x.file for x in ms], "sha256": [x.sha256 for x in ms],
+        "time_s": times, "time_source": [x.time_source for x in ms],
+        "acquired_mid_utc": [x.mid_utc.isoformat().replace("+00:00", "Z") if x.mid_utc else "" for x in ms],
+        "duration_s": [np.nan if x.duration_s is None else x.duration_s for x in ms],
+        "alignment_shift_ppm": [x.alignment_shift_ppm for x in ms],
+        "noise_sigma": [x.noise_sigma for x in ms],
+    }
+    for col, sig in enumerate(config.signals):
+        table[f"{sig.name}_integral"] = integral[col]
+        table[f"{sig.name}_sigma"] = sigma[col]
+        table[f"{sig.name}_shift_ppm"] = shift[col]
+        table[f"{sig.name}_concentration"] = conc[col]
+        table[f"{sig.name}_concentration_sigma"] = csig[col]
+        table[f"{sig.name}_flags"] = [";".join(f) for f in flags[col]]
+    species_c, species_s, species_names = _species_table(config, conc, csig, unit, table)
+    _derived(config, species_c, species_s, species_names, table, warnings)
+    df = pd.DataFrame(table)
+    df.attrs["warnings"] = warnings
+    df.attrs["notes"] = notes
+    df.attrs["concentration_unit"] = unit
+    return df
+
+
+def _species_table(config, conc, csig, unit, table):
+    names, cs, ss = [], [], []
+    for sp, cols in config_species(config).items():
+        if unit == "fraction":
+            c, s = conc[cols[0]], csig[cols[0]]
+        else:
+            c, s = quantify.combine(conc[cols], csig[cols])
+        table[f"{sp}_concentration"] = c
+        table[f"{sp}_concentration_sigma"] = s
+        names.append(sp)
+        cs.append(c)
+        ss.append(s)
+    return np.array(cs), np.array(ss), names
+
+
+def _derived(config, species_c, species_s, names, table, warnings) -> None:
+    q = config.quantify
+    if q.mode == "none" or not names:
+        return
+    if q.reactant is not None:
+        i = names.index(q.reactant)
+        x, xs = quantify.conversion(species_c[i], species_s[i], species_c[i][0], species_s[i][0])
+        table["conversion"], table["conversion_sigma"] = x, xs
+        if q.product is not None:
+            j = names.index(q.product)
+            ratio = q.stoichiometry.get(q.reactant, 1.0) / q.stoichiometry.get(q.product, 1.0) \
+                if q.stoichiometry.get(q.product, 1.0) else 1.0
+            y, ys = quantify.product_yield(species_c[j], species_s[j], species_c[i][0], species_s[i][0], ratio)
+            table["yield"], table["yield_sigma"] = y, ys
+    if q.mode != "relative" and len(names) >= 1:
+        weights = [q.stoichiometry.get(sp, 1.0) for sp in names]
+        balance = quantify.mass_balance(species_c, species_s, weights, q.mass_balance_sigmas)
+        table["mass_balance_total"] = balance.total
+        table["mass_balance_deviation"] = balance.deviation
+        table["mass_balance_deviation_sigma"] = balance.deviation_sigma
+        table["mass_balance_flag"] = balance.flagged
+        if not balance.holds:
+            warnings.append(f"mass balance drifts beyond {balance.k:g} sigma in {int(balance.flagged.sum())} spectra")
+
+
+@dataclass(frozen=True)
+class SeriesRun:
+    """A batch run: the table and the per-file measurements behind it."""
+
+    table: pd.DataFrame
+    measurements: tuple[FileMeasurement, ...]
+    reference: Reference
+    config: RunConfig = field(repr=False)
+
+
+def run_series(config: RunConfig) -> SeriesRun:
+    """Batch path: every file of the folder through :func:`measure_file`, then the table."""
+    files = list_files(config)
+    reference = make_reference(files[0], config)
+    measurements = tuple(measure_file(path, config, reference) for path in files)
+    return SeriesRun(table_from_measurements(measurements, config), measurements, reference, config)
+
+
+def run_config_to_table(path: str | Path) -> pd.DataFrame:
+    """Load a single-run TOML config and return its tidy table."""
+    return run_series(load_run_config(path)).table
+
+
+def write_table(df: pd.DataFrame, path: str | Path) -> list[Path]:
+    """Write ``df`` as CSV at ``path`` (and as Parquet beside it when pyarrow is installed)."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    df.to_csv(path, index=False)
+    written = [path]
+    try:
+        import pyarrow  # noqa: F401
+    except ImportError:
+        return written
+    parquet = path.with_suffix(".parquet")
+    df.to_parquet(parquet, index=False)
+    written.append(parquet)
+    return written
+
+
+# ---------------------------------------------------------------- one file, ad hoc regions
+def parse_region(text: str) -> tuple[str, tuple[float, float], int]:
+    """'NAME=LO:HI[:NUCLEI]' -> (name, (low, high), nuclei); ConfigError('--region') otherwise."""
+    name, sep, rest = text.partition("=")
+    parts = rest.split(":")
+    if not sep or not name or len(parts) not in (2, 3):
+        raise ConfigError("--region", f"expected NAME=LO:HI[:NUCLEI], got {text!r}")
+    try:
+        lo, hi = float(parts[0]), float(parts[1])
+        nuclei = int(parts[2]) if len(parts) == 3 else 1
+    except ValueError as error:
+        raise ConfigError("--region", f"{text!r}: {error}") from error
+    if lo == hi or nuclei < 1:
+        raise ConfigError("--region", f"{text!r}: need LO != HI and NUCLEI >= 1")
+    return name, (min(lo, hi), max(lo, hi)), nuclei
+
+
+def integrate_file(path: str | Path, regions, *, reference_ppm: float | None = None, baseline: str = "edges",
+                   local_phase: bool = False, noise_region_ppm=None, edge_fraction: float = 0.1) -> dict:
+    """Region integrals of one file (``kinetics integrate``), as a JSON-ready dict.
+
+    A FID is processed with the default :class:`~kinetics.processing.Pipeline`; a
+    spectrum is used as stored.  ``reference_ppm`` moves the tallest point within 0.3 ppm
+    of it to it first.  Returns ``{"file", "sha256", "unit", "noise_sigma",
+    "noise_region_ppm", "regions": [{"name", "ppm", "nuclei", "integral", "per_nucleus",
+    "sigma", "truncation_loss", "phase_deg"}]}``.
+    """
+    from kinetics.processing import Pipeline, reference
+    from kinetics.spectra.reader import read
+    from kinetics.spectra.spectrum import Fid
+
+    record = read(path)
+    spectrum = Pipeline.from_config({})(record).spectrum if isinstance(record, Fid) else record
+    if reference_ppm is not None:
+        try:
+            spectrum = reference(spectrum, reference_ppm, 0.3).spectrum
+        except ValueError as error:
+            raise ConfigError("--reference", str(error)) from error
+    defs = [sg.SignalDefinition(name=name, species=name, window_ppm=window, nuclei=nuclei)
+            for name, window, nuclei in regions]
+    sg.validate_signals(defs, spectrum.ppm_range, key="--region")
+    noise = sg.estimate_noise(spectrum, noise_region_ppm, exclude_ppm=[d.window_ppm for d in defs],
+                              detrend_order=1 if baseline == "edges" else 0)
+    out = []
+    for d in defs:
+        r = sg.integrate_region(spectrum, d.window_ppm, noise, name=d.name, nuclei=d.nuclei, baseline=baseline,
+                                edge_fraction=edge_fraction, local_phase=local_phase)
+        out.append({"name": d.name, "ppm": list(d.window_ppm), "nuclei": d.nuclei, "integral": r.integral,
+                    "per_nucleus": r.per_nucleus, "sigma": r.sigma, "per_nucleus_sigma": r.per_nucleus_sigma,
+                    "truncation_loss": r.truncation_loss, "phase_deg": r.phase_deg})
+    return {"file": str(path), "sha256": record.sha256 or sha256_of_file(path),
+            "kind": "fid" if isinstance(record, Fid) else "spectrum", "unit": "ppm x intensity",
+            "baseline": baseline, "local_phase": local_phase, "noise_sigma": noise.sigma,
+            "noise_region_ppm": [list(r) for r in noise.region_ppm], "regions": out}
