@@ -166,6 +166,70 @@ def _bench_spectra(quick: bool) -> list[BenchRow]:
 SECTIONS.append(("spectra", _bench_spectra))
 
 
+# ---------------------------------------------------------------- processing (issue 2, FID -> spectrum)
+def _bench_processing(quick: bool) -> list[BenchRow]:
+    """Read + process JCAMP-DX FIDs with the default pipeline (DC offset, filter delay,
+    0.3 Hz broadening, zero-fill x2, FFT, ACME auto-phase): one 32k-point FID, and a
+    64-spectrum series of 16k-point FIDs (aligned on a window).  Also the simulator.
+
+    Floor: reading the files' bytes plus one numpy FFT of each FID's size.
+    """
+    import tempfile
+    from pathlib import Path
+
+    from kinetics import processing, simulate
+    from kinetics.spectra.jcampdx import write_fid
+    from kinetics.spectra.reader import read
+
+    rng = np.random.default_rng(20261202)
+    ester = simulate.SpeciesSignals("ester", (
+        simulate.Multiplet(4.10, 2, j_hz=7.1, multiplicity=4), simulate.Multiplet(2.05, 3),
+        simulate.Multiplet(1.25, 3, j_hz=7.1, multiplicity=3)))
+    alcohol = simulate.SpeciesSignals("alcohol", (simulate.Multiplet(3.65, 2, j_hz=7.0, multiplicity=4),
+                                                  simulate.Multiplet(1.18, 3, j_hz=7.0, multiplicity=3)))
+    tms = simulate.SpeciesSignals("TMS", (simulate.Multiplet(0.0, 12),))
+    pipeline = processing.Pipeline.from_config({})
+    rows = []
+    with tempfile.TemporaryDirectory() as folder:
+        big = simulate.Acquisition(observe_mhz=60.0, n_points=32768)
+        path = Path(folder) / "fid32k.jdx"
+        write_fid(path, simulate.simulate_fid([ester, alcohol, tms], {"ester": 0.5, "alcohol": 0.5, "TMS": 0.02},
+                                              rng, big, snr=500, phase0_deg=35.0), compression="dif")
+        runs = 3 if quick else 15
+        median, p95 = time_runs(lambda: pipeline(read(path)), runs)
+        data = rng.normal(size=big.n_points) + 1j * rng.normal(size=big.n_points)
+        floor, _ = time_runs(lambda: (path.read_bytes(), np.fft.fft(data)), runs)
+        rows.append(BenchRow("processing", "read + process one 32k-point JCAMP-DX FID", median, p95, runs,
+                             floor, "default pipeline; floor = read bytes + one 32k FFT"))
+
+        series = simulate.Acquisition(observe_mhz=60.0, n_points=16384)
+        times_s = np.arange(64) * 60.0 + 30.0
+        ester_c = 0.5 * np.exp(-2e-4 * times_s)
+        curves = {"ester": ester_c, "alcohol": 0.5 - ester_c, "TMS": np.full(64, 0.02)}
+        sim_runs = 1 if quick else 3
+        sim_median, sim_p95 = time_runs(
+            lambda: [simulate.simulate_fid([ester, alcohol, tms], {k: v[i] for k, v in curves.items()}, rng,
+                                           series, noise_sigma=1.0) for i in range(64)], sim_runs, warmup=0)
+        rows.append(BenchRow("processing", "simulate 64 x 16k-point FIDs (in memory)", sim_median, sim_p95,
+                             sim_runs, None, "exact sums of damped exponentials, 24 lines each"))
+        run_folder = Path(folder) / "series"
+        simulate.write_series(run_folder, times_s, curves, [ester, alcohol, tms], rng, acquisition=series,
+                              kind="fid", snr=300, drift_ppm=np.linspace(0, 0.01, 64))
+        paths = sorted(run_folder.glob("fid_*.jdx"))
+        series_runs = 1 if quick else 3
+        median, p95 = time_runs(
+            lambda: processing.process_series([read(p) for p in paths], pipeline, align_window_ppm=(0.1, -0.1)),
+            series_runs, warmup=0)
+        block = rng.normal(size=series.n_points) + 1j * rng.normal(size=series.n_points)
+        floor, _ = time_runs(lambda: [(p.read_bytes(), np.fft.fft(block)) for p in paths], series_runs)
+        rows.append(BenchRow("processing", "read + process + align a 64-FID series (16k each)", median, p95,
+                             series_runs, floor, f"{median / 64 * 1e3:.0f} ms per FID; floor = bytes + 64 FFTs"))
+    return rows
+
+
+SECTIONS.append(("processing", _bench_processing))
+
+
 # ---------------------------------------------------------------- rates (issue 4)
 def _bench_rates(quick: bool) -> list[BenchRow]:
     from kinetics.rates.benchmarks import bench_rates

@@ -179,7 +179,7 @@ def _add_init(sub) -> None:
                    help="config to write (default: <folder name>.toml beside the folder)")
     p.add_argument("--force", action="store_true", help="replace an existing config")
     p.add_argument("--coupling-hz", type=float, default=8.0,
-                   help="largest J between lines of one multiplet, Hz (default 8; ~18 for trans alkenes)")
+                   help="largest J between adjacent lines of one multiplet, Hz (default 8; the two halves of a trans-alkene dd are joined without it)")
     p.set_defaults(func=_cmd_init)
 
 

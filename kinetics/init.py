@@ -10,7 +10,10 @@ nuclei, the internal standard) before ``kinetics run``.
 The grouping rule: first-order multiplets at 40-100 MHz have adjacent lines one J apart
 (H-H couplings through three bonds are 6-8 Hz, common practice), so lines closer than
 ``max_gap_hz`` (default 1.6 x 8 Hz) belong to one window.  At 60 MHz a 7 Hz coupling is
-0.12 ppm, so a quartet spans 0.35 ppm.  Windows get a margin of several line widths on
+0.12 ppm, so a quartet spans 0.35 ppm.  Larger couplings (trans alkenes, 12-18 Hz) split
+a multiplet into two halves further apart than that; two adjacent runs of lines that
+repeat one pattern (same line count >= 2, spacings and relative heights) within
+``LARGE_COUPLING_HZ`` are joined, so no flag is needed for them.  Windows get a margin of several line widths on
 each side (a Lorentzian window of +/- m half-widths holds (2/pi) arctan(m) of the area)
 but never reach past the midpoint to the next group, so windows never overlap.
 """
@@ -40,6 +43,9 @@ SPECTRUM_SUFFIXES = (".dx", ".jdx", ".jcamp", ".jcm", ".csv", ".tsv", ".txt", ".
 _TMS_WINDOW_PPM = 0.15       # a reference line must lie within this of 0 ppm
 _SOLVENT_FACTOR = 5.0        # a solvent line is this many times the next-largest group
 _MINOR_FRACTION = 0.3        # signals below this share of the median integral are "minor"
+#: Largest H-H coupling expected between the halves of one multiplet: trans-alkene 3J is
+#: 12-18 Hz (common practice), so the halves of a trans dd lie up to ~18 Hz apart.
+LARGE_COUPLING_HZ = 18.0
 
 
 @dataclass(frozen=True)
@@ -244,15 +250,63 @@ def pick_peaks(spectrum: Spectrum, snr_threshold: float = 8.0,
     return peaks, noise, threshold
 
 
-def group_peaks(peaks: list[Peak], observe_mhz: float, max_gap_hz: float) -> list[list[Peak]]:
-    """Runs of lines (sorted high to low shift) whose neighbours are within ``max_gap_hz``."""
-    groups: list[list[Peak]] = []
+def group_peaks(peaks: list[Peak], observe_mhz: float, max_gap_hz: float,
+                large_coupling_hz: float | None = LARGE_COUPLING_HZ,
+                resolution_hz: float = 0.0) -> list[list[Peak]]:
+    """Lines grouped into multiplets, high shift first.
+
+    First, runs of lines whose neighbours are within ``max_gap_hz``.  Then two adjacent
+    runs are joined when they look like the two halves of one line split by a large
+    coupling (a trans-alkene doublet of doublets or doublet of quartets): centres at most
+    1.1 x ``large_coupling_hz`` apart, the same number (>= 2) of lines with the same
+    spacings and the same relative heights, and similar total heights.  Single lines are
+    never joined this way: two nearby singlets are far more often two species than one
+    large doublet.  ``large_coupling_hz=None`` turns the second step off.
+    """
+    runs: list[list[Peak]] = []
     for peak in sorted(peaks, key=lambda p: -p.shift_ppm):
-        if groups and (groups[-1][-1].shift_ppm - peak.shift_ppm) * observe_mhz <= max_gap_hz:
-            groups[-1].append(peak)
+        if runs and (runs[-1][-1].shift_ppm - peak.shift_ppm) * observe_mhz <= max_gap_hz:
+            runs[-1].append(peak)
         else:
-            groups.append([peak])
+            runs.append([peak])
+    if not large_coupling_hz:
+        return runs
+    groups: list[list[Peak]] = []
+    index = 0
+    while index < len(runs):
+        if index + 1 < len(runs) and _mirror_halves(runs[index], runs[index + 1], observe_mhz,
+                                                    large_coupling_hz, resolution_hz):
+            groups.append(runs[index] + runs[index + 1])
+            index += 2  # a joined pair is not joined again (no chains of halves)
+        else:
+            groups.append(runs[index])
+            index += 1
     return groups
+
+
+def _mirror_halves(upper: list[Peak], lower: list[Peak], observe_mhz: float, large_coupling_hz: float,
+                   resolution_hz: float) -> bool:
+    """True when two runs of lines repeat one pattern a large coupling apart (see group_peaks)."""
+    if len(upper) != len(lower) or len(upper) < 2:
+        return False
+    centre_hz = [0.5 * (run[0].shift_ppm + run[-1].shift_ppm) * observe_mhz for run in (upper, lower)]
+    if centre_hz[0] - centre_hz[1] > 1.1 * large_coupling_hz:
+        return False
+    spacing_upper = -np.diff([p.shift_ppm for p in upper]) * observe_mhz
+    spacing_lower = -np.diff([p.shift_ppm for p in lower]) * observe_mhz
+    # Peak tops sit on the digital grid, so spacings agree only to about two points.
+    tolerance_hz = max(0.6, 2.0 * resolution_hz, 0.15 * float(max(spacing_upper.max(), spacing_lower.max())))
+    if np.any(np.abs(spacing_upper - spacing_lower) > tolerance_hz):
+        return False
+    height_upper = np.array([p.height for p in upper])
+    height_lower = np.array([p.height for p in lower])
+    ratio = height_upper.sum() / height_lower.sum()
+    # Second-order "roofing" tilts the halves towards the coupling partner (common practice):
+    # a factor of 2 still passes, a reactant and a product doublet at t = 0 rarely do.
+    if not 0.5 <= ratio <= 2.0:
+        return False
+    pattern_gap = np.abs(height_upper / height_upper.sum() - height_lower / height_lower.sum())
+    return bool(np.all(pattern_gap <= 0.15))
 
 
 def _window_bounds(groups: list[list[Peak]], observe_mhz: float, margin_hz: float,
@@ -335,7 +389,8 @@ def _nuclei_unit(integrals: list[float]) -> float:
 
 
 def propose_windows(spectrum: Spectrum, *, snr_threshold: float = 8.0, coupling_hz: float = 8.0,
-                    gap_factor: float = 1.6, margin_hz: float = 10.0, min_relative_height: float = 0.02):
+                    gap_factor: float = 1.6, margin_hz: float = 10.0, min_relative_height: float = 0.02,
+                    large_coupling_hz: float | None = LARGE_COUPLING_HZ):
     """Peaks, noise and proposed windows of one spectrum (no files touched).
 
     Parameters
@@ -349,6 +404,9 @@ def propose_windows(spectrum: Spectrum, *, snr_threshold: float = 8.0, coupling_
         Largest coupling expected between lines of one multiplet, Hz.
     gap_factor : float
         Adjacent lines closer than ``gap_factor * coupling_hz`` share a window.
+    large_coupling_hz : float or None
+        Two runs of lines that mirror each other within this coupling are joined into one
+        multiplet (the halves of a trans-alkene dd); see :func:`group_peaks`.
     margin_hz : float
         Least margin beyond the outer lines of a window (6 line widths when wider), Hz.
 
@@ -359,7 +417,8 @@ def propose_windows(spectrum: Spectrum, *, snr_threshold: float = 8.0, coupling_
     windows : list of ProposedWindow, high shift first
     """
     peaks, noise, threshold = pick_peaks(spectrum, snr_threshold, min_relative_height)
-    groups = group_peaks(peaks, spectrum.observe_mhz, gap_factor * coupling_hz)
+    groups = group_peaks(peaks, spectrum.observe_mhz, gap_factor * coupling_hz, large_coupling_hz,
+                         resolution_hz=spectrum.spacing_hz)
     bounds = _window_bounds(groups, spectrum.observe_mhz, margin_hz,
                             (spectrum.ppm_range[0], spectrum.ppm_range[1]))
     integrals = [_integral(spectrum, lo, hi) for lo, hi in bounds]

@@ -59,6 +59,8 @@ __all__ = [
     "correct_baseline",
     "reference",
     "ReferenceResult",
+    "peak_position",
+    "shift_axis",
     "align_series",
     "AlignmentResult",
     "noise_sigma",
@@ -231,7 +233,7 @@ def fft(fid: Fid, first_point_scale: float = 0.5) -> Spectrum:
     first_point_scale : float, default 0.5
         Factor for the first point before the transform: 0.5 makes the discrete sum the
         trapezoid rule of the continuous transform, so no constant offset appears
-        (Otting, Widmer and Wüthrich 1986).
+        (Otting et al. 1986, J. Magn. Reson. 66, 187; from memory).
 
     Returns
     -------
@@ -328,7 +330,7 @@ class PhaseResult:
 def acme_score(real: np.ndarray, penalty_weight: float = 1000.0, noise_sigma: float = 0.0) -> float:
     """ACME objective: entropy of the first derivative plus a negativity penalty.
 
-    Chen, Weng, Goh and Garland 2002, J. Magn. Reson. 158, 164-168::
+    Chen, Weng, Goh and Garland 2002, J. Magn. Reson. 158, 164-168 (from memory)::
 
         h_i = |R'_i| / sum |R'|,   E = -sum h_i ln h_i,
         P = gamma * sum_{R_i < 0} R_i^2       (R scaled to max |R| = 1)
@@ -377,8 +379,8 @@ def auto_phase(
     so a local optimiser started at (0, 0) often stalls.  Here p1 is scanned on a grid
     (20-degree steps) over ``[-p1_range_deg, p1_range_deg]``; for each trial p1 the
     zero-order phase is set in closed form to minus the angle of ``sum z |z|`` (the
-    magnitude-weighted mean phase, which makes absorption lines positive), and the two
-    best grid points are polished by Nelder-Mead on (p0, p1).
+    magnitude-weighted mean phase, which makes absorption lines positive), and the
+    best grid point is polished by Nelder-Mead on (p0, p1).
 
     Large first-order phases from a filter delay should first be removed with
     :func:`remove_group_delay` (the remainder is below a point, i.e. below 360 degrees).
@@ -430,16 +432,32 @@ def auto_phase(
     return PhaseResult(phased, p0_deg, float(p1_deg), float(pivot_ppm), float(score), ok, message)
 
 
+def _linear_phasor(offset_rad: float, step_rad: float, n: int, block: int = 256) -> np.ndarray:
+    """exp(i (offset + step k)) for k = 0..n-1, as an outer product of two short phasor
+    vectors (a few times faster than n sines and cosines; error ~1e-13)."""
+    rows = -(-n // block)
+    coarse = np.exp(1j * (offset_rad + step_rad * block * np.arange(rows)))
+    fine = np.exp(1j * step_rad * np.arange(block))
+    return np.outer(coarse, fine).ravel()[:n]
+
+
 def _phase_by_acme(zr, ramp, p1_range_deg, noise_sigma: float = 0.0, p1_step_deg: float = 20.0):
     weight = np.abs(zr)
-    zr_real, zr_imag = zr.real.copy(), zr.imag.copy()
+    start, step = float(ramp[0]), float(ramp[1] - ramp[0]) if ramp.size > 1 else 0.0
+    linear = np.allclose(ramp, start + step * np.arange(ramp.size), rtol=0, atol=1e-9)
 
     def rotated_real(p0_deg: float, p1_deg: float) -> np.ndarray:
-        angle = np.deg2rad(p0_deg) + p1_deg * ramp
-        return zr_real * np.cos(angle) - zr_imag * np.sin(angle)
+        if linear:
+            phasor = _linear_phasor(np.deg2rad(p0_deg) + p1_deg * start, p1_deg * step, zr.size)
+        else:
+            phasor = np.exp(1j * (np.deg2rad(p0_deg) + p1_deg * ramp))
+        return zr.real * phasor.real - zr.imag * phasor.imag
 
     def closed_form_p0(p1_deg: float) -> float:
-        w = zr * np.exp(1j * p1_deg * ramp)
+        if linear:
+            w = zr * _linear_phasor(p1_deg * start, p1_deg * step, zr.size)
+        else:
+            w = zr * np.exp(1j * p1_deg * ramp)
         return float(-np.degrees(np.angle(np.sum(w * weight))))
 
     def score(params: np.ndarray) -> float:
@@ -451,10 +469,10 @@ def _phase_by_acme(zr, ramp, p1_range_deg, noise_sigma: float = 0.0, p1_step_deg
         trials.append((score(np.array([p0, p1])), p0, p1))
     trials.sort()
     best = None
-    for _, p0, p1 in trials[:2]:
+    for _, p0, p1 in trials[:1]:
         result = optimize.minimize(
             score, np.array([p0, p1]), method="Nelder-Mead",
-            options={"xatol": 0.02, "fatol": 1e-9, "maxiter": 2000, "initial_simplex":
+            options={"xatol": 0.05, "fatol": 1e-8, "maxiter": 2000, "initial_simplex":
                      np.array([[p0, p1], [p0 + 10, p1], [p0, p1 + 0.5 * p1_step_deg]])},
         )
         if best is None or result.fun < best.fun:
@@ -1058,6 +1076,7 @@ class Pipeline:
                 sigma = noise_sigma(spectrum, self.noise_region_ppm)
             except ValueError as error:
                 notes.append(f"no noise estimate: {error}")
+        log.debug("processed %s: %s", record.source_path or "<memory>", "; ".join(notes))
         return ProcessedSpectrum(spectrum, p0, p1, pivot, delay, shift, sigma, succeeded, tuple(notes))
 
 

@@ -17,7 +17,8 @@ conversion, yield and the mass balance.
 
 Table columns: ``index, file, sha256, time_s, time_source, acquired_mid_utc, duration_s,
 alignment_shift_ppm, noise_sigma`` and per signal ``<name>_integral, <name>_sigma,
-<name>_shift_ppm, <name>_concentration, <name>_concentration_sigma, <name>_flags``, per
+<name>_shift_ppm, <name>_concentration, <name>_concentration_sigma,
+<name>_truncation_loss`` (NaN for fits) ``, <name>_flags``, per
 species ``<species>_concentration, <species>_concentration_sigma``, then
 ``conversion(_sigma)``, ``yield(_sigma)``, ``mass_balance_deviation(_sigma)``,
 ``mass_balance_flag``.  Concentrations are mol/L (``df.attrs['concentration_unit']``;
@@ -47,6 +48,8 @@ from kinetics.spectra.spectrum import Spectrum, sha256_of_file
 log = logging.getLogger(__name__)
 
 WEAK_SNR = 5.0  # below this integral/sigma a window is not re-centred (nothing to follow)
+REFERENCE_SNR = 20.0  # a reference centroid needs this integral/sigma, else the window centre is used
+CENTROID_SIGMAS = 3.0  # only intensity above this many noise sigmas counts in a centroid
 
 
 # ---------------------------------------------------------------- records
@@ -266,8 +269,9 @@ def make_reference(path: str | Path, config: RunConfig) -> Reference:
             continue
         region = sg.integrate_region(spectrum, sig.window_ppm, noise, baseline=config.integration.baseline,
                                      edge_fraction=config.integration.edge_fraction)
-        strong = region.sigma > 0 and region.integral / region.sigma >= WEAK_SNR
-        centroids[sig.name] = sg.centroid_ppm(spectrum, sig.window_ppm) if strong else sig.center_ppm
+        strong = region.sigma > 0 and region.integral / region.sigma >= REFERENCE_SNR
+        centroids[sig.name] = (sg.centroid_ppm(spectrum, sig.window_ppm, CENTROID_SIGMAS * noise.sigma)
+                               if strong else sig.center_ppm)
     points = {group: int(sg.window_data(spectrum, sg.fit_window(members))[0].size)
               for group, members in _fit_groups(config).items()}
     return Reference(spectrum=spectrum, centroids_ppm=MappingProxyType(centroids),
@@ -299,7 +303,7 @@ def _measure_integral(spectrum, sig, noise, reference: Reference, config: RunCon
         flags.append("weak")
     if sig.tolerance_ppm > 0 and not weak:
         tracked = sg.track(spectrum, window, reference.centroids_ppm.get(sig.name, sig.center_ppm),
-                           sig.tolerance_ppm)
+                           sig.tolerance_ppm, threshold=CENTROID_SIGMAS * noise.sigma)
         window, shift = tracked.window_ppm, tracked.shift_ppm
         if tracked.left_window:
             flags.append("left_window")
@@ -506,6 +510,7 @@ def table_from_measurements(measurements: Sequence[FileMeasurement], config: Run
     sigma = np.array([[x.signal(s.name).sigma for x in ms] for s in config.signals], float).reshape(k, m)
     shift = np.array([[x.signal(s.name).shift_ppm for x in ms] for s in config.signals], float).reshape(k, m)
     flags = [[list(x.signal(s.name).flags) for x in ms] for s in config.signals]
+    loss = np.array([[x.signal(s.name).truncation_loss for x in ms] for s in config.signals], float).reshape(k, m)
     notes: list[str] = []
     warnings: list[str] = []
     if config.integration.global_fit and m >= 2 and _fit_groups(config):
@@ -527,6 +532,7 @@ def table_from_measurements(measurements: Sequence[FileMeasurement], config: Run
         table[f"{sig.name}_shift_ppm"] = shift[col]
         table[f"{sig.name}_concentration"] = conc[col]
         table[f"{sig.name}_concentration_sigma"] = csig[col]
+        table[f"{sig.name}_truncation_loss"] = loss[col]
         table[f"{sig.name}_flags"] = [";".join(f) for f in flags[col]]
     species_c, species_s, species_names = _species_table(config, conc, csig, unit, table)
     _derived(config, species_c, species_s, species_names, table, warnings)

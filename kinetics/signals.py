@@ -272,10 +272,9 @@ def estimate_noise(spectrum: Spectrum, region_ppm=None, exclude_ppm=(), max_lag:
     Each signal-free segment is detrended by a polynomial of ``detrend_order`` (1 matches
     the straight edge baseline of the integrals: slow baseline wander is not counted as
     noise, because the local baseline removes it), the pooled autocovariance is computed
-    by FFT (biased estimator, which tapers the long lags), and rho(k) = c(k) / c(0).  All
-    lags up to ``max_lag`` (or the segment length) are kept: cutting at the first
-    insignificant lag drops the long Lorentzian tail that exponential apodisation puts
-    into the correlation and made sigma about 15 % too small in calibration runs.
+    by FFT (biased estimator, which tapers the long lags), and rho(k) = c(k) / c(0).  The
+    lags up to three times the first insignificant one are kept (see
+    :func:`_correlation_length`).
 
     Parameters
     ----------
@@ -302,9 +301,26 @@ def estimate_noise(spectrum: Spectrum, region_ppm=None, exclude_ppm=(), max_lag:
     if not acov[0] > 0:
         raise FitError(f"noise region {ranges} is flat (zero noise); choose another noise_region_ppm")
     rho = acov / acov[0]
+    rho = rho[: _correlation_length(rho, count) + 1].copy()
     removed = (detrend_order + 1) * len(segments)
     sigma = math.sqrt(acov[0] * count / max(count - removed, 1))
     return NoiseEstimate(sigma=sigma, autocorrelation=rho, region_ppm=tuple(ranges), n_points=count)
+
+
+def _correlation_length(rho: np.ndarray, count: int) -> int:
+    """Largest lag kept: three times the first lag where rho is no longer significant.
+
+    Significance is |rho| < 2 / sqrt(count) for a 3-lag running mean.  Keeping every
+    lag makes each sigma noisy (the noise of rho at long lags adds up, about +/-20 % for
+    a 500-point window), cutting at the first insignificant lag drops the long tail that
+    exponential apodisation gives the correlation (sigma ~15 % low); three times that lag
+    keeps all but a few per cent of a Lorentzian correlation's sum.
+    """
+    threshold = 2.0 / math.sqrt(count)
+    smooth = np.convolve(np.abs(rho), np.ones(3) / 3.0, mode="same")
+    below = np.flatnonzero(smooth[1:] < threshold)
+    first = int(below[0]) + 1 if below.size else rho.size - 1
+    return int(min(rho.size - 1, 3 * first + 2))
 
 
 def sum_sigma(weights: np.ndarray, noise: NoiseEstimate) -> float:
@@ -520,23 +536,29 @@ class TrackResult:
     left_window: bool
 
 
-def centroid_ppm(spectrum: Spectrum, window_ppm) -> float:
-    """Intensity-weighted mean shift of the positive, edge-baseline-corrected window content."""
+def centroid_ppm(spectrum: Spectrum, window_ppm, threshold: float = 0.0) -> float:
+    """Intensity-weighted mean shift of the window content above ``threshold``.
+
+    The content is taken above a straight line through the two end points; only the
+    part above ``threshold`` (e.g. 3 noise sigmas) counts, so noise far from the signal
+    does not pull the centroid towards the window centre.
+    """
     idx = _window_indices(spectrum.ppm, window_ppm)
     ppm, values = spectrum.ppm[idx], spectrum.real[idx]
     line = np.interp(ppm, [ppm[-1], ppm[0]], [values[-1], values[0]])
-    positive = np.clip(values - line, 0, None)
+    positive = np.clip(values - line - threshold, 0, None)
     if positive.sum() <= 0:
         return 0.5 * (window_ppm[0] + window_ppm[1])
     return float(np.sum(ppm * positive) / positive.sum())
 
 
 def track(spectrum: Spectrum, window_ppm, reference_centroid_ppm: float, tolerance_ppm: float,
-          iterations: int = 6) -> TrackResult:
+          iterations: int = 8, threshold: float = 0.0) -> TrackResult:
     """Re-centre ``window_ppm`` on the signal (centroid iterations) within ``tolerance_ppm``.
 
     The shift is measured against the centroid the signal had in the reference spectrum,
     so a window that was not centred on its signal reports no spurious drift.
+    ``threshold`` is passed to :func:`centroid_ppm` (3 noise sigmas in the series path).
     """
     lo, hi = window_ppm
     if tolerance_ppm <= 0:
@@ -544,7 +566,7 @@ def track(spectrum: Spectrum, window_ppm, reference_centroid_ppm: float, toleran
     shift = 0.0
     wanted = 0.0
     for _ in range(iterations):
-        wanted = centroid_ppm(spectrum, (lo + shift, hi + shift)) - reference_centroid_ppm
+        wanted = centroid_ppm(spectrum, (lo + shift, hi + shift), threshold) - reference_centroid_ppm
         new = float(np.clip(wanted, -tolerance_ppm, tolerance_ppm))
         if abs(new - shift) < 0.1 * spectrum.spacing_ppm:
             shift = new

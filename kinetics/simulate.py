@@ -39,7 +39,7 @@ from __future__ import annotations
 import csv
 import json
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from datetime import datetime, timedelta, timezone
 from pathlib import Path
 from typing import Mapping, Sequence
@@ -235,23 +235,33 @@ def _spectrum_phase(acquisition: Acquisition, phase0_deg, phase1_deg, pivot_ppm)
 
 def _fid_of_lines(lines, acquisition: Acquisition, phase0_rad: float = 0.0, tau_s: float = 0.0) -> np.ndarray:
     """Sampled ``s(tau + k dwell)`` of ``s(t) = sum a exp(i phase0) exp((2 pi i f - pi w) t) g(t)``."""
-    t = np.arange(acquisition.n_points) * acquisition.dwell_s + tau_s
+    t = np.arange(acquisition.n_points) * acquisition.dwell_s + tau_s  # for the Gaussian envelope
     freq_hz = (lines["shift_ppm"] - acquisition.carrier_ppm) * acquisition.observe_mhz + lines["offset_hz"]
     rate = 2j * math.pi * freq_hz - math.pi * lines["width_hz"]
     coefficient = lines["amplitude"] * np.exp(1j * phase0_rad)
-    # one exponential per line, summed as a matrix product; lines sharing a Gaussian
-    # width share its envelope
+    # lines sharing a Gaussian width share its envelope
     gaussian = lines["gaussian_hz"]
     data = np.zeros(t.size, complex)
     for g in np.unique(gaussian):
         chosen = np.flatnonzero(gaussian == g)
-        for start in range(0, chosen.size, 64):  # bounded memory: 64 lines at a time
-            block = chosen[start:start + 64]
-            part = np.exp(np.outer(t, rate[block])) @ coefficient[block]
-            if g > 0:
-                part *= np.exp(-((math.pi * g * t) ** 2) / (4.0 * _LN2))
-            data += part
+        part = _sum_of_exponentials(coefficient[chosen] * np.exp(rate[chosen] * tau_s),
+                                    rate[chosen] * acquisition.dwell_s, t.size)
+        if g > 0:
+            part *= np.exp(-((math.pi * g * t) ** 2) / (4.0 * _LN2))
+        data += part
     return data
+
+
+def _sum_of_exponentials(coefficient: np.ndarray, rate_per_point: np.ndarray, n: int, block: int = 128) -> np.ndarray:
+    """``x[k] = sum_j c_j exp(r_j k)`` for k < n, as a (n/block x L) @ (L x block) product.
+
+    With ``k = q * block + r``: ``exp(r_j k) = exp(r_j block q) exp(r_j r)``, so only
+    ``(n / block + block) * L`` exponentials are needed instead of ``n * L``.
+    """
+    rows = -(-n // block)
+    coarse = np.exp(np.outer(np.arange(rows) * block, rate_per_point)) * coefficient  # (rows, L)
+    fine = np.exp(np.outer(rate_per_point, np.arange(block)))  # (L, block)
+    return (coarse @ fine).ravel()[:n]
 
 
 def _band_limited_delay(data: np.ndarray, delay_points: float, beta: float = 8.0) -> np.ndarray:
@@ -502,6 +512,8 @@ def write_series(
     baseline_roll: float = 0.0,
     solvent: Multiplet | None = None,
     amplitude_per_nucleus: float = 1.0,
+    group_delay_points: float = 0.0,
+    declare_group_delay: bool = True,
     title: str = "simulated reaction",
 ) -> Path:
     """Write a folder of spectra (or FIDs) as an instrument would, plus a manifest of the truth.
@@ -539,6 +551,8 @@ def write_series(
         Roll amplitude as a fraction of the first spectrum's tallest point.
     solvent : Multiplet, optional
     amplitude_per_nucleus : float, default 1.0
+    group_delay_points, declare_group_delay : float, bool
+        Digital-filter delay of FIDs (see :func:`simulate_fid`); ignored for spectra.
     title : str
         JCAMP-DX ``##TITLE`` prefix.
 
@@ -569,7 +583,12 @@ def write_series(
     if snr is not None and reference_height <= 0:
         raise ValueError("the first spectrum has no signal to define the SNR against")
     sigma = None if snr is None else reference_height / snr
-    simulate = simulate_fid if kind == "fid" else simulate_spectrum
+    if kind == "fid":
+        def simulate(*args, **kwargs):
+            return simulate_fid(*args, group_delay_points=group_delay_points,
+                                declare_group_delay=declare_group_delay, **kwargs)
+    else:
+        simulate = simulate_spectrum
     rows = []
     for i in range(m):
         acquired = start_utc + timedelta(seconds=float(times[i]) - scan_duration_s / 2.0)
@@ -595,6 +614,8 @@ def write_series(
         "spectral_width_ppm": acquisition.spectral_width_ppm, "carrier_ppm": acquisition.carrier_ppm,
         "nucleus": acquisition.nucleus, "kind": kind, "format": format,
         "snr_first_spectrum": snr, "noise_sigma": sigma, "baseline_roll": baseline_roll,
+        "group_delay_points": group_delay_points if kind == "fid" else 0.0,
+        "group_delay_declared": bool(declare_group_delay),
         "amplitude_per_nucleus": amplitude_per_nucleus,
         "time_convention": "time_mid_s = acquisition midpoint, seconds after start_utc",
         "species": [_species_dict(s) for s in spin_systems],

@@ -157,12 +157,17 @@ def test_later_unreadable_file_is_skipped_and_noted(spectra_folder, tmp_path):
 
 @pytest.mark.parametrize("name, groups, coupling_hz", [
     # Windows and proton counts from tests/data/README.md (open dataset nmr-dataset1,
-    # proton counts from the structures).  Trans-alkene couplings reach ~17 Hz (common
-    # practice), hence --coupling-hz 18 to keep each alkene doublet of doublets together.
+    # proton counts from the structures).  The trans-alkene doublets of doublets (J ~ 16-17
+    # Hz, common practice) must come out whole with the default settings (mirror-halves
+    # rule), and also with a coupling_hz large enough to join them directly.
+    ("butyl-acrylate.1h.dx", [(6.25, 6.40, 1), (5.95, 6.12, 1), (5.68, 5.80, 1), (4.02, 4.16, 2),
+                              (1.52, 1.66, 2), (1.26, 1.42, 2), (0.82, 0.94, 3)], None),
+    ("ethyl-crotonate.1h.fid.dx", [(6.80, 7.02, 1), (5.66, 5.86, 1), (4.00, 4.20, 2), (1.74, 1.86, 3),
+                                   (1.13, 1.27, 3)], None),
+    ("ethyl-crotonate.1h.dx", [(6.80, 7.02, 1), (5.66, 5.86, 1), (4.00, 4.20, 2), (1.74, 1.86, 3),
+                               (1.13, 1.27, 3)], None),
     ("butyl-acrylate.1h.dx", [(6.25, 6.40, 1), (5.95, 6.12, 1), (5.68, 5.80, 1), (4.02, 4.16, 2),
                               (1.52, 1.66, 2), (1.26, 1.42, 2), (0.82, 0.94, 3)], 18.0),
-    ("ethyl-crotonate.1h.fid.dx", [(6.80, 7.02, 1), (5.66, 5.86, 1), (4.00, 4.20, 2), (1.74, 1.86, 3),
-                                   (1.13, 1.27, 3)], 18.0),
 ])
 def test_real_spectra_groups_and_proton_counts(tmp_path, name, groups, coupling_hz):
     import shutil
@@ -171,7 +176,8 @@ def test_real_spectra_groups_and_proton_counts(tmp_path, name, groups, coupling_
     folder = tmp_path / "real"
     folder.mkdir()
     shutil.copy(Path(__file__).parent / "data" / name, folder / name)
-    draft = draft_config(folder, tmp_path / "real.toml", coupling_hz=coupling_hz)
+    options = {} if coupling_hz is None else {"coupling_hz": coupling_hz}
+    draft = draft_config(folder, tmp_path / "real.toml", **options)
     for low, high, protons in groups:
         holders = [w for w in draft.signals if any(low <= p.shift_ppm <= high for p in w.peaks)]
         assert len(holders) == 1, (low, high, [w.window_ppm for w in holders])  # not split
@@ -183,3 +189,53 @@ def test_real_spectra_groups_and_proton_counts(tmp_path, name, groups, coupling_
     if name.startswith("butyl"):
         assert draft.reference is not None and abs(draft.reference.peaks[0].shift_ppm) < 0.01  # TMS
     load_run_config(tmp_path / "real.toml")
+
+
+def test_without_the_mirror_rule_the_trans_alkene_dd_splits():
+    # The control for the test above: with the mirror-halves rule off, the default 8 Hz
+    # grouping cuts the =CH2 trans dd of butyl acrylate (6.25-6.40 ppm, README) in two, so
+    # the rule is what keeps it whole.
+    from pathlib import Path
+
+    from kinetics.init import propose_windows
+    from kinetics.spectra import read
+
+    spectrum = read(Path(__file__).parent / "data" / "butyl-acrylate.1h.dx")
+    for large_coupling_hz, expected in ((None, 2), (18.0, 1)):
+        *_, windows = propose_windows(spectrum, large_coupling_hz=large_coupling_hz)
+        holders = [w for w in windows if any(6.25 <= p.shift_ppm <= 6.40 for p in w.peaks)]
+        assert len(holders) == expected, [w.window_ppm for w in holders]
+
+
+def _dq_lines(centre_ppm: float, j_large_hz: float, j_small_hz: float) -> np.ndarray:
+    # First-order doublet of quartets (textbook rule): two quartets j_large apart, each of
+    # four lines j_small apart, all about the centre.
+    quartet = (np.arange(4) - 1.5) * j_small_hz
+    hz = np.concatenate([quartet + j_large_hz / 2, quartet - j_large_hz / 2])
+    return centre_ppm + hz / MHZ
+
+
+def test_simulated_60_mhz_alkene_doublets_of_quartets_and_close_singlets():
+    # Invented 60 MHz spectrum (truth set here): a crotyl-like alkene with dq at 6.95 ppm
+    # (J 15.5, 6.9 Hz) and 5.84 ppm (J 15.5, 1.7 Hz), and two singlets of two species only
+    # 15 Hz apart (3.30 and 3.05 ppm, similar heights).  Each dq must be one window holding
+    # all eight of its lines; the two singlets must stay two windows (never read as a
+    # doublet).
+    from kinetics.init import propose_windows
+
+    alkene = simulate.SpeciesSignals("alkene", (simulate.Multiplet(6.95, 1, (15.5, 6.9), (2, 4)),
+                                                simulate.Multiplet(5.84, 1, (15.5, 1.7), (2, 4)),
+                                                simulate.Multiplet(1.88, 3, (6.9, 1.7), (2, 2))))
+    singlets = (simulate.SpeciesSignals("a", (simulate.Multiplet(3.30, 3),)),
+                simulate.SpeciesSignals("b", (simulate.Multiplet(3.05, 3),)))
+    spectrum = simulate.simulate_spectrum([alkene, *singlets], {"alkene": 1.0, "a": 1.0, "b": 0.9},
+                                          np.random.default_rng(3),
+                                          simulate.Acquisition(observe_mhz=MHZ, n_points=16384), snr=300.0)
+    *_, windows = propose_windows(spectrum)
+    for lines in (_dq_lines(6.95, 15.5, 6.9), _dq_lines(5.84, 15.5, 1.7)):
+        inside = [w for w in windows if all(w.window_ppm[0] < x < w.window_ppm[1] for x in lines)]
+        touching = [w for w in windows if any(w.window_ppm[0] < x < w.window_ppm[1] for x in lines)]
+        assert len(inside) == 1 and touching == inside, [w.window_ppm for w in touching]
+    for shift in (3.30, 3.05):
+        holders = [w for w in windows if w.window_ppm[0] < shift < w.window_ppm[1]]
+        assert len(holders) == 1 and len(holders[0].peaks) == 1, [w.window_ppm for w in holders]

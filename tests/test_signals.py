@@ -64,7 +64,7 @@ def _noisy_series(draws: int, rng, line_broadening_hz: float, zero_fill: int | N
 @pytest.mark.parametrize("lb_hz,zero_fill", [(0.0, None), (1.0, 16384)])
 def test_integral_sigma_matches_empirical_scatter(lb_hz, zero_fill):
     # Calibration over 200 seeded noise draws; the apodised, 4x zero-filled case is where
-    # the correlation between points matters (sigma without it is ~3x too small).
+    # the correlation between points matters (the white-noise sigma*dx*sqrt(n) is ~15x too small).
     rng = np.random.default_rng(20261201)
     spectra = _noisy_series(200, rng, lb_hz, zero_fill)
     values, sigmas, naive = [], [], []

@@ -165,10 +165,12 @@ def test_write_series_fids_and_csv(tmp_path):
 
     small = S.Acquisition(observe_mhz=60.0, n_points=4096, spectral_width_ppm=12.0, carrier_ppm=5.0)
     S.write_series(tmp_path / "fid", [30.0, 90.0], {"ester": [1.0, 0.9]}, [ESTER],
-                   np.random.default_rng(0), acquisition=small, kind="fid", snr=300)
+                   np.random.default_rng(0), acquisition=small, kind="fid", snr=300,
+                   phase0_deg=30.0, phase1_deg=-60.0, group_delay_points=20.0)
     fid = read(tmp_path / "fid" / "fid_0001.jdx")
     assert type(fid).__name__ == "Fid" and fid.n_points == 4096
     assert fid.dwell_s == pytest.approx(small.dwell_s, rel=1e-6)
+    assert fid.group_delay_points == pytest.approx(20.0)  # declared; the p1 part is not
     spectrum = P.fid_to_spectrum(fid)
     assert P.peak_position(spectrum, 2.05, 0.05) == pytest.approx(2.05, abs=0.003)
 

@@ -81,10 +81,10 @@ def compare_models(data, candidates=DEFAULT_CANDIDATES, observed="reactant", **o
     table["akaike_weight"] = weights / weights.sum()
     table = table.sort_values("delta_aicc", na_position="last").reset_index(drop=True)
     table = table[["model", "n_params", "chi_square", "aicc", "delta_aicc", "akaike_weight", "converged", "note"]]
-    return ModelComparison(table, _verdict(table), results)
+    return ModelComparison(table, _verdict(table, results), results)
 
 
-def _verdict(table: pd.DataFrame) -> str:
+def _verdict(table: pd.DataFrame, results: dict) -> str:
     ranked = table[table["aicc"].notna()]
     best = ranked.iloc[0]
     text = f"best: {best['model']} (Akaike weight {best['akaike_weight']:.2f})"
@@ -101,4 +101,11 @@ def _verdict(table: pd.DataFrame) -> str:
         judgement = f"{runner['model']} has considerably less support (delta AICc {d:.1f})"
     else:
         judgement = f"the others have essentially no support (next: {runner['model']}, delta AICc {d:.1f})"
-    return f"{text}; {judgement}"
+    text = f"{text}; {judgement}"
+    nth = results.get("nth")
+    if nth is not None and nth.converged:
+        # nth contains zero, first and second order as special cases: its n says which is near.
+        n = nth.param("n")
+        spread = f" +- {n.stderr:.2f}" if n.stderr is not None else ""
+        text += f"; the free-order fit gives n = {n.value:.2f}{spread}"
+    return text

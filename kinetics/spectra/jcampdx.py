@@ -183,16 +183,21 @@ def _header_mapping(block: _Block) -> dict[str, str]:
     return header
 
 
+# JCAMP-DX 5.01: YYYY/MM/DD [HH:MM:SS[.SSSS] [+-UUUU]].  Also read, as exporters write
+# them: "-" for "/", a "T" or ", " before the time, zones as +01, +01:00, Z, UTC, GMT,
+# UTC+01:00.  Day-first dates (25/01/2005) are refused: DD/MM and MM/DD cannot be told apart.
+# Applied to the value with its whitespace runs collapsed, so it runs in linear time.
 _LONG_DATE_RE = re.compile(
-    r"^\s*(\d{4})[/\-](\d{1,2})[/\-](\d{1,2})"
-    r"(?:[ T]+(\d{1,2}):(\d{2})(?::(\d{2})(?:\.(\d+))?)?)?"
-    r"\s*(?:(?P<sign>[+-])(?P<zh>\d{2}):?(?P<zm>\d{2})|(?P<utc>Z|UTC|GMT))?\s*$",
+    r"(\d{4})[/\-](\d{1,2})[/\-](\d{1,2})"
+    r"(?:(?:T|,? )(\d{1,2}):(\d{2})(?::(\d{2})(?:\.(\d+))?)?)?"
+    r" ?(?:(?:UTC|GMT)? ?(?P<sign>[+-])(?P<zh>\d{1,2})(?::?(?P<zm>\d{2}))?|(?P<utc>Z|UTC|GMT))?",
     re.IGNORECASE,
 )
 
 
 def _parse_long_date(path: str, record: _Record) -> datetime:
-    match = _LONG_DATE_RE.match(record.value)
+    value = " ".join(record.value.split()[:8])[:80]
+    match = _LONG_DATE_RE.fullmatch(value)
     hint = "write it as YYYY/MM/DD HH:MM:SS+0000"
     if match is None:
         raise InputFileError(path, f"##{record.label}= {record.value[:40]!r} is not a date",
@@ -200,7 +205,10 @@ def _parse_long_date(path: str, record: _Record) -> datetime:
     year, month, day, hour, minute, second, fraction = match.groups()[:7]
     micro = int((fraction or "0")[:6].ljust(6, "0"))
     if match.group("sign"):
-        offset = timedelta(hours=int(match.group("zh")), minutes=int(match.group("zm")))
+        offset = timedelta(hours=int(match.group("zh")), minutes=int(match.group("zm") or 0))
+        if offset > timedelta(hours=14):  # the widest zone offset in use is +14:00
+            raise InputFileError(path, f"##{record.label}= time zone offset {value[-6:]!r} is out of range",
+                                 line=record.line, hint=hint)
         zone = timezone(offset if match.group("sign") == "+" else -offset)
     else:
         if not match.group("utc"):
