@@ -348,6 +348,23 @@ def test_hostile_repeat_count_is_refused(tmp_path):
     assert "repeat" in error.problem or "more than" in error.problem
 
 
+def test_repeat_beyond_the_declared_count_is_refused_before_expanding(tmp_path):
+    # A 20-byte DUP run (S5000000 = 15 million repeats, within the global cap) in a file that
+    # declares 11 points: refused against ##NPOINTS before anything is expanded, so a small
+    # hostile file cannot claim hundreds of MB (numpy reports its buffers to tracemalloc).
+    import tracemalloc
+
+    path = _write(tmp_path, SMALL.replace("5 6 7 8 9 10 11", "5AJS5000000"))
+    tracemalloc.start()
+    try:
+        with pytest.raises(InputFileError, match="more points than the 11 its header declares"):
+            read(path)
+        _, peak_bytes = tracemalloc.get_traced_memory()
+    finally:
+        tracemalloc.stop()
+    assert peak_bytes < 20e6, peak_bytes
+
+
 def test_empty_and_binary_files(tmp_path):
     assert "empty" in _error(tmp_path, "  \n\n").problem
     path = tmp_path / "b.dx"

@@ -422,16 +422,25 @@ def _build_problem(model: RateModel, data: ConcentrationData, options: FitOption
 
 
 def _lmfit_minimise(problem: iv.Problem, theta0, options: FitOptions):
+    """lmfit ``leastsq`` on ``theta / scale`` (see :func:`intervals.parameter_scales`).
+
+    Returns ``(theta, success, message, nfev)``.
+    """
+    scale = iv.parameter_scales(theta0)
     params = lmfit.Parameters()
-    for name, value, lo, hi in zip(problem.names, theta0, problem.lower, problem.upper):
-        params.add(name, value=float(value), min=float(lo), max=float(hi))
+    for name, value, lo, hi, s in zip(problem.names, theta0, problem.lower, problem.upper, scale):
+        params.add(name, value=float(value / s), min=float(lo / s), max=float(hi / s))
 
     def residual(p):
-        return problem.residual(np.array([p[n].value for n in problem.names]))
+        return problem.residual(np.array([p[n].value for n in problem.names]) * scale)
 
     minimizer = lmfit.Minimizer(residual, params, scale_covar=not options.absolute_sigma)
     max_nfev = options.max_nfev or 2000 * (len(problem.names) + 1)
-    return minimizer.minimize(method="leastsq", xtol=options.tol, ftol=options.tol, max_nfev=max_nfev)
+    outcome = minimizer.minimize(method="leastsq", xtol=options.tol, ftol=options.tol, max_nfev=max_nfev)
+    theta = np.array([outcome.params[name].value for name in problem.names]) * scale
+    # lmfit's own error-bar remark is about its covariance, which is not the one used here.
+    message = str(outcome.message).replace("Could not estimate error-bars", "").strip().rstrip(".")
+    return theta, bool(outcome.success), message, outcome.nfev
 
 
 def fit_model(data: ConcentrationData, model: RateModel, *, start=None, fixed=None, bounds=None,
@@ -508,12 +517,11 @@ def _finish(model, data, problem, theta0, options, rng) -> FitResult:
         converged = True
         messages.append("warm start from the previous optimum: converged")
     else:
-        outcome = _lmfit_minimise(problem, theta0, options)
-        theta = np.array([outcome.params[name].value for name in problem.names])
-        converged = bool(outcome.success) and np.all(np.isfinite(theta))
-        messages.append("minimiser: " + str(outcome.message).strip().rstrip("."))
+        theta, success, lm_message, nfev = _lmfit_minimise(problem, theta0, options)
+        converged = success and np.all(np.isfinite(theta))
+        messages.append("minimiser: " + lm_message)
         budget = options.max_nfev or 2000 * (p + 1)
-        if not outcome.success and outcome.nfev >= budget:
+        if not success and nfev >= budget:
             messages.append(f"stopped after using its budget of {budget} model evaluations "
                             "(better --start values may help)")
     residual = problem.residual(theta).reshape(data.values.shape)

@@ -100,44 +100,74 @@ def profile_threshold(s_min, dof, absolute_sigma, level=0.95) -> float:
     return s_min * (1.0 + t_quantile(dof, level) ** 2 / max(dof, 1))
 
 
+def parameter_scales(theta) -> np.ndarray:
+    """Typical magnitudes used to make the optimisers work on ``theta / scale ~ 1``.
+
+    scipy's finite-difference steps are absolute (``~6e-6 max(1, |x|)``) and MINPACK's
+    tolerances mix parameters of different size, so a rate constant of 1e-6 s^-1 next to a
+    concentration of 1 mol/L would otherwise get a Jacobian (and a covariance) that depends
+    on the units chosen.  Zero or non-finite entries get scale 1.
+    """
+    scale = np.abs(np.asarray(theta, dtype=float))
+    return np.where(np.isfinite(scale) & (scale > 1e-300), scale, 1.0)
+
+
 def fit_theta(problem: Problem, theta0, max_nfev=None, tol=1e-10, jac="2-point", full=False):
     """Minimise ``S`` from ``theta0`` with ``least_squares``; returns (theta, success).
 
-    With ``full`` also the Jacobian of the weighted residual at the solution, (n, p).
+    With ``full`` also the Jacobian of the weighted residual at the solution, (n, p),
+    with respect to ``theta``.  The search runs on ``theta / parameter_scales(theta0)``.
     """
     theta0 = np.clip(np.asarray(theta0, dtype=float), problem.lower, problem.upper)
-    bounded = np.isfinite(problem.lower).any() or np.isfinite(problem.upper).any()
-    if bounded and np.all((theta0 > problem.lower) & (theta0 < problem.upper)):
+    scale = parameter_scales(theta0)
+    lower, upper = problem.lower / scale, problem.upper / scale
+    u0 = theta0 / scale
+
+    def residual(u):
+        return problem.residual(u * scale)
+
+    def done(solution, success):
+        theta = solution.x * scale
+        return (theta, success, solution.jac / scale) if full else (theta, success)
+
+    bounded = np.isfinite(lower).any() or np.isfinite(upper).any()
+    if bounded and np.all((u0 > lower) & (u0 < upper)):
         # Unconstrained LM is several times cheaper than TRF; keep it when it stays inside.
         try:
-            solution = optimize.least_squares(problem.residual, theta0, method="lm", x_scale="jac",
+            solution = optimize.least_squares(residual, u0, method="lm", x_scale="jac",
                                               xtol=tol, ftol=tol, gtol=tol, max_nfev=max_nfev, jac=jac)
         except (ValueError, FloatingPointError, np.linalg.LinAlgError):
             solution = None
         if (solution is not None and solution.success
-                and np.all((solution.x >= problem.lower) & (solution.x <= problem.upper))):
-            return (solution.x, True, solution.jac) if full else (solution.x, True)
+                and np.all((solution.x >= lower) & (solution.x <= upper))):
+            return done(solution, True)
     try:
         solution = optimize.least_squares(
-            problem.residual, theta0, bounds=(problem.lower, problem.upper) if bounded else (-np.inf, np.inf),
+            residual, u0, bounds=(lower, upper) if bounded else (-np.inf, np.inf),
             method="trf" if bounded else "lm", x_scale="jac", xtol=tol, ftol=tol, gtol=tol,
             max_nfev=max_nfev, jac=jac)
     except (ValueError, FloatingPointError, np.linalg.LinAlgError) as error:
         log.debug("inner fit failed: %s", error)
         return (theta0, False, None) if full else (theta0, False)
-    if full:
-        return solution.x, bool(solution.success), solution.jac
-    return solution.x, bool(solution.success)
+    return done(solution, bool(solution.success))
 
 
 def covariance_from_jacobian(jacobian, scale: float):
-    """``scale (J^T J)^-1`` via SVD; None when J is numerically rank deficient."""
+    """``scale (J^T J)^-1`` via SVD; None when J is numerically rank deficient.
+
+    The columns are normalised first so that the rank test does not depend on the units
+    of the parameters (a column of d/dk with k in s^-1 and time in days is not "small").
+    """
     if jacobian is None or not np.all(np.isfinite(jacobian)):
         return None
-    _, singular, vt = np.linalg.svd(np.asarray(jacobian, dtype=float), full_matrices=False)
+    jacobian = np.asarray(jacobian, dtype=float)
+    norms = np.sqrt(np.sum(jacobian**2, axis=0))
+    if norms.size == 0 or np.any(norms <= 0):
+        return None
+    _, singular, vt = np.linalg.svd(jacobian / norms, full_matrices=False)
     if singular.size == 0 or singular[-1] <= singular[0] * 1e-13:
         return None
-    return (vt.T / singular**2) @ vt * scale
+    return (vt.T / singular**2) @ vt / np.outer(norms, norms) * scale
 
 
 def best_amplitude(problem: Problem, theta, j: int) -> float:

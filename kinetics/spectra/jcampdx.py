@@ -196,8 +196,8 @@ _LONG_DATE_RE = re.compile(
 
 
 def _parse_long_date(path: str, record: _Record) -> datetime:
-    value = " ".join(record.value.split()[:8])[:80]
-    match = _LONG_DATE_RE.fullmatch(value)
+    value = " ".join(record.value.split())
+    match = _LONG_DATE_RE.fullmatch(value) if len(value) <= 80 else None
     hint = "write it as YYYY/MM/DD HH:MM:SS+0000"
     if match is None:
         raise InputFileError(path, f"##{record.label}= {record.value[:40]!r} is not a date",
@@ -356,7 +356,15 @@ def _affn_tokens(path: str, line_number: int, text: str) -> list[float]:
     return [float(number) for number in numbers]
 
 
-def _decode_affn(path: str, lines: list[tuple[int, str]]) -> _Table:
+def _too_many(path: str, limit: int, line: int) -> InputFileError:
+    if limit < MAX_POINTS:
+        return InputFileError(path, f"data table holds more points than the {limit} its header declares "
+                              "(##NPOINTS=/##VAR_DIM=)", line=line, hint="the file is damaged; re-export it")
+    return InputFileError(path, f"data table holds more than {MAX_POINTS} points", line=line,
+                          hint="check the file; split very large data sets")
+
+
+def _decode_affn(path: str, lines: list[tuple[int, str]], limit: int = MAX_POINTS) -> _Table:
     values: list[float] = []
     line_x: list[tuple[int, float, int, int]] = []
     for number, text in lines:
@@ -366,9 +374,8 @@ def _decode_affn(path: str, lines: list[tuple[int, str]]) -> _Table:
         first = _AFFN_NUMBER.search(text)
         line_x.append((number, tokens[0], len(values), _decimals(first.group(0)) if first else 0))
         values.extend(tokens[1:])
-        if len(values) > MAX_POINTS:
-            raise InputFileError(path, f"data table holds more than {MAX_POINTS} points", line=number,
-                                 hint="check the file; split very large data sets")
+        if len(values) > limit:
+            raise _too_many(path, limit, number)
     return _Table(np.asarray(values, dtype=float), line_x)
 
 
@@ -400,7 +407,7 @@ _POW10_INT = 10 ** np.arange(13, dtype=np.int64)
 _FAST_MAX_CHARS = 16 * 1024 * 1024
 
 
-def _decode_asdf_fast(lines: list[tuple[int, str]]) -> _Table | None:
+def _decode_asdf_fast(lines: list[tuple[int, str]], limit: int = MAX_POINTS) -> _Table | None:
     """Vectorised decoding of 'pure' ASDF lines (X, then SQZ/DIF/DUP tokens, no spaces).
 
     Returns None for anything unusual, damaged or out of range; the caller then runs
@@ -484,7 +491,7 @@ def _decode_asdf_fast(lines: list[tuple[int, str]]) -> _Table | None:
     if np.any(counts[check] != 1):
         return None
     kept = np.where(check, 0, counts)
-    if kept.sum() > MAX_POINTS:
+    if kept.sum() > limit:  # before expanding: a few DUP bytes must not claim gigabytes
         return None
     points_before = np.cumsum(kept) - kept  # points decoded before each op
     expanded_kind = np.repeat(op_kind, kept)
@@ -508,7 +515,7 @@ def _decode_asdf_fast(lines: list[tuple[int, str]]) -> _Table | None:
     return _Table(values, line_x)
 
 
-def _decode_asdf(path: str, lines: list[tuple[int, str]]) -> _Table:
+def _decode_asdf(path: str, lines: list[tuple[int, str]], limit: int = MAX_POINTS) -> _Table:
     """Decode SQZ/DIF/DUP ordinates, verifying every DIF y-check."""
     values: list[float] = []
     line_x: list[tuple[int, float, int, int]] = []
@@ -551,9 +558,11 @@ def _decode_asdf(path: str, lines: list[tuple[int, str]]) -> _Table:
                     last_is_dif, last_step = True, step
                 elif kind == "u":
                     repeat = int(token[1:]) - 1
-                    if repeat < 0 or len(values) + repeat > MAX_POINTS:
+                    if repeat < 0:
                         raise InputFileError(path, f"repeat count {token[1:]} is out of range",
                                              line=number, hint=_FIX_HINT)
+                    if len(values) + repeat > limit:
+                        raise _too_many(path, limit, number)
                     if last_is_dif:
                         values.extend((values[-1] + last_step * np.arange(1, repeat + 1)).tolist())
                     else:
@@ -564,22 +573,22 @@ def _decode_asdf(path: str, lines: list[tuple[int, str]]) -> _Table:
                     last_is_dif, last_step = False, step
             except ValueError:
                 raise InputFileError(path, f"non-numeric data {token[:20]!r}", line=number, hint=_FIX_HINT) from None
-        if len(values) > MAX_POINTS:
-            raise InputFileError(path, f"data table holds more than {MAX_POINTS} points", line=number,
-                                 hint="check the file; split very large data sets")
+        if len(values) > limit:
+            raise _too_many(path, limit, number)
         expect_check = last_is_dif
     return _Table(np.asarray(values, dtype=float), line_x)
 
 
-def _decode(path: str, lines: list[tuple[int, str]], form: str | None) -> _Table:
+def _decode(path: str, lines: list[tuple[int, str]], form: str | None, limit: int = MAX_POINTS) -> _Table:
+    """Decode a data table; more than ``limit`` values (the declared count) is an error."""
     if not lines:
         raise InputFileError(path, "data table has no data lines", hint=_FIX_HINT)
     if form is None:
         body = _NAN_WORD.sub(" ", " ".join(text for _, text in lines))
         form = "ASDF" if _PSEUDO_NOT_E.search(body) else "AFFN"
     if form == "ASDF":
-        return _decode_asdf_fast(lines) or _decode_asdf(path, lines)
-    return _decode_affn(path, lines)
+        return _decode_asdf_fast(lines, limit) or _decode_asdf(path, lines, limit)
+    return _decode_affn(path, lines, limit)
 
 
 def _check_abscissa(path: str, table: _Table, first: float, step: float, x_factor: float) -> None:
@@ -666,7 +675,7 @@ def _xydata(path: str, block: _Block) -> tuple[_Axis, np.ndarray, None, int]:
     first = _number(path, block.first("FIRSTX"))
     last = _number(path, block.first("LASTX"))
     n_points = _count(path, npoints)
-    table = _decode(path, record.data, None)
+    table = _decode(path, record.data, None, limit=n_points)
     if table.values.size != n_points:
         raise InputFileError(path, f"##NPOINTS= declares {n_points} points but the data table holds "
                              f"{table.values.size}", line=npoints.line,
@@ -745,8 +754,8 @@ def _ntuples(path: str, block: _Block) -> tuple[_Axis, np.ndarray | None, np.nda
                                  line=record.line, hint="export one 1D spectrum per file")
         index = symbols.index(symbol)
         form = forms[index].upper() if forms[index].upper() in ("AFFN", "ASDF") else None
-        table = _decode(path, record.data, form)
         declared = _count(path, dims_record, dims[index])
+        table = _decode(path, record.data, form, limit=declared)
         if table.values.size != declared or declared != n_points:
             raise InputFileError(path, f"##VAR_DIM= declares {declared} points but the {symbol} page holds "
                                  f"{table.values.size}", line=record.line,
@@ -775,6 +784,11 @@ def _select_block(path: str, blocks: list[_Block]) -> _Block:
         elif has_data:
             log.info("%s: skipping block with ##DATA TYPE= %s", path, kind.value)
     if not nmr and not any(b.first(key) for b in blocks for key in ("XYDATA", "XYPOINTS", "NTUPLES")):
+        peak_table = next((r for b in blocks for r in b.records if r.key in ("PEAKTABLE", "PEAKASSIGNMENTS")), None)
+        if peak_table is not None:
+            raise InputFileError(path, f"the file holds only a peak list (##{peak_table.label}=), not the "
+                                 "spectrum itself", line=peak_table.line,
+                                 hint="export the full spectrum (XYDATA or NTUPLES), not the peak list")
         raise InputFileError(path, "no ##XYDATA=, ##XYPOINTS= or ##NTUPLES= data in the file",
                              line=blocks[0].start_line if blocks else None, hint=_FIX_HINT)
     if not nmr:
@@ -782,7 +796,18 @@ def _select_block(path: str, blocks: list[_Block]) -> _Block:
         raise InputFileError(path, f"unsupported ##DATA TYPE= {', '.join(kinds) or '(none, no data)'}",
                              line=blocks[0].start_line if blocks else None,
                              hint="this reader takes NMR SPECTRUM and NMR FID data")
-    return nmr[0]
+    # A compound (LINK) file may carry a spectrum beside its FID or peak list; two spectra
+    # (or two FIDs) would make the choice arbitrary, so they are refused.
+    spectra = [b for b in nmr if _norm(getattr(b.first("DATATYPE"), "value", "")) not in _FID_TYPES]
+    fids = [b for b in nmr if b not in spectra]
+    for same in (spectra, fids):
+        if len(same) > 1:
+            raise InputFileError(path, f"the file holds {len(same)} data blocks of one kind (lines "
+                                 f"{', '.join(str(b.start_line) for b in same)}); which one to read is unclear",
+                                 line=same[1].start_line, hint="export one spectrum (or FID) per file")
+    if spectra and fids:
+        log.info("%s: file holds a spectrum and an FID; reading the spectrum", path)
+    return (spectra or fids)[0]
 
 
 def _ppm_axis(path: str, block: _Block, axis: _Axis, observe_mhz: float | None, line: int) -> np.ndarray:
