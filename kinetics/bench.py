@@ -387,7 +387,7 @@ def _bench_live(quick: bool) -> list[BenchRow]:
         # then turns with no new spectrum: what the loop itself keeps (a leak) shows here,
         # apart from the growth of the run's own data above
         steady = []
-        for _ in range(3 if quick else 10):
+        for _ in range(10 if quick else 20):
             state.refit()
             state.write_outputs()
             steady.append(_rss_mb())
@@ -400,8 +400,9 @@ def _bench_live(quick: bool) -> list[BenchRow]:
             "live", f"soak: {soak_n} spectra in turns of {turn} (per turn)", per_turn, per_turn,
             len(rss), note=f"RSS {early:.0f} MB after {marker * turn} spectra -> {rss[-1]:.0f} MB "
                            f"after {soak_n} ({per_spectrum_kb:.1f} kB per spectrum of run data); "
-                           f"{len(steady)} more turns without new files: "
-                           f"{steady[-1] - rss[-1]:+.1f} MB"))
+                           f"then turns without new files: {steady[len(steady) // 2 - 1]:.0f} MB "
+                           f"-> {steady[-1]:.0f} MB over the last {len(steady) - len(steady) // 2} "
+                           f"(caches warm)"))
     finally:
         shutil.rmtree(base, ignore_errors=True)
     return rows

@@ -261,7 +261,8 @@ _QUANTIFY_KEYS = {"mode", "standard", "initial_species", "initial_concentration_
                   "reactant", "product", "stoichiometry", "mass_balance_sigmas"}
 _ALIGN_KEYS = {"window_ppm", "max_shift_ppm", "reference_index"}
 _SIGNAL_KEYS = {"name", "species", "window_ppm", "nuclei", "method", "lineshape", "standard",
-                "concentration_mol_per_l", "concentration_sigma_mol_per_l", "tolerance_ppm", "group"}
+                "concentration_mol_per_l", "concentration_sigma_mol_per_l", "tolerance_ppm", "group",
+                "correct_truncation"}
 _LINESHAPE_KEYS = {"multiplicity", "lines", "j_hz", "width_hz", "profile", "gauss_width_hz"}
 _FILENAME_GROUPS = {"timestamp", "year", "month", "day", "hour", "minute", "second",
                     "elapsed_s", "elapsed_min", "elapsed_h"}
@@ -378,6 +379,7 @@ def signal_from_table(raw: Mapping, key: str) -> SignalDefinition:
                                               f"{key}.concentration_sigma_mol_per_l", 0),
         tolerance_ppm=_number(raw.get("tolerance_ppm", 0.0), f"{key}.tolerance_ppm", 0),
         group=str(raw.get("group", "")),
+        correct_truncation=_bool(raw.get("correct_truncation", False), f"{key}.correct_truncation"),
     )
 
 

@@ -479,8 +479,18 @@ def _describe(window: ProposedWindow) -> str:
     return text + f", SNR {max(p.snr for p in window.peaks):.0f}"
 
 
-def _pattern(files: list[Path]) -> str:
-    return f"*{files[0].suffix}"  # spectrum_files keeps one suffix
+def _pattern(files: list[Path], skipped: list[str]) -> str:
+    """Glob for the spectra: ``*<suffix>`` (spectrum_files keeps one suffix), narrowed to
+    the readable files' common name prefix when that leaves out every unreadable file (a
+    simulator's ``truth.csv`` beside ``spectrum_0001.csv`` ...)."""
+    suffix = files[0].suffix
+    unreadable = [f for f in files if any(message.startswith(f"{f}") for message in skipped)]
+    readable = [f.name for f in files if f not in unreadable]
+    prefix = os.path.commonprefix(readable).rstrip("0123456789") if len(readable) > 1 else ""
+    if unreadable and prefix and not re.search(r"[][*?]", prefix) \
+            and not any(f.name.startswith(prefix) for f in unreadable):
+        return f"{prefix}*{suffix}"
+    return f"*{suffix}"
 
 
 def _signal_lines(window: ProposedWindow) -> list[str]:
@@ -529,7 +539,7 @@ def render_config(spectrum: Spectrum, windows: list[ProposedWindow], folder: Pat
         "",
         "[run]",
         f"folder = {_q(folder_text)}       # spectra folder, relative to this file",
-        f"pattern = {_q(_pattern(files))}              # which files of the folder are spectra (glob)",
+        f"pattern = {_q(_pattern(files, skipped))}              # which files of the folder are spectra (glob)",
         f"order = {_q('time' if timed else 'name')}               # series order: \"time\" or file \"name\"",
         "",
         "[time]",

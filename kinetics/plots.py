@@ -45,16 +45,17 @@ class SeriesStyle:
     marker: str
 
 
-# Colours picked to step through lightness (dark ink, mid tones, light ochre) so the
-# order survives greyscale printing; line style and marker differ as well, so two series
-# never rely on hue alone.
+# The first three series (the usual reactant, product and standard) sit far apart in
+# lightness (relative luminance ~0.18, 0.44, 0.66: dark ink, mid orange, light mustard),
+# so they differ in greyscale print even by tone; every series also has its own line
+# style and marker, so none relies on hue or tone alone.
 SERIES_STYLES: tuple[SeriesStyle, ...] = (
     SeriesStyle("#1f2f56", "-", "o"),            # deep ink blue
     SeriesStyle("#b8641a", "--", "s"),           # burnt orange
+    SeriesStyle("#d9a52b", (0, (2, 1)), "P"),    # mustard
     SeriesStyle("#2c7a6b", "-.", "^"),           # sea green
     SeriesStyle("#8a2f48", ":", "D"),            # wine
     SeriesStyle("#6f6a5e", (0, (6, 2, 1, 2, 1, 2)), "v"),  # warm grey
-    SeriesStyle("#d9a52b", (0, (2, 1)), "P"),    # mustard
     SeriesStyle("#4b3b7a", (0, (8, 3)), "X"),    # indigo
 )
 
@@ -64,6 +65,16 @@ _WINDOW_HATCHES = ("", "//", "\\\\", "..", "xx", "||")
 _TRACE_DARK = np.array([0.09, 0.13, 0.27])   # first spectrum
 _TRACE_LIGHT = np.array([0.35, 0.62, 0.58])  # last spectrum
 _PNG_METADATA = {"Software": None}  # keeps the files free of tool banners and URLs
+
+
+def _plain(text) -> str:
+    """User text (species, window and run names, titles) shown as written.
+
+    Matplotlib reads text between two ``$`` as mathtext and raises on what it cannot
+    parse (a name like ``cost $\\frac$`` would stop the whole report); an escaped
+    dollar is drawn as a plain ``$``.
+    """
+    return str(text).replace("$", r"\$")
 
 
 def series_style(index: int) -> SeriesStyle:
@@ -168,7 +179,7 @@ def stacked_spectra_figure(
     for number, (name, lo, hi) in enumerate(_as_windows(windows)):
         ax.axvspan(lo, hi, facecolor=_WINDOW_FILL, edgecolor="#8c7a4a", alpha=0.55,
                    hatch=_WINDOW_HATCHES[number % len(_WINDOW_HATCHES)], linewidth=0.6, zorder=0)
-        ax.text(0.5 * (lo + hi), 1.0, name, transform=ax.get_xaxis_transform(), ha="center",
+        ax.text(0.5 * (lo + hi), 1.0, _plain(name), transform=ax.get_xaxis_transform(), ha="center",
                 va="bottom", fontsize=8, color="#4a3f22", rotation=0, clip_on=False)
 
     scale, unit = _time_scale(max(time_s) if time_s is not None and len(time_s) else 0.0)
@@ -190,7 +201,7 @@ def stacked_spectra_figure(
     ax.grid(False)
     ax.spines["left"].set_visible(False)
     if title:
-        figure.suptitle(title, fontsize=11)
+        figure.suptitle(_plain(title), fontsize=11)
     return figure
 
 
@@ -265,32 +276,32 @@ def concentration_figure(
         errors = sigma.get(name)
         ax.errorbar(time_s / scale, values, yerr=errors, linestyle="none", marker=style.marker,
                     markersize=4, markerfacecolor="white", markeredgecolor=style.colour,
-                    ecolor=style.colour, elinewidth=0.7, capsize=1.5, label=f"{name} measured")
+                    ecolor=style.colour, elinewidth=0.7, capsize=1.5, label=f"{_plain(name)} measured")
         if name in band and curve_t is not None:
             low, high = band[name]
             ax.fill_between(curve_t / scale, low, high, color=style.colour, alpha=_BAND_ALPHA,
-                            linewidth=0, label=f"{name} 95 % band")
+                            linewidth=0, label=f"{_plain(name)} 95 % band")
         if name in curve and curve_t is not None:
             ax.plot(curve_t / scale, curve[name], color=style.colour, linestyle=style.linestyle,
-                    linewidth=1.6, label=f"{name} fit")
+                    linewidth=1.6, label=f"{_plain(name)} fit")
         if ax_res is not None and (name in fitted or name in curve):
             model = fitted[name] if name in fitted else np.interp(time_s, curve_t, curve[name])
             ax_res.errorbar(time_s / scale, values - model, yerr=errors, linestyle="none",
                             marker=style.marker, markersize=3.5, markerfacecolor="white",
                             markeredgecolor=style.colour, ecolor=style.colour, elinewidth=0.6)
-    ax.set_ylabel(f"concentration / {concentration_unit}")
+    ax.set_ylabel(f"concentration / {_plain(concentration_unit)}")
     ax.legend(fontsize=7, frameon=False, ncols=2 if len(observed) > 1 else 1)
     _style_axes(ax)
     if ax_res is not None:
         ax_res.axhline(0.0, color="#444444", linewidth=0.8)
-        ax_res.set_ylabel(f"residual / {concentration_unit}")
+        ax_res.set_ylabel(f"residual / {_plain(concentration_unit)}")
         ax_res.set_xlabel(f"time / {unit}")
         _style_axes(ax_res)
         ax.tick_params(labelbottom=False)
     else:
         ax.set_xlabel(f"time / {unit}")
     if title:
-        figure.suptitle(title, fontsize=11)
+        figure.suptitle(_plain(title), fontsize=11)
     return figure
 
 
@@ -318,7 +329,7 @@ def _temperature_figure(
                 capsize=2.5, elinewidth=0.9, label="runs (±1 σ)")
     if labels is not None:
         for xi, yi, text in zip(x, y, labels):
-            ax.annotate(str(text), (xi, yi), textcoords="offset points", xytext=(5, 4), fontsize=7)
+            ax.annotate(_plain(text), (xi, yi), textcoords="offset points", xytext=(5, 4), fontsize=7)
     ax.set_xlabel("1000/T / K⁻¹")
     ax.set_ylabel(ylabel)
     top = ax.secondary_xaxis("top", functions=(lambda v: 1000.0 / np.asarray(v) - 273.15,
@@ -326,13 +337,13 @@ def _temperature_figure(
     top.set_xlabel("temperature / °C", fontsize=8)
     top.tick_params(labelsize=7)
     if annotation:
-        ax.text(0.98, 0.96, annotation, transform=ax.transAxes, ha="right", va="top", fontsize=8,
+        ax.text(0.98, 0.96, _plain(annotation), transform=ax.transAxes, ha="right", va="top", fontsize=8,
                 bbox={"boxstyle": "round,pad=0.3", "facecolor": "white", "edgecolor": "#999999"})
     ax.legend(fontsize=7, frameon=False, loc="lower left")
     _style_axes(ax)
     ax.spines["top"].set_visible(True)
     if title:
-        figure.suptitle(title, fontsize=11)
+        figure.suptitle(_plain(title), fontsize=11)
     return figure
 
 

@@ -372,6 +372,7 @@ def auto_phase(
     p1_range_deg: float = 360.0,
     region_ppm: tuple[float, float] | None = None,
     noise_sigma: float | None = None,
+    exclude_ppm: Sequence[tuple[float, float]] = (),
 ) -> PhaseResult:
     """Find the zero- and first-order phase by ACME entropy minimisation.
 
@@ -403,6 +404,12 @@ def auto_phase(
         Noise standard deviation of the spectrum (per component), e.g. from the FID's
         signal-free region; passed to :func:`acme_score` so that only dips beyond
         3 sigma are penalised.  Default 0 (every negative value counts, as in ACME).
+    exclude_ppm : sequence of (high, low), optional
+        Ranges left out of the score, e.g. a large solvent line in a non-deuterated
+        solvent: such a line dominates the normalised score and leaves p1 undetermined
+        (measured on the demo series: p1 off by 150-250 degrees with the water line
+        scored, within a few degrees without it).  The pivot default then is the tallest
+        scored point.
 
     Returns
     -------
@@ -412,8 +419,6 @@ def auto_phase(
         raise ValueError("auto-phasing needs the imaginary part, and this spectrum has none")
     z = spectrum.complex
     ppm = spectrum.ppm
-    if pivot_ppm is None:
-        pivot_ppm = float(ppm[int(np.argmax(np.abs(z)))])
     # the outer 5 % on each side are left out: a digital filter's gain falls off there,
     # and the distorted edges would bias the score (measured on simulated filtered FIDs)
     inside = np.zeros(ppm.size, bool)
@@ -421,6 +426,13 @@ def auto_phase(
     inside[edge:ppm.size - edge] = True
     if region_ppm is not None:
         inside &= (ppm <= max(region_ppm)) & (ppm >= min(region_ppm))
+    for high, low in exclude_ppm:
+        inside &= ~((ppm <= max(high, low)) & (ppm >= min(high, low)))
+    if not np.any(inside):
+        raise ValueError("auto-phasing has no points left to score (check region and exclusions)")
+    if pivot_ppm is None:
+        scored = np.where(inside, np.abs(z), -np.inf)
+        pivot_ppm = float(ppm[int(np.argmax(scored))])
     ramp = np.deg2rad((pivot_ppm - ppm) / (ppm[0] - ppm[-1]))
     if method != "acme":
         raise ValueError(f"unknown auto-phase method {method!r} (use 'acme')")
@@ -774,6 +786,8 @@ _DEFAULTS: dict[str, Any] = {
     "phase": "auto",             # "auto" | "none" | {p0_deg, p1_deg, pivot_ppm}
     "phase_method": "acme",      # "acme" (Chen et al. 2002)
     "phase_region_ppm": None,    # [high, low] region scored by auto-phasing, or None
+    "phase_exclude_ppm": [],     # [[high, low], ...] left out of the auto-phase score (solvent)
+    "phase_p1_range_deg": 360.0, # degrees, half-width of the auto-phase p1 search
     "baseline": "none",          # "none" | "asls" | "arpls" | "polynomial" | {method, ...}
     "reference": None,           # None | "tms" | {ppm, window_ppm, target_ppm}
     "noise_region_ppm": None,    # [high, low] signal-free region for the noise sigma
@@ -838,6 +852,9 @@ class Pipeline:
                                      (degrees, degrees, ppm; pivot defaults to the left edge)
     phase_method         "acme"      auto-phasing method: "acme" (Chen et al. 2002)
     phase_region_ppm     none        [high, low] ppm scored by auto-phasing
+    phase_exclude_ppm    []          [[high, low], ...] ppm left out of the auto-phase score
+                                     (a large solvent line; see :func:`auto_phase`)
+    phase_p1_range_deg   360         half-width of the auto-phase p1 search, degrees
     baseline             "none"      "none", "asls", "arpls", "polynomial", or a table
                                      {method, lam (1e7), p (0.01), order (3),
                                      regions_ppm [[high, low], ...] (polynomial only)}
@@ -862,6 +879,8 @@ class Pipeline:
     phase: str | Mapping[str, float] = "auto"
     phase_method: str = "acme"
     phase_region_ppm: tuple[float, float] | None = None
+    phase_exclude_ppm: tuple[tuple[float, float], ...] = ()
+    phase_p1_range_deg: float = 360.0
     baseline: Mapping[str, Any] | None = None
     reference: Mapping[str, float] | None = None
     noise_region_ppm: tuple[float, float] | None = None
@@ -919,6 +938,15 @@ class Pipeline:
         values["phase_method"] = merged["phase_method"]
         region = merged["phase_region_ppm"]
         values["phase_region_ppm"] = None if region is None else _ppm_pair(region, "phase_region_ppm")
+        excluded = merged["phase_exclude_ppm"]
+        if not isinstance(excluded, (list, tuple)):
+            raise ConfigError(_key("phase_exclude_ppm"), f"expected a list of [high, low] pairs, got {excluded!r}",
+                              hint="e.g. phase_exclude_ppm = [[4.9, 4.6]] for a water line")
+        values["phase_exclude_ppm"] = tuple(_ppm_pair(r, "phase_exclude_ppm") for r in excluded)
+        p1_range = _number(merged["phase_p1_range_deg"], "phase_p1_range_deg", 0)
+        if not 0 < p1_range <= 3600:
+            raise ConfigError(_key("phase_p1_range_deg"), f"must be in (0, 3600] degrees, got {p1_range}")
+        values["phase_p1_range_deg"] = p1_range
         values["baseline"] = cls._check_baseline(merged["baseline"])
         values["reference"] = cls._check_reference(merged["reference"])
         noise = merged["noise_region_ppm"]
@@ -1045,7 +1073,8 @@ class Pipeline:
         if self.phase == "auto" and spectrum.imag is None:
             notes.append("not phased: the spectrum has no imaginary part")
         elif self.phase == "auto":
-            result = auto_phase(spectrum, self.phase_method, region_ppm=self.phase_region_ppm)
+            result = auto_phase(spectrum, self.phase_method, region_ppm=self.phase_region_ppm,
+                                p1_range_deg=self.phase_p1_range_deg, exclude_ppm=self.phase_exclude_ppm)
             spectrum, p0, p1, pivot = result.spectrum, result.p0_deg, result.p1_deg, result.pivot_ppm
             notes.append(f"auto-phased ({self.phase_method}): p0 {p0:.2f} deg, p1 {p1:.2f} deg about {pivot:.4f} ppm")
             if not result.succeeded:

@@ -427,7 +427,7 @@ def _e(text) -> str:
 
 def _html_table(frame: pd.DataFrame, digits: int) -> str:
     frame = _plain_frame(frame)
-    head = "".join(f"<th>{_e(column)}</th>" for column in frame.columns)
+    head = "".join(f'<th scope="col">{_e(column)}</th>' for column in frame.columns)
     text_columns = {c for c in frame.columns if not pd.api.types.is_numeric_dtype(frame[c])}
     body = []
     for row in frame.itertuples(index=False, name=None):
@@ -448,8 +448,10 @@ def _block_html(block, figure_png: Mapping[int, bytes], table_names: Mapping[int
     if isinstance(block, FigureBlock):
         data = base64.b64encode(figure_png[id(block)]).decode("ascii")
         caption = f"<figcaption>{_e(block.caption)}</figcaption>" if block.caption else ""
+        # The alt text says what the figure shows for screen readers and when images are off.
+        alt = f"{block.heading}. {block.caption}" if block.caption else block.heading
         return (f"<h3>{_e(block.heading)}</h3><figure><img src=\"data:image/png;base64,{data}\" "
-                f"alt=\"{_e(block.heading)}\">{caption}</figure>")
+                f"alt=\"{_e(alt)}\">{caption}</figure>")
     if isinstance(block, TableBlock):
         caption = f'<p class="caption">{_e(block.caption)}</p>' if block.caption else ""
         return (f"<h3>{_e(block.heading)}</h3>{caption}{_html_table(block.frame, block.digits)}"
@@ -515,10 +517,11 @@ def _text_pages(pdf: PdfPages, heading: str, lines: Sequence[str]) -> None:
     per_page = int(760.0 / (size * 1.25 * 1.17))  # usable height / line pitch, both in pt
     for start in range(0, len(lines), per_page):
         page = Figure(figsize=_PAGE_IN)
+        # parse_math=False: user text with "$...$" is printed as written, not as mathtext.
         page.text(0.06, 0.965, heading + ("" if start == 0 else " (continued)"), fontsize=13,
-                  weight="bold", va="top", color="#1f2f56")
+                  weight="bold", va="top", color="#1f2f56", parse_math=False)
         page.text(0.06, 0.935, "\n".join(lines[start:start + per_page]), family="DejaVu Sans Mono",
-                  fontsize=size, va="top", linespacing=1.25)
+                  fontsize=size, va="top", linespacing=1.25, parse_math=False)
         pdf.savefig(page)
 
 
@@ -570,7 +573,7 @@ def _pdf_bytes(title, run_utc, summary, sections, config_text, packages, inputs,
                     # A page label for the PDF only; removed again so the caller's figure
                     # is left as it was handed in.
                     label = block.figure.text(0.005, 0.998, heading, fontsize=7, color="#5b6070",
-                                              ha="left", va="top")
+                                              ha="left", va="top", parse_math=False)
                     try:
                         pdf.savefig(block.figure)
                     finally:

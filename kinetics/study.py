@@ -160,8 +160,6 @@ def _run_temperature(run: Mapping, key: str, source: Path) -> tuple[float, list[
 
 
 def _read_series_table(run: Mapping, key: str, base: Path, source: Path):
-    import pandas as pd
-
     if ("table" in run) == ("config" in run):
         raise ConfigError(key, "needs exactly one of 'table' (a CSV series table) and 'config' (a run config)",
                           source=source)
@@ -174,28 +172,60 @@ def _read_series_table(run: Mapping, key: str, base: Path, source: Path):
                               "export the run as a CSV series table and give it as 'table'", source=source) from None
         return run_config_to_table(base / run["config"]), base / run["config"]
     path = base / run["table"]
-    try:
-        frame = pd.read_csv(path, comment="#", skipinitialspace=True)
-    except FileNotFoundError:
-        raise InputFileError(path, "series table not found", hint=f"named by {key}.table in {source}") from None
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as error:
-        raise InputFileError(path, f"not a readable CSV table ({error})") from None
-    frame.columns = [str(c).strip() for c in frame.columns]
-    return frame, path
+    if not path.exists():
+        raise InputFileError(path, "series table not found", hint=f"named by {key}.table in {source}")
+    from kinetics.rates.table import read_rows
+
+    header, rows, lines, header_line = read_rows(path)
+    for row, line in zip(rows, lines):
+        if len(row) != len(header):
+            raise InputFileError(path, f"{len(row)} cells but the header has {len(header)}", line=line)
+    return _SeriesTable(header, rows, lines, header_line), path
+
+
+@dataclass(frozen=True)
+class _SeriesTable:
+    """A delimited table's cells with their file line numbers (for error messages)."""
+
+    header: list
+    rows: list
+    lines: list
+    header_line: int
+
+    def __contains__(self, name) -> bool:
+        return name in self.header
+
+    @property
+    def columns(self) -> list:
+        return self.header
 
 
 def _column(frame, name: str, path: Path, key: str) -> np.ndarray:
-    import pandas as pd
-
+    """A numeric column; empty or ``nan`` cells become NaN (the point is skipped), text is an error."""
     if name not in frame:
-        raise InputFileError(path, f"no column '{name}' (asked for by {key})", line=1,
+        raise InputFileError(path, f"no column '{name}' (asked for by {key})", line=getattr(frame, "header_line", 1),
                              hint=f"columns are: {', '.join(map(str, frame.columns))}")
-    values = pd.to_numeric(frame[name], errors="coerce").to_numpy(float)
-    bad = np.flatnonzero(~np.isfinite(values) & frame[name].notna().to_numpy())
-    if bad.size:
-        i = int(bad[0])
-        raise InputFileError(path, f"column '{name}' value {frame[name].iloc[i]!r} is not a number", line=i + 2)
-    return values
+    if not isinstance(frame, _SeriesTable):  # a DataFrame from kinetics.series.run_config_to_table
+        import pandas as pd
+
+        values = pd.to_numeric(frame[name], errors="coerce").to_numpy(float)
+        bad = np.flatnonzero(~np.isfinite(values) & frame[name].notna().to_numpy())
+        if bad.size:
+            raise InputFileError(path, f"column '{name}' value {frame[name].iloc[int(bad[0])]!r} is not a number")
+        return values
+    j = frame.header.index(name)
+    values = []
+    for row, line in zip(frame.rows, frame.lines):
+        text = row[j].strip()
+        if text == "" or text.lower() in ("nan", "na", "n/a"):
+            values.append(np.nan)
+            continue
+        try:
+            values.append(float(text))
+        except ValueError:
+            raise InputFileError(path, f"column '{name}' holds {text!r}, not a number", line=line,
+                                 hint="use a dot as decimal separator and no units in cells") from None
+    return np.array(values, dtype=float)
 
 
 def _load_run(run: Mapping, index: int, base: Path, source: Path) -> tuple[temp.KineticRun, list[str]]:
@@ -217,6 +247,11 @@ def _load_run(run: Mapping, index: int, base: Path, source: Path) -> tuple[temp.
     time_s = _column(frame, run.get("time_column", "time_s"), path, f"{key}.time_column") * _TIME_UNITS_S[time_unit]
     conc = _column(frame, run["column"], path, f"{key}.column")
     sigma = _column(frame, run["sigma_column"], path, f"{key}.sigma_column") if "sigma_column" in run else None
+    missing = ~np.isfinite(time_s) | ~np.isfinite(conc)
+    if sigma is not None:
+        missing |= ~np.isfinite(sigma)
+    if missing.any():
+        warnings.append(f"{label}: {int(missing.sum())} row(s) of {path.name} with empty cells skipped")
     if np.any(time_s[np.isfinite(time_s)] < 0):
         warnings.append(f"{label}: negative times in {path.name}; times are seconds from reaction start")
     return temp.KineticRun(label, kelvin, time_s, conc, sigma), warnings
@@ -293,6 +328,12 @@ def run_study(config_path: str | Path, out_dir: str | Path) -> StudyResult:
     model = temp.resolve_model(options["model"], options["observed"])
     run_fits = [_fit_one(run, model) for run in runs]
     warnings += [f"{f.label}: {f.message}" for f in run_fits if not f.success]
+    negative = [f.label for f in run_fits if any("negative" in w for w in f.data_warnings)]
+    if negative:
+        # One line for the whole study: late points of every run scatter around zero.
+        message = (f"{len(negative)} of {len(run_fits)} runs have negative concentrations "
+                   f"({', '.join(negative)}): fine if noise around zero, otherwise check the baselines")
+        warnings.append(message)  # logged once, with the others, by analyse_temperatures
     good = [f for f in run_fits if f.success]
     temperature_result, message = None, "ok"
     try:
@@ -302,8 +343,7 @@ def run_study(config_path: str | Path, out_dir: str | Path) -> StudyResult:
             basis=options["interval_basis"], k_unit=model.k_unit, extra_warnings=warnings)
     except ConfigError as error:
         message = f"two-step analysis not possible: {error}"
-        warnings.append(message)
-        log.warning(message)
+        warnings.append(message)  # logged once, with the others, by analyse_temperatures
     global_result = None
     if options["global_fit"]:
         global_result = temp.global_fit(runs, model, t_ref_kelvin=options["t_ref_kelvin"], run_fits=run_fits,

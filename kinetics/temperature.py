@@ -34,6 +34,13 @@ points, so the estimate of the noise is good) and uses t with ``N - p`` degrees 
 Constants ``R``, ``k_B`` and ``h`` come from ``scipy.constants`` (CODATA); the
 transmission coefficient of transition-state theory is taken as 1.  For rate constants
 not in s^-1 (second order, L mol^-1 s^-1), dS‡ and dG‡ refer to a 1 mol/L standard state.
+
+Which k: the per-run constants are those of :mod:`kinetics.rates.laws`.  For ``2 A -> P``
+(model ``second``) that is the rate-of-loss constant, ``-d[A]/dt = k [A]^2``, twice the
+IUPAC constant of the rate of reaction (``r = k_IUPAC [A]^2``, ``d[A]/dt = -2 r``).  Ea and
+dH‡ do not depend on the choice; ln A and dS‡ do: from the loss-of-A constant they are
+larger by ln 2 and by R ln 2 = 5.76 J/(mol K) (dG‡ smaller by R T ln 2).  Every other
+law's k is the same in both conventions.
 """
 
 from __future__ import annotations
@@ -66,6 +73,9 @@ DEFAULT_REFERENCE_TEMPERATURE_KELVIN = 298.15
 _SUSPICIOUS_CELSIUS = 200.0
 _SUSPICIOUS_KELVIN = 150.0
 _DUPLICATE_TOLERANCE_KELVIN = 0.005
+# Finite-difference steps relative to each parameter (scipy's default step is absolute
+# below |x| = 1, too coarse for concentrations of 1e-4 mol/L).
+_RELATIVE_STEP = float(np.sqrt(np.finfo(float).eps))
 
 
 def eyring_prefactor_per_s(temperature_kelvin):
@@ -546,6 +556,9 @@ def analyse_temperatures(
     x = 1.0 / t
     arrhenius = _fit_line(x, np.log(k), sigma_lnk)
     eyring = _fit_line(x, np.log(k / t), sigma_lnk)
+    if basis == "scatter" and arrhenius.dof > 0 and not arrhenius.reduced_chi2 > 1e-12:
+        warnings.append("the runs lie on the Arrhenius line to rounding error: the scatter-based intervals "
+                        "are (near) zero width and mean nothing; use the stated basis")
     lo, hi = t.min(), t.max()
     if not lo <= reference_temperature_kelvin <= hi:
         warnings.append(f"dG‡ is evaluated at {reference_temperature_kelvin:.2f} K, outside the measured "
@@ -567,57 +580,61 @@ def analyse_temperatures(
 
 
 def read_arrhenius_table(path: str | Path):
-    """Read a CSV of runs: ``temperature_c`` or ``temperature_kelvin``, ``k``, ``k_stderr``.
+    """Read a delimited table of runs: ``temperature_c`` or ``temperature_kelvin``, ``k``, ``k_stderr``.
 
-    An optional ``label`` column names the runs.  Returns
+    An optional ``label`` column names the runs; ``#`` lines are comments; the delimiter
+    (comma, tab, semicolon) is detected from the header.  Returns
     ``(temperature_kelvin, k, k_stderr, labels, warnings)``.
 
     Raises
     ------
     InputFileError
-        Missing columns, both temperature columns, or a cell that is not a usable number
-        (naming the file line).
+        A missing/unreadable file, missing columns, both temperature columns, a row with
+        the wrong number of cells or a cell that is not a usable number (naming the line).
     """
-    import pandas as pd
+    from kinetics.rates.table import read_rows
 
     path = Path(path)
-    try:
-        frame = pd.read_csv(path, comment="#", skipinitialspace=True)
-    except FileNotFoundError:
-        raise InputFileError(path, "file not found") from None
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as error:
-        raise InputFileError(path, f"not a readable CSV table ({error})") from None
-    frame.columns = [str(c).strip() for c in frame.columns]
-    has_c, has_k = "temperature_c" in frame, "temperature_kelvin" in frame
+    header, rows, lines, header_line = read_rows(path)
+    has_c, has_k = "temperature_c" in header, "temperature_kelvin" in header
     if has_c == has_k:
         raise InputFileError(path, "needs exactly one of the columns temperature_c, temperature_kelvin",
-                             line=1, hint=f"found columns: {', '.join(frame.columns)}")
+                             line=header_line, hint=f"found columns: {', '.join(header)}")
     for column in ("k", "k_stderr"):
-        if column not in frame:
-            raise InputFileError(path, f"missing column '{column}'", line=1,
-                                 hint=f"found columns: {', '.join(frame.columns)}")
+        if column not in header:
+            raise InputFileError(path, f"missing column '{column}'", line=header_line,
+                                 hint=f"found columns: {', '.join(header)}")
+    if not rows:
+        raise InputFileError(path, "no data rows", hint="one row per run: temperature, k, k_stderr")
+    for row, line in zip(rows, lines):
+        if len(row) != len(header):
+            raise InputFileError(path, f"{len(row)} cells but the header has {len(header)}", line=line)
     t_column = "temperature_c" if has_c else "temperature_kelvin"
-    # Line numbers: header is line 1; comment lines are skipped by pandas, so count data rows.
-    labels = (frame["label"].astype(str).tolist() if "label" in frame
-              else [f"row {i + 2}" for i in range(len(frame))])
+    index = {name: header.index(name) for name in header}
+    labels = ([row[index["label"]].strip() or f"line {line}" for row, line in zip(rows, lines)]
+              if "label" in index else [f"line {line}" for line in lines])
     numbers = {}
     for column in (t_column, "k", "k_stderr"):
-        values = pd.to_numeric(frame[column], errors="coerce").to_numpy(float)
-        for i, value in enumerate(values):
-            if not np.isfinite(value):
-                raise InputFileError(path, f"column '{column}' value {frame[column].iloc[i]!r} is not a number",
-                                     line=i + 2, hint="every run needs a numeric temperature, k and k_stderr")
+        values = []
+        for row, line in zip(rows, lines):
+            text = row[index[column]].strip()
+            try:
+                value = float(text)
+            except ValueError:
+                value = math.nan
+            if not math.isfinite(value):
+                raise InputFileError(path, f"column '{column}' holds {text!r}, not a finite number", line=line,
+                                     hint="every run needs a numeric temperature, k and k_stderr")
             if column != t_column and value <= 0:
-                raise InputFileError(path, f"column '{column}' value {value:g} is not positive", line=i + 2,
+                raise InputFileError(path, f"column '{column}' value {value:g} is not positive", line=line,
                                      hint="ln k needs k > 0 and weights need k_stderr > 0")
-        numbers[column] = values
-    t_values = numbers[t_column]
-    for i, value in enumerate(t_values):
-        kelvin = value + ZERO_CELSIUS_KELVIN if has_c else value
-        if kelvin <= 0:
-            raise InputFileError(path, f"{t_column} {value:g} is at or below absolute zero", line=i + 2,
-                                 hint="check the unit of the column")
-    kelvin, warnings = to_kelvin(t_values, "c" if has_c else "k", labels)
+            kelvin = value + ZERO_CELSIUS_KELVIN if column == "temperature_c" else value
+            if column == t_column and kelvin <= 0:
+                raise InputFileError(path, f"{t_column} {value:g} is at or below absolute zero", line=line,
+                                     hint="check the unit of the column")
+            values.append(value)
+        numbers[column] = np.array(values)
+    kelvin, warnings = to_kelvin(numbers[t_column], "c" if has_c else "k", labels)
     return kelvin, numbers["k"], numbers["k_stderr"], labels, warnings
 
 
@@ -852,6 +869,7 @@ class RunFit:
     success: bool
     message: str
     fit: Any = field(default=None, repr=False, compare=False)
+    data_warnings: tuple[str, ...] = ()  # from reading the run's data (e.g. negative values)
 
 
 def fit_run_rates(run: KineticRun, model: str | GlobalModel = "first", observed: str = "reactant",
@@ -877,7 +895,7 @@ def fit_run_rates(run: KineticRun, model: str | GlobalModel = "first", observed:
     ok = bool(result.converged) and np.isfinite(stderr) and stderr > 0
     message = result.message if ok else f"fit failed: {result.message}"
     return RunFit(run.label, run.temperature_kelvin, float(rate.value), stderr, params, int(result.n_points), ok,
-                  message, result)
+                  message, result, tuple(data.warnings))
 
 
 def fit_run(run: KineticRun, model: str | GlobalModel | Callable = "first", k_guess: float | None = None) -> RunFit:
@@ -905,7 +923,7 @@ def fit_run(run: KineticRun, model: str | GlobalModel | Callable = "first", k_gu
             d = model.jacobian(t, k, **dict(zip(model.nuisance, x[1:])))
             return np.column_stack([d["k"] * k] + [d[p] for p in model.nuisance]) / sigma[:, None]
 
-    sol = optimize.least_squares(residual, x0, jac=jac, method="lm")
+    sol = optimize.least_squares(residual, x0, jac=jac, method="lm", diff_step=_RELATIVE_STEP)
     dof = len(c) - len(x0)
     ok = bool(sol.success) and dof > 0
     try:
@@ -1114,7 +1132,8 @@ class _GlobalProblem:
     def solve(self, x0, fixed_ea: float | None = None):
         jac = self.jacobian if self.model.jacobian is not None else "2-point"
         if fixed_ea is None:
-            return optimize.least_squares(self.residual, x0, jac=jac, method="lm", x_scale="jac")
+            return optimize.least_squares(self.residual, x0, jac=jac, method="lm", x_scale="jac",
+                                          diff_step=_RELATIVE_STEP)
         free = np.r_[0, np.arange(2, self.n_params)]
 
         def full(z):
@@ -1125,7 +1144,8 @@ class _GlobalProblem:
 
         res = (lambda z: self.residual(full(z)))
         sub_jac = (lambda z: self.jacobian(full(z))[:, free]) if callable(jac) else "2-point"
-        return optimize.least_squares(res, np.asarray(x0)[free], jac=sub_jac, method="lm", x_scale="jac")
+        return optimize.least_squares(res, np.asarray(x0)[free], jac=sub_jac, method="lm", x_scale="jac",
+                                      diff_step=_RELATIVE_STEP)
 
 
 def harmonic_mean_temperature(temperature_kelvin) -> float:
@@ -1209,7 +1229,13 @@ def global_fit(
     success, message = bool(sol.success), str(sol.message)
     q = float(stats.t.ppf(0.975, dof)) if dof > 0 else float("nan")
     try:
-        cov = np.linalg.inv(sol.jac.T @ sol.jac) * (chi2 / dof)
+        from kinetics.rates.intervals import covariance_from_jacobian
+
+        # Column-normalised SVD: the rank test must not depend on the units of the nuisance
+        # concentrations (mol/L or micromol/L) next to ln k and Ea in kJ/mol.
+        cov = covariance_from_jacobian(sol.jac, chi2 / dof) if dof > 0 else None
+        if cov is None:
+            raise np.linalg.LinAlgError("Jacobian rank deficient" if dof > 0 else "no degrees of freedom")
         if not np.all(np.isfinite(np.diag(cov))) or np.any(np.diag(cov) < 0):
             raise np.linalg.LinAlgError("non-finite covariance")
     except (np.linalg.LinAlgError, ZeroDivisionError) as error:

@@ -132,3 +132,50 @@ def test_format_specific_readers_refuse_the_other_format(tmp_path):
     with pytest.raises(InputFileError, match="not delimited"):
         read_delimited(DATA / "ethyl-crotonate.1h.dx")
     assert read_jcampdx(DATA / "ethyl-crotonate.1h.dx").n_points == 16384
+
+
+@pytest.mark.parametrize("text", [
+    # Decimal commas as spreadsheets in comma-decimal locales export them (common practice):
+    # with semicolons, with tabs, and whitespace-separated when every number has one.
+    "# observe_mhz: 60\nppm;intensity\n3,5;1,25\n2,5;2\n1,5;-3e-1\n",
+    "# observe_mhz: 60\n3,5\t1,25\n2,5\t2\n1,5\t-0,3\n",
+    "# observe_mhz: 60\n3,5 1,25\n2,5 2\n1,5 -0,3\n",
+])
+def test_decimal_comma(tmp_path, text):
+    path = tmp_path / "eu.csv"
+    path.write_text(text)
+    spectrum = read(path)
+    np.testing.assert_array_equal(spectrum.ppm, [3.5, 2.5, 1.5])
+    np.testing.assert_array_equal(spectrum.real, [1.25, 2.0, -0.3])
+
+
+def test_column_names_with_units_and_words(tmp_path):
+    # Names as instrument exports and spreadsheets write them; the order is taken from them.
+    path = tmp_path / "named.tsv"
+    path.write_text("# observe_mhz: 60\nIntensity (a.u.)\tImaginary part\tChemical shift [ppm]\n"
+                    "5\t1\t3.0\n6\t2\t2.0\n7\t3\t1.0\n")
+    spectrum = read(path)
+    np.testing.assert_array_equal(spectrum.ppm, [3.0, 2.0, 1.0])
+    np.testing.assert_array_equal(spectrum.real, [5, 6, 7])
+    np.testing.assert_array_equal(spectrum.imag, [1, 2, 3])
+
+
+def test_large_table_is_held_compactly(tmp_path):
+    # 50 000 rows: parsing must not keep a Python string per line or a list per row
+    # (~100-200 bytes a row, 10-30 times the file); the record's own arrays, the text and
+    # the parse buffers stay below 10 times the file size.  numpy's and array's buffers
+    # are reported to tracemalloc, so the measure covers them.
+    import tracemalloc
+
+    n = 50_000
+    path = tmp_path / "big.csv"
+    path.write_text("# observe_mhz: 60\n" + "".join(f"{10 - i * 1e-4:.4f},{i % 7}\n" for i in range(n)))
+    tracemalloc.start()
+    try:
+        spectrum = read(path)
+        _, peak_bytes = tracemalloc.get_traced_memory()
+    finally:
+        tracemalloc.stop()
+    assert spectrum.n_points == n
+    size = path.stat().st_size
+    assert peak_bytes < 10 * size, (peak_bytes, size)

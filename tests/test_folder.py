@@ -54,9 +54,10 @@ def test_missing_folder_is_a_clear_error(tmp_path):
         watcher.start()
 
 
-def test_file_written_in_pauses_is_taken_once_and_whole(tmp_path):
-    # 10 chunks, pauses (0.12 s) longer than the poll latency (0.02 s) but shorter than
-    # the quiet period (0.4 s): the file must be handed over once, complete.
+@pytest.mark.parametrize("poll", [True, False], ids=["polling", "watchdog"])
+def test_file_written_in_pauses_is_taken_once_and_whole(tmp_path, poll):
+    # 10 chunks written in place, pauses (0.12 s) longer than the event / poll latency
+    # (0.02 s) but shorter than the quiet period (0.4 s): handed over once, complete.
     data = b"x" * 10_000
     target = tmp_path / "slow.dx"
 
@@ -67,7 +68,8 @@ def test_file_written_in_pauses_is_taken_once_and_whole(tmp_path):
                 handle.flush()
                 time.sleep(0.12)
 
-    watcher = FolderWatcher(WatchSpec(tmp_path, quiet_period_s=0.4, poll=True, poll_interval_s=0.02))
+    watcher = FolderWatcher(WatchSpec(tmp_path, quiet_period_s=0.4, poll=poll, poll_interval_s=0.02,
+                                      rescan_interval_s=60))
     watcher.start()
     writer = threading.Thread(target=write)
     writer.start()
@@ -82,6 +84,7 @@ def test_file_written_in_pauses_is_taken_once_and_whole(tmp_path):
         time.sleep(0.02)
     writer.join()
     taken += drain(watcher, lambda t: False, timeout_s=0.8)  # nothing more may come
+    watcher.stop()
     assert [item.relpath for item in taken] == ["slow.dx"]
     assert seen_sizes == [len(data)]
 

@@ -239,3 +239,17 @@ def test_simulated_60_mhz_alkene_doublets_of_quartets_and_close_singlets():
     for shift in (3.30, 3.05):
         holders = [w for w in windows if w.window_ppm[0] < shift < w.window_ppm[1]]
         assert len(holders) == 1 and len(holders[0].peaks) == 1, [w.window_ppm for w in holders]
+
+
+def test_csv_folder_pattern_leaves_out_the_unreadable_table(tmp_path):
+    # The simulator writes truth.csv beside spectrum_000N.csv; init notes it as unreadable
+    # and drafts a glob that matches the spectra only.
+    folder = tmp_path / "csv_run"
+    simulate.write_series(folder, np.arange(2) * 300.0, {"ester": np.ones(2), "acid": np.ones(2), "tms": np.ones(2)},
+                          [ESTER, ACID, TMS], np.random.default_rng(2), format="csv", snr=150.0,
+                          acquisition=simulate.Acquisition(observe_mhz=MHZ, n_points=4096))
+    draft = draft_config(folder, tmp_path / "csv.toml")
+    assert len(draft.skipped) == 1 and "truth.csv" in draft.skipped[0]
+    config = load_run_config(tmp_path / "csv.toml")
+    assert config.pattern == "spectrum_*.csv"
+    assert sorted(p.name for p in folder.glob(config.pattern)) == ["spectrum_0001.csv", "spectrum_0002.csv"]

@@ -345,7 +345,7 @@ def test_hostile_declared_size_is_refused(tmp_path):
 def test_hostile_repeat_count_is_refused(tmp_path):
     text = SMALL.replace("5 6 7 8 9 10 11", "5F6JS99999999999")
     error = _error(tmp_path, text)
-    assert "repeat" in error.problem or "more than" in error.problem
+    assert "repeat" in error.problem or "more points than" in error.problem
 
 
 def test_repeat_beyond_the_declared_count_is_refused_before_expanding(tmp_path):
@@ -414,3 +414,75 @@ def test_hand_made_asdf_sqz_dup_dif_agrees_with_nmrglue(tmp_path):
     np.testing.assert_array_equal(read(path).real, expected)
     _, real, _ = _nmrglue(path)
     np.testing.assert_array_equal(real, expected)
+
+
+@pytest.mark.parametrize("written, expected_utc", [
+    # JCAMP-DX 5.01 form YYYY/MM/DD HH:MM:SS.SSSS +UUUU (Davies & Lampen 1993, ##LONG DATE),
+    # and forms exporters write (from memory): ISO 8601 with T and Z, two-digit zones, a
+    # named zone, a comma before the time, no seconds.
+    ("2005/01/25 17:46:30.1234 +0100", datetime(2005, 1, 25, 16, 46, 30, 123400, tzinfo=timezone.utc)),
+    ("2005-01-25T17:46:30Z", datetime(2005, 1, 25, 17, 46, 30, tzinfo=timezone.utc)),
+    ("2005/01/25 17:46:30+01", datetime(2005, 1, 25, 16, 46, 30, tzinfo=timezone.utc)),
+    ("2005/1/5 7:46:30 -05:00", datetime(2005, 1, 5, 12, 46, 30, tzinfo=timezone.utc)),
+    ("2005/01/25 17:46:30 GMT+01:00", datetime(2005, 1, 25, 16, 46, 30, tzinfo=timezone.utc)),
+    ("2005/01/25, 17:46", datetime(2005, 1, 25, 17, 46, tzinfo=timezone.utc)),
+    ("2005/01/25", datetime(2005, 1, 25, tzinfo=timezone.utc)),
+])
+def test_long_date_variants(tmp_path, written, expected_utc):
+    text = SMALL.replace("##XUNITS", f"##LONG DATE= {written}\n##XUNITS")
+    assert read(_write(tmp_path, text)).acquired_utc == expected_utc
+
+
+@pytest.mark.parametrize("written", ["25/01/2005 17:46:30", "2005/01/25 17:46:30 +1500", "yesterday",
+                                     "2005/01/25" + " " * 100_000 + "x"])
+def test_ambiguous_or_bad_long_date_is_refused(tmp_path, written):
+    # Day-first dates cannot be told from month-first ones; zones beyond +14:00 do not exist.
+    error = _error(tmp_path, SMALL.replace("##XUNITS", f"##LONG DATE= {written}\n##XUNITS"))
+    assert "LONG DATE" in error.problem and error.line == 5
+
+
+_PEAKS = ("##TITLE= peaks\n##JCAMP-DX= 5.01\n##DATA TYPE= NMR PEAK TABLE\n##.OBSERVE FREQUENCY= 60.0\n"
+          "##XUNITS= PPM\n##NPOINTS= 2\n##PEAK TABLE= (XY..XY)\n1.0, 5.0\n2.0, 6.0\n##END=\n")
+
+
+def _link(*blocks: str) -> str:
+    # JCAMP-DX 5 compound file: a LINK block enclosing the data blocks (McDonald & Wilks
+    # 1988 and its 5.0 update, ##BLOCKS=).
+    return f"##TITLE= link\n##JCAMP-DX= 5.01\n##DATA TYPE= LINK\n##BLOCKS= {len(blocks)}\n" + "".join(blocks) + "##END=\n"
+
+
+def test_peak_table_only_is_a_clear_error(tmp_path):
+    error = _error(tmp_path, _PEAKS)
+    assert "peak list" in error.problem and "PEAK TABLE" in error.problem and error.line == 7
+
+
+def test_link_file_with_spectrum_and_peak_table_reads_the_spectrum(tmp_path):
+    spectrum = read(_write(tmp_path, _link(SMALL.replace("##TITLE= small", "##TITLE= the spectrum"), _PEAKS)))
+    assert spectrum.header["TITLE"] == "the spectrum"
+    np.testing.assert_array_equal(spectrum.real, np.arange(1, 12))
+
+
+def test_two_spectra_in_one_file_are_refused(tmp_path):
+    for text in (_link(SMALL, SMALL), SMALL + SMALL):
+        error = _error(tmp_path, text)
+        assert "2 data blocks" in error.problem and "one spectrum" in error.hint
+    assert "truncated" in _error(tmp_path, _link(SMALL, SMALL)[: -len("##END=\n")]).problem
+
+
+def test_var_dim_mismatch_in_ntuples(tmp_path):
+    # ##VAR_DIM= states the points of every NTUPLES page (JCAMP-DX 5.01, Davies & Lampen
+    # 1993); a page holding another number is damaged.
+    text = spectrum_text(_synthetic_spectrum(np.random.default_rng(4), n=64), "affn")
+    assert "##VAR_DIM= 64, 64, 64" in text
+    error = _error(tmp_path, text.replace("##VAR_DIM= 64, 64, 64", "##VAR_DIM= 64, 65, 65"))
+    assert "VAR_DIM" in error.problem and error.line is not None
+
+
+def test_xypoints_axis_must_be_monotonic(tmp_path):
+    # (XY..XY) tables carry every abscissa; a reversal is a damaged axis, not a spectrum.
+    text = SMALL.replace("##XYDATA= (X++(Y..Y))\n10 1 2 3 4 5\n5 6 7 8 9 10 11\n",
+                         "##XYPOINTS= (XY..XY)\n3.0, 1; 2.0, 2\n2.5, 3; 1.0, 4\n")
+    text = text.replace("##NPOINTS= 11", "##NPOINTS= 4")
+    assert "monotonic" in _error(tmp_path, text).problem
+    spectrum = read(_write(tmp_path, text.replace("2.5, 3", "1.5, 3").replace("1.0, 4", "0.5, 4")))
+    np.testing.assert_array_equal(spectrum.ppm, [3.0, 2.0, 1.5, 0.5])

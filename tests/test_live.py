@@ -17,7 +17,6 @@ import urllib.request
 from pathlib import Path
 
 import numpy as np
-import pytest
 
 sys.path.insert(0, str(Path(__file__).parent))
 import test_live_support as support  # noqa: E402
@@ -193,3 +192,27 @@ def test_page_refreshes_itself_and_server_binds_loopback(tmp_path):
             assert response.read().decode() == page
     finally:
         server.stop()
+
+
+def test_terminal_panel_shows_k_forecast_and_counts():
+    import io
+
+    from rich.console import Console
+
+    from watchers.views import TerminalView
+
+    status = LiveStatus(folder="/data", started_utc="t0", updated_utc="t1",
+                        counts={"processed": 12, "quarantined": 2, "duplicate": 1, "replaced": 0},
+                        latest_path="s12.dx", latest_acquired_utc="2026-01-01T10:00:00Z",
+                        concentrations={"A_concentration": (0.21, 0.004)},
+                        k={"value": 1.5e-3, "stderr": 1e-5, "ci95": [1.48e-3, 1.52e-3], "unit": "s^-1"},
+                        target_conversion=0.9,
+                        time_to_target_s={"value": 1535.0, "stderr": 9.0, "ci95": [1517.0, 1553.0],
+                                          "unit": "s"})
+    console = Console(file=io.StringIO(), width=120)
+    console.print(TerminalView(enabled=False)._panel(status))
+    text = console.file.getvalue()
+    assert "s12.dx" in text and "0.21 ± 0.004 mol/L" in text
+    assert "0.0015  (95 %: 0.00148 – 0.00152) s^-1" in text
+    assert "time to 90%" in text and "1535" in text
+    assert "12 processed, 1 duplicate, 2 quarantined" in text

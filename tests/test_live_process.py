@@ -51,20 +51,43 @@ def processed_in(out: Path) -> int:
         return -1
 
 
+def counted(out: Path) -> int:
+    """Processed files in the ledger, read through a read-only connection (0 if none yet)."""
+    import sqlite3
+
+    if not (out / "ledger.sqlite").exists():
+        return 0
+    try:
+        db = sqlite3.connect(f"file:{out / 'ledger.sqlite'}?mode=ro", uri=True, timeout=10)
+        try:
+            return db.execute("SELECT COUNT(*) FROM files WHERE status = 'processed'").fetchone()[0]
+        finally:
+            db.close()
+    except sqlite3.OperationalError:  # tables not created yet
+        return 0
+
+
 def test_kill_minus_9_during_a_replay_five_times_loses_and_doubles_nothing(tmp_path):
     source, folder, out = tmp_path / "src", tmp_path / "in", tmp_path / "out"
     support.write_series(source, 200, seed=21)
     folder.mkdir()
     replay = subprocess.Popen([sys.executable, "-m", "watchers.replay", str(source), str(folder),
-                               "--interval", "0.02", "--chunks", "4"],
+                               "--interval", "0.08", "--chunks", "4"],
                               stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     rng = np.random.default_rng(2026)
+    progress = []
     for _ in range(5):
+        before = counted(out)
         watcher = start_watcher(folder, out)
-        time.sleep(rng.uniform(1.0, 2.2))  # past start-up (~1 s), inside the work
+        # kill while it works: once it has taken new files, after a random extra moment
+        wait_for(lambda: counted(out) > before or counted(out) == 200)
+        time.sleep(rng.uniform(0.0, 0.4))
         watcher.kill()
         watcher.wait()
         assert watcher.returncode == -signal.SIGKILL
+        progress.append(counted(out))
+    print("processed at each kill:", progress)
+    assert sum(0 < n < 200 for n in progress) >= 3, progress  # kills landed mid-run
     assert replay.wait(timeout=60) == 0
     final = start_watcher(folder, out, "--idle", "1.0")
     stdout, stderr = final.communicate(timeout=90)

@@ -94,3 +94,18 @@ def test_watch_command_replay_equals_batch_run(tmp_path):
     assert k["ci95"][0] <= TRUE_K_PER_S <= k["ci95"][1]
     page = (tmp_path / "live" / "index.html").read_text()
     assert "replay finished" in page and "data:image/png;base64," in page
+
+
+def test_unknown_or_bad_live_keys_name_the_key(tmp_path):
+    import pytest
+
+    from kinetics.errors import ConfigError
+    from watchers.live import build_from_config
+
+    (tmp_path / "in").mkdir()
+    for extra, key in (("quiet_period = 2", "live.quiet_period"),
+                       ("target_conversion = 1.5", "live.target_conversion"),
+                       ("refresh_s = 'fast'", "live.refresh_s")):
+        (tmp_path / "run.toml").write_text(CONFIG.format(folder="in") + extra + "\n")
+        with pytest.raises(ConfigError, match=key.replace(".", r"\.")):
+            build_from_config(tmp_path / "run.toml")

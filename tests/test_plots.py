@@ -44,6 +44,30 @@ def test_styles_differ_without_colour():
     assert len({s.linestyle if isinstance(s.linestyle, str) else str(s.linestyle)
                 for s in plots.SERIES_STYLES}) == len(plots.SERIES_STYLES)
     assert plots.series_style(len(plots.SERIES_STYLES)) == plots.series_style(0)
+    # In greyscale the first three series also differ in tone: relative luminance
+    # 0.2126 R + 0.7152 G + 0.0722 B of the sRGB values (ITU-R BT.709 weights, from memory;
+    # gamma ignored, which keeps the order).
+    from matplotlib.colors import to_rgb
+
+    grey = sorted(float(np.dot([0.2126, 0.7152, 0.0722], to_rgb(s.colour))) for s in plots.SERIES_STYLES[:3])
+    assert min(np.diff(grey)) > 0.15, grey
+
+
+def test_user_text_with_dollar_signs_is_drawn_as_written():
+    # Matplotlib reads "$...$" as mathtext and raises on what it cannot parse; species,
+    # window and run names come from users, so they must be drawn literally.
+    name = r"ester $\frac$ $5"
+    ppm = np.linspace(5.0, 0.0, 300)
+    figures = [
+        plots.stacked_spectra_figure([(ppm, _line_spectrum(ppm, [2.0]))], windows={name: (1.8, 2.2)}, title=name),
+        plots.concentration_figure([0, 60, 120], {name: [1.0, 0.6, 0.3]}, curve_time_s=[0, 60, 120],
+                                   curve={name: [1.0, 0.6, 0.3]}, concentration_unit="$x"),
+        plots.arrhenius_figure(*_temperature_data(), labels=[name] * 4, annotation=name),
+    ]
+    for figure in figures:
+        assert plots.png_bytes(figure)[:8] == b"\x89PNG\r\n\x1a\n"  # drawing raised nothing
+    texts = [t.get_text() for t in figures[0].axes[0].texts]
+    assert any(t.replace("\\$", "$") == name for t in texts)
 
 
 def test_stacked_spectra_axis_reversed_and_windows_shaded():

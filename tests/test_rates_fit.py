@@ -105,7 +105,7 @@ def test_fit_recovers_first_order_and_reports():
     text = result.report()
     assert "converged" in text and "k" in text and "AICc" in text and "runs" in text
     d = result.to_dict()
-    assert set(d["params"]["k"]) >= {"value", "stderr", "ci95", "unit"}
+    assert set(d["params"]["k"]) == {"value", "stderr", "ci95", "unit"}  # the project shape, nothing else
     from kinetics.jsonio import dumps
 
     assert json.loads(dumps(d))["params"]["k"]["ci95"] == list(k.ci_profile)
@@ -290,3 +290,62 @@ def test_model_choice_first_versus_second_order():
             wins += comparison.best == true_law and table.loc[other, "delta_aicc"] > 4
         assert wins >= 90, (true_law, wins)
     assert "best: " in comparison.verdict
+
+
+@pytest.mark.parametrize("name", ["zero", "first", "second"])
+def test_results_do_not_depend_on_the_units(name):
+    # Analytic: expressing time in hours and concentration in mmol/L rescales k (and its
+    # stderr) by a known factor and must change nothing else; scipy.optimize.curve_fit
+    # (relative finite-difference steps) is the reference for the stderr.
+    from scipy.optimize import curve_fit
+
+    rng = np.random.default_rng(21)
+    t = np.linspace(0, 600, 30)
+    law = {"zero": laws.zero_order, "first": laws.first_order, "second": laws.second_order}[name]
+    y = law(t, 0.8, {"zero": 8e-4, "first": 3e-3, "second": 5e-3}[name]) + rng.normal(0, 0.005, t.size)
+    base = fit_law(from_arrays(t, y), name, profile=("k",))
+    # hours and mmol/L: k scales by 3600 (zero: x1000 too, second: /1000)
+    conc_factor = {"zero": 1e3, "first": 1.0, "second": 1e-3}[name]
+    scaled = fit_law(from_arrays(t / 3600.0, y * 1e3), name, profile=("k",))
+    assert base.converged and scaled.converged
+    factor = 3600.0 * conc_factor
+    assert scaled.param("k").value == pytest.approx(base.param("k").value * factor, rel=1e-6)
+    assert scaled.param("k").stderr == pytest.approx(base.param("k").stderr * factor, rel=1e-4)
+    for a, b in zip(scaled.param("k").ci95, base.param("k").ci95):
+        assert a == pytest.approx(b * factor, rel=1e-4)
+    if name == "first":  # days instead of hours: k ~ 2.6e-6 s^-1 in seconds-of-days units
+        p, cov = curve_fit(lambda x, c0, k: c0 * np.exp(-k * x), t * 1e3, y, p0=[0.8, 3e-6])
+        slow = fit_law(from_arrays(t * 1e3, y), "first", profile=False)
+        assert slow.param("k").stderr == pytest.approx(math.sqrt(cov[1, 1]), rel=1e-4)
+
+
+def test_absolute_sigma_intervals_use_the_normal_quantile():
+    # With sigmas taken as known the covariance is not estimated: z = 1.959964 (scipy.stats.norm),
+    # not Student t.
+    from scipy import stats
+
+    rng = np.random.default_rng(13)
+    t = np.linspace(0, 300, 12)
+    y = laws.first_order(t, 1.0, 0.01) + rng.normal(0, 0.01, t.size)
+    data = from_arrays(t, y, np.full(t.size, 0.01))
+    fixed = fit_law(data, "first", absolute_sigma=True, profile=False).param("k")
+    scaled = fit_law(data, "first", profile=False).param("k")
+    assert (fixed.ci_covariance[1] - fixed.value) / fixed.stderr == pytest.approx(stats.norm.ppf(0.975), rel=1e-9)
+    assert (scaled.ci_covariance[1] - scaled.value) / scaled.stderr == pytest.approx(stats.t.ppf(0.975, 10), rel=1e-9)
+
+
+def test_unbounded_profile_is_quoted_open_not_replaced_by_covariance():
+    # A -> B -> C with B unobserved and C observed only early: k2 has no upper bound from
+    # the data.  The quoted interval stays open there and never leaves the allowed k >= 0.
+    rng = np.random.default_rng(3)
+    t = np.linspace(0, 150, 30)
+    a, _, c = laws.consecutive_first_order(t, 1.0, 0.03, 20.0)
+    data = from_arrays(t, np.vstack([a, c]) + rng.normal(0, 0.01, (2, t.size)), columns=("A", "C"))
+    result = fit_law(data, "consecutive", observed=("A", "C"))
+    lo, hi = result.param("k2").ci95
+    assert lo >= 0 and not np.isfinite(hi)
+    assert result.to_dict()["params"]["k2"]["ci95"][1] is None
+    assert "unbounded" in result.report()
+    for p in result.params:
+        if p.ci_covariance is not None:
+            assert p.ci_covariance[0] >= 0  # all parameters of this law are >= 0

@@ -166,3 +166,34 @@ def test_registry_knows_every_model():
     assert {p.name: p.unit for p in laws.get_model("second").params}["k"] == "L mol^-1 s^-1"
     with pytest.raises(ConfigError, match="unknown model"):
         laws.get_model("third")
+
+
+def test_late_times_stay_finite_whichever_step_is_faster():
+    # Analytic: [B] = [A]0 k1/(k2 - k1) (e^{-k1 t} - e^{-k2 t}) (textbook consecutive form);
+    # with k1 >> k2 and t long, exp((k1 - k2) t) would overflow in the naive rewrite.
+    t = np.array([0.0, 1.0, 10.0, 100.0, 800.0, 2000.0])
+    a0, k1, k2 = 1.0, 1.0, 0.01
+    with np.errstate(over="raise", invalid="raise", divide="raise"):
+        a, b, c = laws.consecutive_first_order(t, a0, k1, k2)
+    textbook = a0 * k1 / (k2 - k1) * (np.exp(-k1 * t) - np.exp(-k2 * t))
+    assert np.allclose(b, textbook, rtol=1e-12, atol=0)
+    assert np.allclose(a + b + c, a0, rtol=1e-14)
+    # the same through the mechanism path (solve_ivp), long after A is gone
+    mech = parse_mechanism("A -> B : k1; B -> C : k2")
+    sim = mech.simulate(t, {"A": a0}, {"k1": k1, "k2": k2}, atol=1e-16, **TIGHT)
+    assert np.allclose(sim[1][1:], b[1:], rtol=1e-6, atol=0)
+    # A + B -> P with B in excess: the textbook form a0 D/(b0 e^{D k t} - a0) tends to 0
+    with np.errstate(over="ignore"):
+        textbook_a = 1.0 * 1.0 / (2.0 * np.exp(1.0 * t) - 1.0)
+    with np.errstate(over="raise", invalid="raise", divide="raise"):
+        mixed = laws.second_order_mixed(t, 1.0, 2.0, 1.0)
+    assert np.allclose(mixed, textbook_a, rtol=1e-12, atol=1e-300)
+
+
+def test_mechanism_initial_concentrations_refer_to_time_zero():
+    # Times are seconds from the reaction start: c0_A is [A] at t = 0 even when the first
+    # observation is later, as for the integrated laws (analytic first order).
+    model = mechanism_model("A -> B : k", observed=("A",))
+    t = np.array([50.0, 100.0, 200.0])
+    curve = model.predict(t, {"k": 0.01, "c0_A": 1.0, "c0_B": 0.0})[0]
+    assert np.allclose(curve, laws.first_order(t, 1.0, 0.01), rtol=1e-6)

@@ -116,7 +116,10 @@ def test_cli_compare_prints_table_and_json(capsys, tmp_path):
     payload = json.loads(out)
     models = [row["model"] for row in payload["comparison"]["table"]]
     assert models[0] == "first" and set(models) == {"zero", "first", "second", "nth"}
-    assert payload["params"]["k"]["ci95_bootstrap"] is not None
+    assert payload["intervals"]["k"]["bootstrap"] is not None
+    assert payload["intervals"]["k"]["quoted"] == "profile"
+    assert payload["intervals"]["k"]["profile"] == payload["params"]["k"]["ci95"]
+    assert all(set(p) == {"value", "stderr", "ci95", "unit"} for p in payload["params"].values())
 
 
 def test_cli_mechanism_with_two_observed_species(capsys, tmp_path):
@@ -150,3 +153,36 @@ def test_cli_unidentifiable_fit_exits_1_with_converged_false(capsys, tmp_path):
     payload = json.loads(capsys.readouterr().out)
     assert code == 1 and payload["converged"] is False
     assert "identifiable" in payload["message"] and payload["forecast"] is None
+
+
+@pytest.mark.parametrize("content, fragment", [
+    (None, "is a folder"),                       # a directory instead of a file
+    (b"\x00\x01\x02time\xff\xfe", "cannot read"),  # binary garbage (not UTF-8)
+    (b"time_s,A\n0,1\x00\n", "binary"),          # UTF-8 but with NUL bytes
+    (b"", "empty"),
+    (b"time_s,A\n", "no data rows"),
+])
+def test_unreadable_inputs_are_input_errors_through_the_cli(capsys, tmp_path, content, fragment):
+    path = tmp_path / "table.csv"
+    if content is None:
+        path.mkdir()
+    else:
+        path.write_bytes(content)
+    code, out, err = fit(capsys, path, "--json")
+    assert code == 2 and out == "" and fragment in err and "Traceback" not in err
+
+
+def test_repeated_column_and_negative_bootstrap_are_refused(capsys, tmp_path):
+    path = write(tmp_path, GOOD_ROWS)
+    code, _, err = cli.main(["fit", str(path), "--time-column", "time_s", "--column", "A", "--column", "A",
+                             "--model", "first"]), *capsys.readouterr()
+    assert code == 2 and "more than once" in err
+    code, _, err = fit(capsys, path, "--bootstrap", "-5")
+    assert code == 2 and "bootstrap" in err
+
+
+def test_negative_values_give_one_summary_per_table(tmp_path):
+    rows = GOOD_ROWS[:-1] + [(300, -0.02), (360, -0.01), (420, -0.03)]
+    data = read_concentration_table(write(tmp_path, rows), "time_s", ["A"])
+    assert len(data.warnings) == 1
+    assert "has 3" in data.warnings[0] and "-0.03" in data.warnings[0] and "line 7" in data.warnings[0]

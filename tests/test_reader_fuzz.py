@@ -45,7 +45,15 @@ def documents(draw):
     kind = draw(st.sampled_from(["xydata", "ntuples", "fid", "csv"]))
     record = _record(draw(st.integers(0, 2**16)), draw(st.integers(4, 120)), kind)
     if kind == "csv":
-        return csv_text(record).encode()
+        # As written, tab-separated, or semicolon-separated with decimal commas (the
+        # spreadsheet export of comma-decimal locales).
+        variant = draw(st.sampled_from([",", "\t", ";"]))
+        lines = csv_text(record).splitlines()
+        if variant == "\t":
+            lines = [line if line.startswith("#") else line.replace(",", "\t") for line in lines]
+        elif variant == ";":
+            lines = [line if line.startswith("#") else line.replace(",", ";").replace(".", ",") for line in lines]
+        return ("\n".join(lines) + "\n").encode()
     compression = draw(st.sampled_from(["affn", "dif"]))
     text = fid_text(record, compression) if kind == "fid" else spectrum_text(record, compression)
     return text.encode()

@@ -178,3 +178,50 @@ def test_cli_arrhenius_kelvin_as_celsius_warns(tmp_path, capsys):
     assert cli.main(["arrhenius", str(table), "--json"]) == 0
     data = json.loads(capsys.readouterr().out)
     assert any("looks like a kelvin value" in w for w in data["warnings"])
+
+
+@pytest.mark.parametrize("content, match", [
+    (None, "is a folder"),
+    (b"\x89PNG\r\n\x1a\n\x00\x00\xff", "cannot read"),
+    (b"", "empty"),
+    (b"label,temperature_c,k,k_stderr\n", "no data rows"),
+    (b"label,temperature_c,k,k_stderr\na,25,1e-3,1e-5,9\nb,35,2e-3,2e-5\nc,45,4e-3,4e-5\n", "5 cells"),
+    # comment and blank lines before the bad cell: the message names the file's own line
+    (b"# runs\n\nlabel,temperature_c,k,k_stderr\na,25,1e-3,1e-5\n# note\nb,35,,2e-5\nc,45,4e-3,4e-5\n", "line 6"),
+    (b"label,temperature_c,k,k_stderr\na,25,1e-3,1e-5\nb,35,nan,2e-5\nc,45,4e-3,4e-5\n", "'nan'"),
+])
+def test_cli_arrhenius_hostile_files(tmp_path, capsys, content, match):
+    path = tmp_path / "runs.csv"
+    if content is None:
+        path.mkdir()
+    else:
+        path.write_bytes(content)
+    assert cli.main(["arrhenius", str(path), "--json"]) == 2
+    captured = capsys.readouterr()
+    assert captured.out == "" and match in captured.err and "Traceback" not in captured.err
+
+
+def test_cli_arrhenius_reads_tab_separated_tables(tmp_path, capsys):
+    # N2O5, Daniels & Johnston 1921 (values from memory; see test_temperature), tab-separated.
+    path = tmp_path / "runs.tsv"
+    rows = zip([0.0, 25.0, 35.0, 45.0, 55.0, 65.0], [7.87e-7, 3.46e-5, 1.35e-4, 4.98e-4, 1.50e-3, 4.87e-3])
+    path.write_text("temperature_c\tk\tk_stderr\n" + "".join(f"{t - 0.15}\t{k}\t{0.03 * k}\n" for t, k in rows))
+    assert cli.main(["arrhenius", str(path), "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["ea_kj_per_mol"]["value"] == pytest.approx(24.7 * constants.calorie, abs=1.0)
+
+
+def test_study_summarises_negative_values_and_skipped_rows(example, tmp_path, caplog):
+    # Late points scattering below zero in every run: one study-level warning, not one per value.
+    for path in tmp_path.glob("series_*.csv"):
+        frame = pd.read_csv(path)
+        frame.loc[frame.index[-3:], "ester"] = [-0.001, -0.002, -0.0015]
+        frame.loc[frame.index[5], "ester"] = np.nan
+        frame.to_csv(path, index=False)
+    with caplog.at_level("WARNING"):
+        result = study.run_study(example, tmp_path / "out")
+    assert result.success
+    negative = [w for w in result.warnings if "negative" in w]
+    assert len(negative) == 1 and "4 of 4 runs" in negative[0]
+    assert sum("negative" in r.getMessage() for r in caplog.records) == 1
+    assert sum("empty cells skipped" in w for w in result.warnings) == 4

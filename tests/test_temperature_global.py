@@ -153,3 +153,21 @@ def test_registry_law_without_analytic_jacobian():
         temp.global_fit(runs, "consecutive")
     with pytest.raises(ConfigError, match="single rate constant"):
         temp.resolve_model("nth")
+
+
+def test_global_fit_does_not_depend_on_the_concentration_unit():
+    # Analytic: the same second-order study in micromol/L instead of mol/L (c x 1e-6,
+    # k x 1e6) must give the same Ea and stderr, also through the finite-difference path of a
+    # plain f(t, k, c0), where c0 enters non-linearly.
+    def second_order(t, k, c0):
+        return c0 / (1.0 + k * c0 * t)
+
+    runs = _simulated_study(np.random.default_rng(12), model="second")
+    micro = [temp.KineticRun(r.label, r.temperature_kelvin, r.time_s, r.concentration_mol_per_l * 1e-6)
+             for r in runs]
+    base = temp.global_fit(runs, temp.model_from_function(second_order, k_unit="L mol^-1 s^-1"), profile=False)
+    small = temp.global_fit(micro, temp.model_from_function(second_order, k_unit="L mol^-1 s^-1"), profile=False)
+    assert base.success and small.success
+    assert small.ea.value == pytest.approx(base.ea.value, rel=1e-6)
+    assert small.ea.stderr == pytest.approx(base.ea.stderr, rel=1e-3)
+    assert small.k_ref.value == pytest.approx(base.k_ref.value * 1e6, rel=1e-6)

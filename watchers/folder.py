@@ -23,6 +23,7 @@ check the file parses (see :func:`watchers.live.process_ready`).
 
 from __future__ import annotations
 
+import dataclasses
 import fnmatch
 import logging
 import os
@@ -292,7 +293,7 @@ class FolderWatcher:
             When the folder is missing or not a folder.
         """
         folder = check_folder(self.spec.folder)
-        self.spec = WatchSpec(**{**self.spec.__dict__, "folder": folder})
+        self.spec = dataclasses.replace(self.spec, folder=folder)
         self.tracker = CompletenessTracker(folder, self.spec.quiet_period_s, self._clock)
         if not self.spec.poll:
             from watchdog.observers import Observer

@@ -223,10 +223,6 @@ class RunLock:
 
 
 # ---------------------------------------------------------------- one batch of ready files
-class FileChangedError(Exception):
-    """A file changed while it was read (it is looked at again later)."""
-
-
 @dataclass
 class _Candidate:
     ready: ReadyFile
@@ -511,7 +507,7 @@ def run_live(pipeline: Pipeline, options: LiveOptions, stop: _StopFlag | None = 
     replay_done : callable () -> bool, optional
         When given, the run ends once it returns True and every file has been taken.
     on_turn : callable (RunState) -> None, optional
-        Called after each loop turn that took files (the bench uses it).
+        Called after each loop turn that took files (tests use it to end a run).
 
     Raises
     ------

@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import logging
 import math
+import re
 from dataclasses import dataclass, field, replace
 from typing import Callable, Mapping
 
@@ -51,19 +52,38 @@ class ParameterEstimate:
 
     @property
     def ci95(self):
-        """The interval to quote: profile if computed, else bootstrap, else covariance."""
+        """The interval to quote: profile if computed, else bootstrap, else covariance.
+
+        A profile that does not close on one side is quoted as it is, that side NaN
+        (``null`` in JSON: the data do not bound the parameter there); falling back to a
+        symmetric covariance interval would pretend a bound the data do not give.
+        """
         for interval in (self.ci_profile, self.ci_bootstrap, self.ci_covariance):
-            if interval is not None and all(np.isfinite(interval)):
+            if interval is not None:
                 return interval
-        return self.ci_profile or self.ci_bootstrap or self.ci_covariance
+        return None
+
+    @property
+    def ci95_method(self) -> str | None:
+        """Which interval :attr:`ci95` is: ``"profile"``, ``"bootstrap"``, ``"covariance"``."""
+        chosen = self.ci95
+        for method, interval in (("profile", self.ci_profile), ("bootstrap", self.ci_bootstrap),
+                                 ("covariance", self.ci_covariance)):
+            if chosen is not None and interval is chosen:
+                return method
+        return None
 
     def to_dict(self) -> dict:
-        out = parameter_dict(self.value, self.stderr, self.ci95, self.unit)
-        out["vary"] = self.vary
-        out["ci95_covariance"] = self.ci_covariance and list(self.ci_covariance)
-        out["ci95_profile"] = self.ci_profile and list(self.ci_profile)
-        out["ci95_bootstrap"] = self.ci_bootstrap and list(self.ci_bootstrap)
-        return out
+        """Exactly ``{"value", "stderr", "ci95", "unit"}`` (the project's parameter shape)."""
+        return parameter_dict(self.value, self.stderr, self.ci95, self.unit)
+
+    def intervals_dict(self) -> dict:
+        """Every 95 % interval computed, and which one ``ci95`` quotes."""
+        def listed(interval):
+            return None if interval is None else [float(v) for v in interval]
+
+        return {"quoted": self.ci95_method, "covariance": listed(self.ci_covariance),
+                "profile": listed(self.ci_profile), "bootstrap": listed(self.ci_bootstrap)}
 
 
 @dataclass(frozen=True)
@@ -167,6 +187,10 @@ class FitResult:
                 return p
         raise KeyError(name)
 
+    def _quantile(self, level: float = 0.95) -> float:
+        """Student t with ``dof`` when sigma is estimated from the fit; normal when sigmas are absolute."""
+        return iv.interval_quantile(self.dof, self.options.absolute_sigma, level)
+
     def _theta(self):
         return np.array([self.values[name] for name in self.varying])
 
@@ -199,7 +223,7 @@ class FitResult:
             lambda th: np.asarray(self.model.predict(t, self._values_at(th)), dtype=float).reshape(-1, t.size),
             self._theta(), self._stderr())  # (p, m, k)
         variance = np.einsum("imk,ij,jmk->mk", grad, self.covariance, grad)
-        half = iv.t_quantile(self.dof, level) * np.sqrt(np.maximum(variance, 0.0))
+        half = self._quantile(level) * np.sqrt(np.maximum(variance, 0.0))
         return curve, curve - half, curve + half
 
     # ------------------------------------------------------------ derived quantities
@@ -228,7 +252,7 @@ class FitResult:
                 ends = sorted(_safe(func, {**self.values, param.name: b}) for b in param.ci_profile)
                 if all(np.isfinite(ends)):
                     return DerivedQuantity(name, value, stderr, tuple(ends), unit, "profile")
-        q = iv.t_quantile(self.dof)
+        q = self._quantile()
         if positive and value > 0:
             spread = min(q * stderr / value, 700.0)  # beyond that the interval is (0, inf) anyway
             return DerivedQuantity(name, value, stderr, (value * math.exp(-spread), value * math.exp(spread)),
@@ -282,6 +306,8 @@ class FitResult:
             "columns": list(self.columns),
             "species": list(self.species),
             "params": {p.name: p.to_dict() for p in self.params},
+            "fixed": [p.name for p in self.params if not p.vary],
+            "intervals": {p.name: p.intervals_dict() for p in self.params if p.vary},
             "chi_square": self.chi_square,
             "reduced_chi_square": self.reduced_chi_square,
             "aic": self.aic,
@@ -320,7 +346,8 @@ class FitResult:
                 lines.append(f"{p.name:<12}{p.value:>14.6g}{'(fixed)':>12}  {'':<28}{p.unit}")
                 continue
             ci = p.ci95
-            ci_text = f"[{ci[0]:.5g}, {ci[1]:.5g}]" if ci is not None else "-"
+            ci_text = "-" if ci is None else "[" + ", ".join(
+                f"{end:.5g}" if np.isfinite(end) else "unbounded" for end in ci) + "]"
             stderr = f"{p.stderr:.3g}" if p.stderr is not None else "-"
             lines.append(f"{p.name:<12}{p.value:>14.6g}{stderr:>12}  {ci_text:<28}{p.unit}"
                          + ("  (at bound)" if p.at_bound else ""))
@@ -439,7 +466,7 @@ def _lmfit_minimise(problem: iv.Problem, theta0, options: FitOptions):
     outcome = minimizer.minimize(method="leastsq", xtol=options.tol, ftol=options.tol, max_nfev=max_nfev)
     theta = np.array([outcome.params[name].value for name in problem.names]) * scale
     # lmfit's own error-bar remark is about its covariance, which is not the one used here.
-    message = str(outcome.message).replace("Could not estimate error-bars", "").strip().rstrip(".")
+    message = re.sub(r"\s*Could not estimate error-bars\.?", "", str(outcome.message)).strip().rstrip(".")
     return theta, bool(outcome.success), message, outcome.nfev
 
 
@@ -485,6 +512,8 @@ def fit_model(data: ConcentrationData, model: RateModel, *, start=None, fixed=No
         raise FitError(f"model {model.name!r} predicts {len(model.species)} series "
                        f"({', '.join(model.species)}) but the data have {data.values.shape[0]} "
                        f"({', '.join(data.columns)})")
+    if int(bootstrap) < 0:
+        raise FitError(f"the number of bootstrap refits must be 0 or more, got {bootstrap}")
     if bootstrap and rng is None:
         raise FitError("a bootstrap needs rng=numpy.random.default_rng(seed)")
     if not isinstance(profile, bool):
@@ -509,7 +538,9 @@ def _finish(model, data, problem, theta0, options, rng) -> FitResult:
     messages, warnings = [], list(data.warnings)
     warm = None
     if options.warm:
-        warm = iv.fit_theta(problem, theta0, max_nfev=100 * (p + 1), tol=1e-15, jac="3-point", full=True)
+        # From a nearby optimum 1e-12 already lands within ~1e-9 relative of the cold fit;
+        # 1e-15 would spend more evaluations than the cold fit itself.
+        warm = iv.fit_theta(problem, theta0, max_nfev=100 * (p + 1), tol=1e-12, jac="3-point", full=True)
         if not warm[1]:
             warm = None
     if warm is not None:
@@ -602,7 +633,9 @@ def _finish(model, data, problem, theta0, options, rng) -> FitResult:
             se = float(stderr[i]) if np.isfinite(stderr[i]) else None
             estimates.append(ParameterEstimate(
                 spec.name, float(theta[i]), se, spec.unit, True,
-                iv.covariance_interval(theta[i], se, dof) if se is not None and converged else None,
+                iv.covariance_interval(theta[i], se, dof, absolute_sigma=options.absolute_sigma,
+                                       lower=problem.lower[i], upper=problem.upper[i])
+                if se is not None and converged else None,
                 profiles[i], boots[i], at_bound[i]))
         else:
             estimates.append(ParameterEstimate(spec.name, problem.fixed[spec.name], None,

@@ -76,7 +76,8 @@ class Problem:
 
     def ssq(self, theta) -> float:
         r = self.residual(theta)
-        return float(r @ r)
+        with np.errstate(over="ignore"):  # the 1e150 stand-ins for non-finite model values
+            return float(r @ r)
 
     def with_y(self, y) -> "Problem":
         return Problem(self.predict, self.time_s, y, self.weight, self.names, self.fixed,
@@ -87,11 +88,20 @@ def t_quantile(dof: int, level: float = 0.95) -> float:
     return float(stats.t.ppf(0.5 + level / 2.0, max(dof, 1)))
 
 
-def covariance_interval(value, stderr, dof, level=0.95):
+def interval_quantile(dof: int, absolute_sigma: bool, level: float = 0.95) -> float:
+    """Two-sided quantile: Student t with ``dof`` when the noise is estimated from the
+    residuals, normal when the sigmas are taken as known (``absolute_sigma``)."""
+    if absolute_sigma:
+        return float(stats.norm.ppf(0.5 + level / 2.0))
+    return t_quantile(dof, level)
+
+
+def covariance_interval(value, stderr, dof, level=0.95, absolute_sigma=False, lower=-np.inf, upper=np.inf):
+    """``value -+ q stderr``, clipped to the parameter's bounds (values outside are impossible)."""
     if stderr is None or not np.isfinite(stderr):
         return None
-    half = t_quantile(dof, level) * stderr
-    return (value - half, value + half)
+    half = interval_quantile(dof, absolute_sigma, level) * stderr
+    return (float(max(value - half, lower)), float(min(value + half, upper)))
 
 
 def profile_threshold(s_min, dof, absolute_sigma, level=0.95) -> float:

@@ -78,11 +78,18 @@ def second_order_mixed(time_s, a0, b0, k):
     ``[A] = [A]0 D / ([B]0 exp(D k t) - [A]0)`` is rewritten as
     ``[A] = [A]0 / (1 + [B]0 k t phi(D k t))`` with ``phi(x) = expm1(x)/x``, which is exact
     and finite as ``D -> 0`` (the equal limit ``[A]0/(1 + k [A]0 t)``).  ``[B] = [A] + D``.
-    ``k`` in L mol^-1 s^-1.
+    ``k`` in L mol^-1 s^-1.  When B is in excess (``x = D k t > 0``) the same form is divided
+    through by ``exp(x)``, ``[A] = [A]0 e^{-x} / (1 + [A]0 k t phi(-x))``, so that late times
+    do not overflow; ``phi`` is only ever evaluated at ``-|x|``.
     """
     t = np.asarray(time_s, dtype=float)
-    delta = b0 - a0
-    return a0 / (1.0 + b0 * k * t * _phi(delta * k * t))
+    x = (b0 - a0) * k * t
+    x_neg = -np.abs(x)
+    phi = _phi(x_neg)
+    with np.errstate(over="ignore", invalid="ignore"):
+        b_excess = a0 * np.exp(x_neg) / (1.0 + a0 * k * t * phi)
+        a_excess = a0 / (1.0 + b0 * k * t * phi)
+    return np.where(x > 0, b_excess, a_excess)
 
 
 def pseudo_first_order(time_s, c0, k_obs):
@@ -132,13 +139,15 @@ def consecutive_first_order(time_s, a0, k1, k2):
     """Consecutive first-order steps ``A -> B -> C``; returns ``([A], [B], [C])``.
 
     ``[A] = [A]0 e^{-k1 t}``; ``[B] = [A]0 k1/(k2 - k1) (e^{-k1 t} - e^{-k2 t})``, written as
-    ``[A]0 k1 t e^{-k1 t} phi(-(k2 - k1) t)`` with ``phi(x) = expm1(x)/x`` so the limit
-    ``k1 = k2`` (``[A]0 k t e^{-k t}``) needs no special case; ``[C] = [A]0 - [A] - [B]``.
-    Assumes no B or C at t = 0.  B peaks at ``t = ln(k1/k2)/(k1 - k2)``.
+    ``[A]0 k1 t e^{-k_min t} phi(-|k2 - k1| t)`` with ``phi(x) = expm1(x)/x`` and
+    ``k_min = min(k1, k2)``: exact, finite at late times whichever step is faster, and the
+    limit ``k1 = k2`` (``[A]0 k t e^{-k t}``) needs no special case; ``[C] = [A]0 - [A] - [B]``.
+    Assumes first-order irreversible steps and no B or C at t = 0.  B peaks at
+    ``t = ln(k1/k2)/(k1 - k2)``.  ``k1``, ``k2`` in s^-1.
     """
     t = np.asarray(time_s, dtype=float)
     a = a0 * np.exp(-k1 * t)
-    b = a0 * k1 * t * np.exp(-k1 * t) * _phi(-(k2 - k1) * t)
+    b = a0 * k1 * t * np.exp(-min(k1, k2) * t) * _phi(-abs(k2 - k1) * t)
     c = a0 - a - b
     return a, b, c
 
@@ -283,7 +292,8 @@ def _single_reactant(name, law, order, k_name="k", extra_params=(), description=
             r = _row(y)
             c_start = float(r[0]) if observed == "reactant" else float(np.max(r))
             c_start = c_start if c_start > 0 else float(np.max(np.abs(r))) or 1.0
-            values = {amplitude: c_start, k_name: _k_from_decay(t, r, order or 1, c_start)}
+            values = {amplitude: c_start,
+                      k_name: _k_from_decay(t, r, 1 if order is None else order, c_start)}
             values.update({p.name: 1.0 for p in extra_params})
             return values
 
@@ -434,7 +444,8 @@ def _first(observed):
 _BUILDERS = {
     "zero": _single_reactant("zero", zero_order, 0, description="zero order"),
     "first": _first,
-    "second": _single_reactant("second", second_order, 2, description="second order, 2 A -> P"),
+    "second": _single_reactant("second", second_order, 2,
+                               description="second order, 2 A -> P, -d[A]/dt = k[A]^2 (k = 2 k_IUPAC)"),
     "second-mixed": _second_mixed,
     "pseudo-first": _pseudo_first,
     "nth": _nth,

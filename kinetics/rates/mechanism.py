@@ -369,7 +369,9 @@ def mechanism_model(mechanism, observed, initial=None, fit_initial=(), method="L
     method, rtol, atol
         Passed to :meth:`Mechanism.simulate`.
 
-    Parameters of the model: every rate name, then ``c0_<species>`` for every species.
+    Parameters of the model: every rate name, then ``c0_<species>`` for every species: the
+    concentrations at ``t = 0`` (the reaction start; at the first time when times are
+    negative).
     """
     from kinetics.rates.laws import CONC_UNIT, ParamSpec, RateModel, _k_from_decay
 
@@ -389,6 +391,12 @@ def mechanism_model(mechanism, observed, initial=None, fit_initial=(), method="L
     def predict(t, v):
         k = np.array([v[name] for name in mechanism.rate_names])
         c0 = np.array([v[f"c0_{name}"] for name in mechanism.species])
+        t = np.asarray(t, dtype=float)
+        if t.size and t[0] > 0:
+            # c0_* are concentrations at the reaction start (t = 0), as in the integrated
+            # laws, also when the first spectrum was taken later.
+            return mechanism.simulate(np.concatenate([[0.0], t]), c0, k, method=method,
+                                      rtol=rtol, atol=atol)[rows, 1:]
         return mechanism.simulate(t, c0, k, method=method, rtol=rtol, atol=atol)[rows]
 
     def guess(t, y):

@@ -98,19 +98,23 @@ def _validate(time_s, values, sigma, columns, source, lines=None):
                              hint="times must increase strictly; sort the rows or average replicates")
     if n < 3:
         raise FitError(f"{source}: only {n} time point(s); a rate fit needs at least 3")
-    warnings = []
+    parts = []
     for r, name in enumerate(columns):
         if np.ptp(values[r]) == 0:
             raise FitError(f"{source}: column {name!r} is constant ({values[r][0]:g}); it carries no "
                            "kinetic information")
         negative = np.nonzero(values[r] < 0)[0]
         if negative.size:
-            message = (f"column {name!r} has {negative.size} negative value(s) (lowest "
-                       f"{values[r].min():.3g}{'' if lines is None else ', line ' + str(lines[negative[0]])}); "
-                       "fine if noise around zero, otherwise check the baseline")
-            log.info("%s: %s", source, message)
-            warnings.append(message)
-    return tuple(warnings)
+            first = "" if lines is None else f", first on line {lines[negative[0]]}"
+            parts.append(f"column {name!r} has {negative.size} (lowest {values[r].min():.3g}{first})")
+    if not parts:
+        return ()
+    # One summary per table, not one line per value: noise around zero is common in the
+    # late points of every run, and a study reads many runs.
+    message = ("negative concentrations: " + "; ".join(parts)
+               + ": fine if noise around zero, otherwise check the baseline")
+    log.info("%s: %s", source, message)
+    return (message,)
 
 
 def from_arrays(time_s, values, sigma=None, columns=None, source="<arrays>") -> ConcentrationData:
@@ -138,13 +142,28 @@ def from_arrays(time_s, values, sigma=None, columns=None, source="<arrays>") -> 
     return ConcentrationData(t, v, s, columns, source, warnings)
 
 
+def read_rows(path) -> tuple[list, list, list, int]:
+    """A delimited text table as ``(header, rows, file_lines, header_line)``.
+
+    Comment (``#``) and blank lines are skipped; ``file_lines[i]`` is the 1-based line of
+    ``rows[i]`` in the file, for error messages.  The delimiter (comma, tab or semicolon)
+    is the one the header uses most.  Unreadable files (missing, a directory, not UTF-8
+    text) raise :class:`~kinetics.errors.InputFileError`.
+    """
+    return _read_rows(Path(path))
+
+
 def _read_rows(path: Path):
+    if path.is_dir():
+        raise InputFileError(path, "is a folder, not a table", hint="give the path of a CSV file")
     try:
         text = path.read_text(encoding="utf-8-sig")
     except FileNotFoundError:
         raise InputFileError(path, "file not found") from None
     except (OSError, UnicodeDecodeError) as error:
         raise InputFileError(path, f"cannot read the file: {error}") from None
+    if "\x00" in text:
+        raise InputFileError(path, "holds binary data, not a text table", hint="export the table as CSV")
     numbered = [(i, line) for i, line in enumerate(text.splitlines(), start=1)
                 if line.strip() and not line.lstrip().startswith("#")]
     if not numbered:
@@ -197,6 +216,11 @@ def read_concentration_table(path, time_column, columns, sigma_columns=None) -> 
     if sigma_columns and len(sigma_columns) != len(columns):
         raise InputFileError(path, f"{len(sigma_columns)} sigma column(s) for {len(columns)} "
                              "concentration column(s)", hint="give one --sigma-column per --column")
+    repeated = sorted({name for name in [time_column, *columns, *sigma_columns]
+                       if [time_column, *columns, *sigma_columns].count(name) > 1})
+    if repeated:
+        raise InputFileError(path, f"column {repeated[0]!r} is asked for more than once",
+                             hint="each of --time-column, --column, --sigma-column names a different column")
     for name in [time_column, *columns, *sigma_columns]:
         if name not in header:
             raise InputFileError(path, f"no column named {name!r}", line=header_line,

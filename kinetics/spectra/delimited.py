@@ -19,7 +19,11 @@ Layout
   ``Spectrum.header`` as written.  Other ``#`` lines are comments.
 * An optional column-name row (``ppm``/``shift_ppm``, ``real``/``intensity``,
   ``imag``/``imaginary``); without one the columns are ppm, real and (optional) imag.
-* The separator is taken from the first data row: tab, comma, semicolon, else spaces.
+* The separator is taken from the first data row: tab, semicolon, comma, else spaces.
+  With tab or semicolon separators (and with spaces when every number has one) a comma
+  is a decimal mark (``7,25;1234,5``), as spreadsheets in many locales write it.
+* Column names may carry units or words (``Shift [ppm]``, ``Intensity (a.u.)``,
+  ``Imaginary part``); unknown names mean ppm, real, imag by position.
 * The ppm column must be strictly monotonic (either direction; stored high-to-low).
 
 Time-domain (FID) data are not read from delimited text; use JCAMP-DX for FIDs.
@@ -30,6 +34,7 @@ from __future__ import annotations
 import logging
 import math
 import re
+from array import array
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -51,14 +56,30 @@ _ROLE_NAMES = {
 _HINT = "each data row needs ppm, real and optionally imag as numbers"
 
 
-def _separator(line: str) -> str | None:
-    for candidate in ("\t", ",", ";"):
-        if candidate in line:
-            return candidate
-    return None  # whitespace
+_DECIMAL_COMMA = re.compile(r"[+-]?\d*,\d+(?:[eE][+-]?\d+)?")
 
 
-def _split(line: str, separator: str | None) -> list[str]:
+def _separator(line: str) -> tuple[str | None, bool]:
+    """(separator, decimal comma) read from the first data row.
+
+    Tab, then semicolon, then comma, else whitespace.  With tab, semicolon or whitespace
+    separators, numbers written with a decimal comma (``7,25``, as spreadsheets in many
+    locales export them) are read; a comma-separated row cannot carry them.
+    """
+    if "\t" in line or ";" in line:
+        return ("\t" if "\t" in line else ";"), True  # a comma here can only be a decimal mark
+    if "," in line:
+        by_space = line.split()
+        if 2 <= len(by_space) <= 3 and all(_DECIMAL_COMMA.fullmatch(item) or _is_number(item)
+                                           for item in by_space):
+            return None, True  # "7,25 1234,5": whitespace-separated, decimal commas
+        return ",", False
+    return None, False
+
+
+def _split(line: str, separator: str | None, decimal_comma: bool = False) -> list[str]:
+    if decimal_comma:
+        line = line.replace(",", ".")
     return [item.strip() for item in line.split(separator)] if separator else line.split()
 
 
@@ -70,8 +91,25 @@ def _is_number(text: str) -> bool:
     return True
 
 
+def _role(name: str) -> str:
+    """Role of a column from its name: exact names first, then words such as "Shift [ppm]",
+    "Intensity (a.u.)", "Imaginary part" that spreadsheets and instrument exports write."""
+    key = name.strip().strip('"\'').lower()
+    exact = _ROLE_NAMES.get(key.replace(" ", "_"), "")
+    if exact:
+        return exact
+    words = set(re.findall(r"[a-zδ]+", key))
+    if words & {"ppm", "shift", "δ", "delta"}:
+        return "ppm"
+    if words & {"imag", "imaginary", "dispersion", "im"}:
+        return "imag"
+    if words & {"real", "intensity", "absorption", "amplitude", "signal", "re", "y"}:
+        return "real"
+    return ""
+
+
 def _column_roles(path: str, names: list[str], line: int) -> list[str]:
-    roles = [_ROLE_NAMES.get(name.strip().strip('"').lower().replace(" ", "_"), "") for name in names]
+    roles = [_role(name) for name in names]
     if all(roles) and len(set(roles)) == len(roles) and "ppm" in roles and "real" in roles:
         return roles
     log.info("%s: column names %s not recognised; taking ppm, real[, imag] by position", path, names)
@@ -107,20 +145,25 @@ def _acquired(path: str, meta: dict) -> datetime | None:
     return stamp.astimezone(timezone.utc)
 
 
-def _rows_to_array(path: str, rows: list[list[str]], lines: list[int]) -> np.ndarray:
+def _lines(text: str):
+    """The lines of ``text`` one at a time (no list of all lines held at once)."""
+    if "\r" in text:
+        text = text.replace("\r\n", "\n").replace("\r", "\n")
+    start, size = 0, len(text)
+    while start < size:
+        end = text.find("\n", start)
+        if end < 0:
+            end = size
+        yield text[start:end]
+        start = end + 1
+
+
+def _row_values(path: str, fields: list[str], line: int) -> list[float]:
     try:
-        table = np.array(rows, dtype=float)
+        return [float(item) for item in fields]
     except ValueError:
-        for row, line in zip(rows, lines):
-            for item in row:
-                if not _is_number(item):
-                    raise InputFileError(path, f"non-numeric value {item[:20]!r}", line=line, hint=_HINT) from None
-        raise InputFileError(path, "data rows could not be read as numbers", line=lines[0], hint=_HINT) from None
-    bad = np.argwhere(~np.isfinite(table))
-    if bad.size:
-        raise InputFileError(path, "NaN or infinite value", line=lines[int(bad[0, 0])],
-                             hint="remove or replace the row")
-    return table
+        bad = next(item for item in fields if not _is_number(item))
+        raise InputFileError(path, f"non-numeric value {bad[:20]!r}", line=line, hint=_HINT) from None
 
 
 def parse_delimited(loaded: LoadedText) -> Spectrum:
@@ -128,46 +171,56 @@ def parse_delimited(loaded: LoadedText) -> Spectrum:
     path = loaded.path
     meta: dict[str, tuple[str, int]] = {}
     header: dict[str, str] = {}
-    rows: list[list[str]] = []
-    lines: list[int] = []
+    # Compact C arrays (8 bytes a value), not lists of strings: a large or hostile table
+    # costs a few times its size in memory, not tens of times.
+    values = array("d")
+    lines = array("q")
     roles: list[str] | None = None
     separator: str | None = None
-    for number, raw in enumerate(loaded.text.splitlines(), start=1):
+    decimal_comma = False
+    for number, raw in enumerate(_lines(loaded.text), start=1):
         line = raw.strip()
         if not line:
             continue
         if line.startswith("#"):
             match = _META_RE.match(line)
-            if match and not rows:
+            if match and not lines:
                 key = match.group(1).strip()
                 value = match.group(2).strip()
                 meta.setdefault(key.lower().replace(" ", "_"), (value, number))
                 header.setdefault(key, value)
             continue
         if roles is None:
-            separator = _separator(line)
-            fields = _split(line, separator)
+            separator, decimal_comma = _separator(line)
+            fields = _split(line, separator, decimal_comma)
             if not all(_is_number(item) for item in fields):
                 if len(fields) in (2, 3) and not any(_is_number(item) for item in fields):
                     roles = _column_roles(path, fields, number)
+                    separator = None  # taken again from the first data row
                     continue
                 raise InputFileError(path, f"not a spectrum table: {line[:40]!r}", line=number, hint=_HINT)
             if len(fields) not in (2, 3):
                 raise InputFileError(path, f"data rows need 2 or 3 columns, this one has {len(fields)}",
                                      line=number, hint=_HINT)
             roles = ["ppm", "real", "imag"][: len(fields)]
-        fields = _split(line, separator)
+        if separator is None and not lines:
+            separator, decimal_comma = _separator(line)
+        fields = _split(line, separator, decimal_comma)
         if len(fields) != len(roles):
             raise InputFileError(path, f"row has {len(fields)} columns, expected {len(roles)}",
                                  line=number, hint=_HINT)
-        rows.append(fields)
+        values.extend(_row_values(path, fields, number))
         lines.append(number)
-        if len(rows) > MAX_POINTS:
+        if len(lines) > MAX_POINTS:
             raise InputFileError(path, f"more than {MAX_POINTS} data rows", line=number,
                                  hint="split very large data sets")
-    if len(rows) < 2:
+    if len(lines) < 2:
         raise InputFileError(path, "fewer than 2 data rows", hint="a spectrum needs ppm and intensity rows")
-    table = _rows_to_array(path, rows, lines)
+    table = np.frombuffer(values, dtype=float).reshape(len(lines), len(roles))
+    bad = np.argwhere(~np.isfinite(table))
+    if bad.size:
+        raise InputFileError(path, "NaN or infinite value", line=lines[int(bad[0, 0])],
+                             hint="remove or replace the row")
     columns = {role: table[:, index] for index, role in enumerate(roles)}
     ppm = columns["ppm"]
     steps = np.diff(ppm)

@@ -16,7 +16,10 @@ version 6.0 for NMR pages: Woollam et al.).  Supported here:
   ``##.SHIFT REFERENCE= (kind, compound, point number, shift)``, else from
   ``##.OBSERVE FREQUENCY`` (ppm = Hz / MHz);
 * ``##LONG DATE`` (or the old ``##DATE``/``##TIME`` pair) -> ``acquired_utc``;
-  ``##.AVERAGES`` / ``##NUMBER OF SCANS`` -> ``n_scans``.
+  ``##.AVERAGES`` / ``##NUMBER OF SCANS`` -> ``n_scans``;
+* compound files (a ``##DATA TYPE= LINK`` block around others): the one spectrum (or
+  FID) among them is read; two spectra or two FIDs are refused as ambiguous, and a
+  file holding only a ``##PEAK TABLE=`` is told so.
 
 No standard label states a digital-filter group delay or an acquisition duration; this
 writer stores them as user-defined labels (the ``##$`` prefix JCAMP-DX reserves for

@@ -70,7 +70,14 @@ def load_text(path: str | Path) -> LoadedText:
                 hint="check that this is a spectrum file",
             )
         with open(name, "rb") as handle:
-            raw = handle.read(MAX_FILE_BYTES + 1)
+            # read(n) allocates n bytes up front: ask for the size seen, and more only if
+            # the file grew meanwhile (a spectrometer still writing it).
+            raw = handle.read(size + 1)
+            if len(raw) > size:
+                raw += handle.read(MAX_FILE_BYTES + 1 - len(raw))
+        if len(raw) > MAX_FILE_BYTES:
+            raise InputFileError(name, f"file grew beyond {MAX_FILE_BYTES} bytes while it was read",
+                                 hint="check that this is a spectrum file")
     except InputFileError:
         raise
     except OSError as error:
