@@ -294,7 +294,7 @@ def _align(spectrum: Spectrum, reference: Reference, config: RunConfig) -> tuple
 def _measure_integral(spectrum, sig, noise, reference: Reference, config: RunConfig) -> SignalResult:
     integ = config.integration
     kwargs = dict(name=sig.name, nuclei=sig.nuclei, baseline=integ.baseline, edge_fraction=integ.edge_fraction,
-                  lineshape=sig.lineshape)
+                  lineshape=sig.lineshape, correct_truncation=sig.correct_truncation)
     flags = []
     window, shift = sig.window_ppm, 0.0
     first = sg.integrate_region(spectrum, window, noise, **kwargs)

@@ -167,7 +167,11 @@ def test_unreliable_estimates_are_nan_with_a_reason():
     merged = _multiplet_spectrum(3, 2.5, 2.5)
     result = integrate_region(merged, _window(3, 2.5, 2.5, 10), QUIET)
     assert math.isnan(result.truncation_loss) and "misfit" in result.truncation_note
-    # ... which the line shape, when given, resolves
+    # a given line shape that is not the signal's (a singlet declared for a triplet)
+    wrong = integrate_region(_multiplet_spectrum(3, 7.0, 1.0), _window(3, 7.0, 1.0, 10), QUIET,
+                             lineshape=LineShape(n_lines=1, width_hz=1.0))
+    assert math.isnan(wrong.truncation_loss) and "given line shape" in wrong.truncation_note
+    # ... and the merged triplet is resolved when its line shape is given
     shape = LineShape(n_lines=3, coupling_hz=2.5, width_hz=2.5)
     result = integrate_region(merged, _window(3, 2.5, 2.5, 10), QUIET, lineshape=shape)
     assert np.isfinite(result.truncation_loss)

@@ -623,47 +623,81 @@ class RatesRefitter:
 
     Attributes
     ----------
-    column : str
-        Series-table column fitted (a concentration, mol/L).
+    columns : tuple of str
+        Series-table columns fitted (concentrations, mol/L).  One column for a rate law;
+        one per observed species for a mechanism.
     model : str
         Rate law name (:data:`kinetics.rates.laws.MODELS`), default ``"first"``.
     observed : str
-        ``"reactant"`` or ``"product"``: what ``column`` holds.
+        ``"reactant"`` or ``"product"``: what a single law column holds.
     target_conversion : float or None
-        For the forecast of the time to the target.
+        For the forecast of the time to the target (rate laws only).
     sigma_suffix : str
         ``<column><sigma_suffix>`` holds the standard uncertainties (weights) when present.
+    mechanism : str or None
+        Reaction text (:mod:`kinetics.rates.mechanism`); replaces ``model`` when given.
+    species : tuple of str
+        The mechanism species the ``columns`` measure, in the same order.
+    initial : tuple of (species, mol/L)
+        Known initial concentrations of a mechanism (the others observed are fitted).
     """
 
-    column: str
+    columns: tuple[str, ...]
     model: str = "first"
     observed: str = "reactant"
     target_conversion: float | None = None
     sigma_suffix: str = "_stderr"
+    mechanism: str | None = None
+    species: tuple[str, ...] = ()
+    initial: tuple[tuple[str, float], ...] = ()
+
+    def __post_init__(self) -> None:
+        if isinstance(self.columns, str):  # one law column may be given bare
+            object.__setattr__(self, "columns", (self.columns,))
+
+    @property
+    def column(self) -> str:
+        return self.columns[0]
+
+    def _data(self, table: pd.DataFrame):
+        import numpy as np
+
+        from kinetics.rates.table import from_arrays
+
+        for column in self.columns:
+            if column not in table:
+                raise KineticsError(f"the series table has no column {column!r} to fit")
+        rows = table[["time_s", *self.columns]].dropna()
+        sigma = None
+        sigma_columns = [f"{c}{self.sigma_suffix}" for c in self.columns]
+        if all(c in table for c in sigma_columns):
+            candidate = table.loc[rows.index, sigma_columns].to_numpy(float).T
+            sigma = candidate if np.all(np.isfinite(candidate) & (candidate > 0)) else None
+        values = rows[list(self.columns)].to_numpy(float).T
+        names = list(self.species) if self.mechanism else list(self.columns)
+        return rows, from_arrays(rows["time_s"].to_numpy(float), values, sigma=sigma, columns=names)
+
+    def fit_from_scratch(self, data):
+        from kinetics.rates.fit import fit_law, fit_mechanism
+
+        if self.mechanism:
+            return fit_mechanism(data, self.mechanism, observed=tuple(self.species),
+                                 initial=dict(self.initial) or None)
+        return fit_law(data, self.model, observed=self.observed)
 
     def __call__(self, table: pd.DataFrame, previous: FitOutcome | None) -> FitOutcome:
         import numpy as np
 
-        from kinetics.rates.fit import fit_law, refit
-        from kinetics.rates.table import from_arrays
+        from kinetics.rates.fit import refit
 
-        if self.column not in table:
-            raise KineticsError(f"the series table has no column {self.column!r} to fit")
-        rows = table[["time_s", self.column]].dropna()
-        sigma_column = f"{self.column}{self.sigma_suffix}"
+        rows, data = self._data(table)
         if len(rows) < 3:
             return FitOutcome(False, f"{len(rows)} spectra so far: a fit needs at least 3",
                               {"succeeded": False, "n_points": int(len(rows))})
-        sigma = None
-        if sigma_column in table:
-            candidate = table.loc[rows.index, sigma_column].to_numpy(float)
-            sigma = candidate if np.all(np.isfinite(candidate) & (candidate > 0)) else None
-        data = from_arrays(rows["time_s"].to_numpy(float), rows[self.column].to_numpy(float),
-                           sigma=sigma, columns=[self.column])
         if previous is not None and previous.state is not None:
             result = refit(previous.state, data)
         else:
-            result = fit_law(data, self.model, observed=self.observed)
+            result = self.fit_from_scratch(data)
         fit = result.to_dict()
         k_name = next((name for name in result.varying if name.startswith("k")), None)
         k = None if k_name is None else result.param(k_name).to_dict()
@@ -677,9 +711,72 @@ class RatesRefitter:
             if self.target_conversion is not None:
                 forecast = result.time_to_conversion(self.target_conversion).to_dict()
         grid = np.linspace(float(data.time_s[0]), last_s, 100)
-        curve = {"time_s": grid.tolist(), self.column: np.asarray(result.predict(grid))[0].tolist()}
+        predicted = np.atleast_2d(np.asarray(result.predict(grid)))
+        curve = {"time_s": grid.tolist(), self.column: predicted[0].tolist()}
         return FitOutcome(bool(result.converged), result.message, fit, k=k, conversion=conversion,
                           time_to_target_s=forecast, curve=curve, state=result)
+
+
+FIT_KEYS = {
+    # key: meaning -- the [fit] table of a run config
+    "model": "rate-law name (kinetics.rates.laws.MODELS), default \"first\"",
+    "observed": "\"reactant\" or \"product\": what the fitted species is, default \"reactant\"",
+    "species": "species fitted by a rate law, default [quantify] reactant, else the first species",
+    "mechanism": "reaction text, e.g. \"ester -> alcohol\"; replaces model",
+    "observed_species": "mechanism species taken from the series table, default all it names that are measured",
+    "initial_mol_per_l": "table species -> known initial concentration of a mechanism (mol/L)",
+}
+
+
+def refitter_from_config(config, target_conversion: float | None) -> RatesRefitter:
+    """The ``[fit]`` table of a run config as a :class:`RatesRefitter` (validated here)."""
+    from kinetics.errors import ConfigError
+    from kinetics.rates.laws import MODELS
+
+    fit = dict(config.sections.get("fit", {}) or {})
+    unknown = sorted(set(fit) - set(FIT_KEYS))
+    if unknown:
+        raise ConfigError(f"fit.{unknown[0]}", "unknown key",
+                          hint="known keys: " + ", ".join(sorted(FIT_KEYS)), source=config.path)
+    measured = list(config.species)
+    mechanism = fit.get("mechanism")
+    if mechanism is not None:
+        from kinetics.rates.mechanism import parse_mechanism
+
+        if not isinstance(mechanism, str) or not mechanism.strip():
+            raise ConfigError("fit.mechanism", "expected reaction text such as \"A -> B\"",
+                              source=config.path)
+        names = parse_mechanism(mechanism).species
+        wanted = fit.get("observed_species") or [sp for sp in names if sp in measured]
+        if not isinstance(wanted, list) or not wanted:
+            raise ConfigError("fit.observed_species", "no species of the mechanism is measured",
+                              hint=f"the mechanism names {', '.join(names)}; the signals measure "
+                                   f"{', '.join(measured)}", source=config.path)
+        for sp in wanted:
+            if sp not in measured or sp not in names:
+                raise ConfigError("fit.observed_species", f"{sp!r} is not both a measured species "
+                                  "and a species of the mechanism", source=config.path)
+        initial = fit.get("initial_mol_per_l", {}) or {}
+        if not isinstance(initial, dict) or any(
+                isinstance(v, bool) or not isinstance(v, (int, float)) or v < 0 for v in initial.values()):
+            raise ConfigError("fit.initial_mol_per_l", "expected a table species = concentration >= 0",
+                              source=config.path)
+        return RatesRefitter(tuple(f"{sp}_concentration" for sp in wanted), mechanism=mechanism,
+                             species=tuple(wanted), initial=tuple((str(k), float(v)) for k, v in initial.items()),
+                             target_conversion=target_conversion, sigma_suffix="_sigma")
+    model = str(fit.get("model", "first"))
+    if model not in MODELS:
+        raise ConfigError("fit.model", f"unknown rate law {model!r}", hint=f"use one of {', '.join(MODELS)}",
+                          source=config.path)
+    observed = str(fit.get("observed", "reactant"))
+    if observed not in ("reactant", "product"):
+        raise ConfigError("fit.observed", f"expected reactant or product, got {observed!r}", source=config.path)
+    species = fit.get("species") or config.quantify.reactant or measured[0]
+    if species not in measured:
+        raise ConfigError("fit.species", f"{species!r} is not a measured species",
+                          hint=f"measured: {', '.join(measured)}", source=config.path)
+    return RatesRefitter((f"{species}_concentration",), model, observed, target_conversion,
+                         sigma_suffix="_sigma")
 
 
 # ---------------------------------------------------------------- the command
@@ -883,9 +980,6 @@ def build_from_config(config_path: Path, ledger_path: Path | None = None) -> Pip
     config_path = Path(config_path)
     config = load_run_config(config_path)
     settings = live_settings(config)
-    fit = dict(config.sections.get("fit", {}) or {})
-    species = fit.get("species") or config.quantify.reactant or config.species[0]
-    column = f"{species}_concentration"
     folder = Path(config.folder)
     spec = WatchSpec(folder, include=(config.pattern,), exclude=tuple(settings["exclude"]),
                      recursive=settings["recursive"], quiet_period_s=settings["quiet_period_s"],
@@ -896,9 +990,7 @@ def build_from_config(config_path: Path, ledger_path: Path | None = None) -> Pip
             records = ledger.records()
         reference = records[0][1].get("reference") if records else None
     resolved = folder.resolve() if folder.exists() else folder
-    refitter = RatesRefitter(column, str(fit.get("model", "first")),
-                             str(fit.get("observed", "reactant")), settings["target_conversion"],
-                             sigma_suffix="_sigma")
+    refitter = refitter_from_config(config, settings["target_conversion"])
     return Pipeline(
         spec=spec, measure=SeriesMeasurer(config, resolved, reference),
         build_table=partial(_series_table, config, resolved), refit=refitter,
