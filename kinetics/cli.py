@@ -238,8 +238,160 @@ def _cmd_integrate(args) -> int:
     return 0
 
 
+# ---------------------------------------------------------------- run / demo (the whole job)
+def _add_run(sub) -> None:
+    p = sub.add_parser("run", help="batch: a run config (folder -> series -> fit -> report) or a study config")
+    p.add_argument("config", type=Path, help="a single-run config or a temperature-study config (TOML)")
+    p.add_argument("--out", type=Path, help="output folder (default: <config>.out beside the config)")
+    p.add_argument("--no-report", action="store_true", help="skip the HTML/PDF report")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=_cmd_run)
+
+
+def _cmd_run(args) -> int:
+    from watchers import workflow
+
+    out = args.out or args.config.with_suffix(".out")
+    if workflow.is_study_file(args.config):
+        job = workflow.run_study_config(args.config, out, report=not args.no_report)
+    else:
+        job = workflow.run_single(args.config, out, report=not args.no_report)
+    if args.json:
+        _print_json(job.to_dict())
+    else:
+        print(_job_text(job))
+    failed = (job.study is not None and not job.study.success) or any(
+        r.fit is None or not r.fit.converged for r in job.runs)
+    return 1 if failed else 0
+
+
+def _add_demo(sub) -> None:
+    p = sub.add_parser("demo", help="the whole job on the bundled invented demo series")
+    p.add_argument("--out", type=Path, default=Path("kinetics-demo-output"),
+                   help="output folder (default ./kinetics-demo-output)")
+    p.add_argument("--data", type=Path, help="demo series folder (default ./demo_series, else regenerated)")
+    p.add_argument("--interval", type=float, default=0.02, help="seconds between replayed files (default 0.02)")
+    p.add_argument("--make-data", type=Path, metavar="DIR",
+                   help="only (re)generate the demo series into DIR, bit for bit, and stop")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=_cmd_demo)
+
+
+def _cmd_demo(args) -> int:
+    if args.make_data is not None:
+        from kinetics import demo
+
+        folders = demo.make_demo_data(args.make_data)
+        if args.json:
+            _print_json({"demo_series": [str(f) for f in folders]})
+        else:
+            print(f"wrote the demo series (seed {demo.SEED}) to {args.make_data}: "
+                  + ", ".join(f.name for f in folders))
+        return 0
+    from watchers import workflow
+
+    if not args.json:
+        print("kinetics demo: replaying four invented runs through the live path ...", file=sys.stderr)
+    job = workflow.run_demo(args.out, args.data, args.interval)
+    if args.json:
+        _print_json(job.to_dict())
+    else:
+        print(_job_text(job))
+    return 0 if job.study is not None and job.study.success else 1
+
+
+SAFETY_NOTE = ("Safety: reactions can run away and heated or pressurised sample tubes can fail; "
+               "strong magnets attract tools and affect implants. Follow local safety rules and "
+               "qualified supervision; kinetic parameters are no substitute for a calorimetric "
+               "hazard assessment.")
+
+
+def _fmt(entry, digits: int = 4) -> str:
+    if not entry or entry.get("value") is None:
+        return "n/a"
+    ci = entry.get("ci95") or [None, None]
+    interval = "" if None in ci else f"  (95 %: {ci[0]:.{digits}g} .. {ci[1]:.{digits}g})"
+    return f"{entry['value']:.{digits}g} {entry.get('unit', '')}{interval}"
+
+
+def _job_text(job) -> str:
+    lines = []
+    for note in job.notes:
+        lines.append(note)
+    if job.runs:
+        lines.append("")
+        lines.append(f"{'run':<12} {'spectra':>7}  {'k with 95 % interval':<48} {'fit'}")
+        for run in job.runs:
+            status = "no fit" if run.fit is None else ("converged" if run.fit.converged else
+                                                        f"NOT converged: {run.fit.message}")
+            lines.append(f"{run.label:<12} {len(run.table):>7}  {_fmt(run.k()):<48} {status}")
+            skipped = {k: v for k, v in run.counts.items() if k not in ("processed",) and v}
+            if skipped:
+                lines.append(f"{'':<12} files: " + ", ".join(f"{k} {v}" for k, v in sorted(skipped.items())))
+    study = job.study
+    if study is not None:
+        lines.append("")
+        if study.temperature is None:
+            lines.append(f"temperature study: {study.message}")
+        else:
+            data = study.temperature.to_dict()
+            lines.append(f"temperature study '{study.name}' ({data.get('n_runs')} runs, two-step):")
+            lines.append(f"  Ea   {_fmt(data.get('ea_kj_per_mol'))}")
+            lines.append(f"  dH‡  {_fmt(data.get('dh_kj_per_mol'))}")
+            lines.append(f"  dS‡  {_fmt(data.get('ds_j_per_mol_k'))}")
+            lines.append(f"  dG‡  {_fmt(data.get('dg_kj_per_mol'))} at {data.get('t_ref_kelvin')} K")
+        if study.global_result is not None and study.global_result.success:
+            g = study.global_result.to_dict()
+            ea = g.get("ea_kj_per_mol")
+            if isinstance(ea, dict):
+                lines.append(f"  Ea from the global fit  {_fmt(ea)}")
+        for warning in study.warnings:
+            lines.append(f"  warning: {warning}")
+    if job.truth:
+        lines.append("")
+        lines.append(f"(the demo's generator used Ea = {job.truth['ea_kj_per_mol']} kJ/mol and k = "
+                     + ", ".join(f"{float(v):.4g} s^-1 at {t} °C" for t, v in job.truth["k_per_s"].items())
+                     + ")")
+    lines.append("")
+    lines.append(f"outputs: {job.out_dir}")
+    if job.report_html is not None:
+        lines.append(f"report:  {job.report_html}")
+        lines.append(f"         {job.report_pdf}")
+    lines.append("")
+    lines.append(SAFETY_NOTE)
+    return "\n".join(lines)
+
+
 # ---------------------------------------------------------------- commands registry
-_ADDERS = [_add_inspect, _add_arrhenius, _add_watch, _add_fit, _add_init, _add_integrate]
+# ---------------------------------------------------------------- bench
+def _add_bench(sub) -> None:
+    p = sub.add_parser("bench", help="the benchmarks, as a table")
+    p.add_argument("--quick", action="store_true", help="fewer repetitions and smaller sizes (a smoke run)")
+    p.add_argument("--section", help="only this section (spectra, processing, signals, rates, temperature, live)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=_cmd_bench)
+
+
+def _cmd_bench(args) -> int:
+    import dataclasses
+
+    from kinetics import bench
+
+    names = [name for name, _ in bench.SECTIONS]
+    if args.section and args.section not in names:
+        from kinetics.errors import ConfigError
+
+        raise ConfigError("--section", f"unknown section {args.section!r}", hint=f"use one of {', '.join(names)}")
+    rows = bench.run_all(quick=args.quick, only=args.section)
+    if args.json:
+        _print_json({"quick": args.quick, "rows": [{**dataclasses.asdict(r), "ratio": r.ratio} for r in rows]})
+    else:
+        print(bench.format_table(rows))
+    return 0
+
+
+_ADDERS = [_add_demo, _add_run, _add_watch, _add_inspect, _add_integrate, _add_fit, _add_arrhenius,
+           _add_init, _add_bench]
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -140,3 +140,134 @@ def make_demo_data(folder: str | Path) -> list[Path]:
         (path / "truth.json").write_text(json.dumps(truth, indent=2) + "\n")
         written.append(path)
     return written
+
+
+# ---------------------------------------------------------------- the demo's configs
+def run_config_text(folder: str, temperature_c: float | None = None) -> str:
+    """The single-run config used for every demo run (``folder`` relative to the config)."""
+    heading = "" if temperature_c is None else f" at {temperature_c:g} degrees C"
+    return f'''# Demo run{heading}: hydrolysis of the invented ester tessyl ethanoate, followed on an
+# invented 60 MHz benchtop magnet (see demo_series/README.md; every compound is invented).
+# Run it with:  kinetics run THIS_FILE --out OUT    (or follow it live with kinetics watch)
+
+[run]
+folder = "{folder}"          # spectra of one run, relative to this file
+pattern = "spectrum_*.jdx"    # the instrument's file names (truth.* files are not spectra)
+
+[time]
+source = "header"             # acquisition start from ##LONG DATE, plus half the duration
+first_spectrum_offset_s = 60.0  # the first spectrum's midpoint is 60 s after mixing
+
+[processing]
+phase = "auto"                # the files carry zero- and first-order phase errors
+phase_exclude_ppm = [[5.2, 4.3]]  # keep the huge water line out of the phase score
+line_broadening_hz = 0.0      # already transformed spectra: no apodisation applies
+reference = {{ ppm = 6.20, window_ppm = 0.15 }}   # the standard's singlet defines the scale
+
+[alignment]
+window_ppm = [6.1, 6.3]       # align every spectrum on the standard (the magnet drifts)
+max_shift_ppm = 0.05
+
+[integration]
+noise_region_ppm = [[8.0, 9.5]]   # signal-free: no compound absorbs here
+fit_baseline_order = 2        # the water line's tail curves under the O-CH2 triplet
+global_fit = true             # positions, widths and J shared by the whole run
+
+# Resolved triplets are fitted with their multiplet shape (Lorentzian lines of the width
+# the fit finds), which captures the long Lorentzian tails a plain window integral cuts.
+[[signals]]
+name = "ester_OCH2"
+species = "ester"
+window_ppm = [3.85, 4.25]
+nuclei = 2
+method = "fit"
+group = "ester_och2"
+tolerance_ppm = 0.03
+lineshape = {{ multiplicity = "triplet", j_hz = 6.8, width_hz = 1.2 }}
+
+[[signals]]
+name = "alcohol_CH2OH"
+species = "alcohol"
+window_ppm = [3.38, 3.78]
+nuclei = 2
+method = "fit"
+group = "alcohol_ch2"
+tolerance_ppm = 0.03
+lineshape = {{ multiplicity = "triplet", j_hz = 6.6, width_hz = 1.2 }}
+
+# The two acetyl singlets are 0.05 ppm (3 Hz) apart at 60 MHz: deconvolved together.
+# Each window is centred on its own line (the fit starts there and may move the centre
+# by tolerance_ppm), which keeps the two components from trading places.
+[[signals]]
+name = "ester_acetyl"
+species = "ester"
+window_ppm = [1.94, 2.14]
+nuclei = 3
+method = "fit"
+group = "acetyl"
+tolerance_ppm = 0.015
+lineshape = {{ width_hz = 1.2 }}
+
+[[signals]]
+name = "acid_acetyl"
+species = "acid"
+window_ppm = [1.99, 2.19]
+nuclei = 3
+method = "fit"
+group = "acetyl"
+tolerance_ppm = 0.015
+lineshape = {{ width_hz = 1.2 }}
+
+[[signals]]
+name = "standard"
+species = "standard"
+window_ppm = [6.0, 6.4]
+nuclei = 6
+method = "fit"
+standard = true
+concentration_mol_per_l = {STANDARD_MOL_PER_L}
+concentration_sigma_mol_per_l = 0.0005   # weighing uncertainty, 1 %
+lineshape = {{ width_hz = 1.0 }}
+
+[quantify]
+mode = "standard"
+reactant = "ester"
+product = "alcohol"
+stoichiometry = {{ ester = 1, alcohol = 1, acid = 0 }}   # acid is counted once, via the alcohol
+
+[fit]
+model = "first"               # pseudo-first order in the ester (water in large excess)
+species = "ester"
+
+[live]
+quiet_period_s = 0.5          # seconds a file must stay unchanged before it is taken
+target_conversion = 0.95      # a live run stops once conversion is surely past 95 %
+'''
+
+
+def study_config_text(run_tables: list[tuple[str, float, str]], name: str = "tessyl ethanoate hydrolysis") -> str:
+    """A temperature-study config over series tables: (label, temperature_c, table path)."""
+    lines = [
+        "# Demo temperature study: the four demo runs, fitted one by one (two-step Arrhenius",
+        "# and Eyring) and all at once (global fit in the reference-temperature form).",
+        "",
+        "[study]",
+        f'name = "{name}"',
+        'model = "first"',
+        'observed = "reactant"',
+        "reference_temperature_kelvin = 298.15",
+        "global_fit = true",
+        "profile = true",
+        "",
+    ]
+    for label, temperature_c, table in run_tables:
+        lines += [
+            "[[study.runs]]",
+            f'label = "{label}"',
+            f"temperature_c = {temperature_c:g}",
+            f'table = "{table}"',
+            'column = "ester_concentration"',
+            'sigma_column = "ester_concentration_sigma"',
+            "",
+        ]
+    return "\n".join(lines)
