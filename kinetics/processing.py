@@ -383,34 +383,47 @@ def auto_phase(
     and a straight line ``phi = p0 + p1 * (pivot - ppm) / width`` is fitted through them:
 
     1. The noise sigma is estimated from the spectrum itself (median absolute deviation
-       of the first differences of the real and imaginary parts), the line width from
-       the half-height widths of the most prominent peaks of the magnitude spectrum.
+       of differences of the real and imaginary parts one line width apart, so that the
+       noise correlation from apodisation does not hide it), the line width from the
+       half-height widths of the most prominent peaks of the magnitude spectrum.
     2. Signal regions are the points where a band-pass (difference of two Gaussian
        smoothings, which ignores baselines and broad solvent tails) of the complex
        spectrum exceeds 6 of its own robust sigmas, widened by two line widths.
-    3. When ``exclude_ppm`` names a large (solvent) line, its far tails are removed
-       first: ``sum_k c_k / (x - x_s)^k`` (k = 1..3, the asymptotic expansion of a line
-       at the tallest point ``x_s`` of the range) plus a cubic, with complex
-       coefficients fitted by least squares to the signal-free points.
+    3. Large (solvent) lines: each range of ``exclude_ppm``, and any line over 10 times
+       taller than every other region (left out over +/- 2 of its magnitude widths), has
+       its far tails removed: ``sum_k c_k / (x - x_s)^k`` (k = 1..3, the asymptotic
+       expansion of a line at the range's tallest point ``x_s``) plus a cubic, with
+       complex coefficients fitted by least squares to the signal-free points.  Such a
+       line's tails reach every other signal, and its phase alone cannot fix p1.
     4. A first estimate per region: the phase of its complex integral after removing a
-       complex straight line through both ends (for a symmetric line shape the
+       complex straight line through both ends (for symmetric line shapes the
        dispersion part integrates to zero, so any multiplet or overlap gives its
-       phase).  Line (5) is fitted through these.
+       phase).  Line (6) is fitted through these.
     5. Refinement: in the roughly phased spectrum, the absorption maxima of each region
        give line positions; the region is fitted by linear least squares with a complex
-       Lorentzian ``1 / (g - i (x - x_j))`` and its derivative per line plus a complex
-       quadratic baseline.  The phase of each Lorentzian coefficient is that line's
-       phase (the derivative term absorbs a small position error).  A region whose fit
-       leaves more than 1.8 times the noise variance (unresolved or non-Lorentzian
-       lines) keeps its integral estimate instead.
+       Lorentzian ``1 / (g - i (x - x_j))`` and its derivative per line (which absorbs a
+       small position error) plus a complex quadratic baseline; the sign of the
+       dispersion (data conventions differ) is the one fitting the strongest region
+       better.  The region's phase is that of the sum of its Lorentzian coefficients
+       (lines under 5 % of the largest left out).  A region whose fit leaves more than
+       1.8 times the expected residual (noise variance plus (0.3 % of its tallest
+       point)^2: unresolved or non-Lorentzian lines) keeps its integral estimate.
     6. The straight line is fitted by weighted least squares (weights 1 / (sd^2 + 1 deg^2),
        sd from the noise) with Cauchy reweighting (scale 10 degrees) against outliers,
        started from the best point of a p1 grid (10-degree steps over the allowed range,
        p0 from the weighted circular mean), so phase wrapping never matters.  p1 stays
        within ``[-p1_range_deg, p1_range_deg]``.  Signals spanning less than 5 % of the
        width leave p1 undetermined: it is set to 0 and the result says so.
-    No spectrum-wide score is optimised, so noise and a dominant line cannot pull it the
-    way they pull an entropy score.
+    7. Only when the tallest line of a region exceeds 1000 noise sigmas, the result is
+       polished by the noise-aware ACME score within +/- 5 deg (p0) and +/- 10 deg (p1)
+       (bounded Powell; see :func:`_polish_with_acme` for why).
+
+    No spectrum-wide score is optimised at moderate SNR, so noise and a dominant line
+    cannot pull the result the way they pull an entropy score.  Measured on demo-like
+    spectra (60 MHz, 4096 points, multiplets, water line 20 times the tallest signal,
+    1 % baseline roll, random p0 in +-90 and p1 in +-45 deg): largest error at any line
+    2.2 deg at SNR 150 (ACME: 17-71 deg), 1.9 deg at 40 MHz and SNR 300, 2.9-4.4 deg at
+    SNR 60 (60-100 MHz); at SNR 30 the weak groups leave errors of 5-25 deg (ACME 50-80).
 
     ``"acme"``: ACME entropy minimisation (Chen et al. 2002; objective
     :func:`acme_score`).  ACME has many local minima in p1, so p1 is scanned on a grid
@@ -498,12 +511,25 @@ _ANCHOR_WIDTHS = 2.0        # end segments defining the integral's straight-line
 _PEAK_SIGMAS = 5.0          # absorption maxima used as Lorentzian positions
 _CHI2_MAX = 1.8             # region fits worse than this (residual / noise variance) keep the integral
 _SHAPE_TOLERANCE = 0.003     # relative misfit of a region's Lorentzian fit still accepted
+_MINOR_LINE = 0.05          # lines below this fraction of a region's largest are ignored
+_POLISH_SNR = 1000.0        # above this SNR (tallest line in a region) ACME polishes the result
 _SYSTEMATIC_DEG = 1.0       # floor on each phase's standard deviation in the line fit
 _OUTLIER_DEG = 10.0         # Cauchy scale of the robust line fit
 
 
 def _robust_sigma(values: np.ndarray) -> float:
     return float(1.4826 * np.median(np.abs(values - np.median(values))))
+
+
+def _noise_level(z: np.ndarray, inside: np.ndarray, lag: int) -> float:
+    """Noise sigma per component from the median absolute deviation of differences ``lag``
+    points apart (robust to the few points on lines); a tiny positive level for
+    noise-free data."""
+    values = np.where(inside, z, np.nan)
+    steps = values[lag:] - values[:-lag]
+    steps = steps[~np.isnan(steps)]
+    sigma = _robust_sigma(np.concatenate([steps.real, steps.imag])) / math.sqrt(2.0)
+    return sigma if sigma > 0 else 1e-9 * float(np.max(np.abs(z[inside])))
 
 
 def _line_width_points(magnitude: np.ndarray, inside: np.ndarray, sigma: float) -> float:
@@ -540,8 +566,30 @@ def _signal_regions(z: np.ndarray, inside: np.ndarray, width_points: float) -> l
     return [(a, b) for a, b in regions if inside[a:b].all()]
 
 
+def _dominant_line(magnitude, inside, regions):
+    """(index, half-width in points) of a line over 10 times taller than every other
+    region's (an undeclared solvent line), to be treated like an excluded range; or None.
+
+    Such a line's tails reach every other signal and its phase alone cannot fix p1, so it
+    is left out and its tails removed as for ``exclude_ppm``; the range left out is
+    +/- 2 of its magnitude half-height widths."""
+    from scipy import signal
+
+    if len(regions) < 2:
+        return None
+    tops = np.array([a + int(np.argmax(magnitude[a:b])) for a, b in regions])
+    heights = magnitude[tops]
+    order = np.argsort(heights)[::-1]
+    if heights[order[0]] < 10.0 * heights[order[1]]:
+        return None
+    top = int(tops[order[0]])
+    width = float(signal.peak_widths(magnitude, [top], rel_height=0.5)[0][0])
+    return top, int(math.ceil(2.0 * width))
+
+
 def _remove_solvent_tails(z, inside, regions, centres, width_points):
-    """z minus the fitted far tails of lines at ``centres`` (indices) and a cubic, shape (n,)."""
+    """z minus the fitted far tails of lines at ``centres`` (indices) and a cubic, shape (n,)
+    (unchanged outside ``inside``)."""
     n = z.size
     free = inside.copy()
     for a, b in regions:
@@ -558,7 +606,8 @@ def _remove_solvent_tails(z, inside, regions, centres, width_points):
     columns += [np.ones(n), t, t * t, t ** 3]
     design = np.stack(columns, 1)
     coefficients, *_ = np.linalg.lstsq(design[free], z[free], rcond=None)
-    return z - design @ coefficients
+    # only where it is valid: inside the excluded ranges the expansion diverges
+    return np.where(inside, z - design @ coefficients, z)
 
 
 def _region_integral(segment: np.ndarray, anchor: int, sigma: float):
@@ -576,14 +625,19 @@ def _region_integral(segment: np.ndarray, anchor: int, sigma: float):
 
 
 def _region_lines(segment, rough_rad, sigma, half_width, sign):
-    """Per-line (offset in points, complex coefficient, its sd) and the fit's chi2 per point."""
+    """Lorentzian fit of one region: per-line (offset in points, complex coefficient), the
+    residual sum of squares, chi2 per degree of freedom, and the coefficients' real
+    covariance / sigma^2, shape (L, L)."""
     from scipy import signal
 
     absorption = (segment * np.exp(1j * rough_rad)).real
-    peaks, _ = signal.find_peaks(absorption, height=_PEAK_SIGMAS * sigma, prominence=_PEAK_SIGMAS * sigma)
+    # ripples and satellites under 1 % of the region's tallest line are not modelled (the
+    # shape tolerance of chi2 covers them); at high SNR they would multiply the lines
+    floor = max(_PEAK_SIGMAS * sigma, 0.01 * float(np.max(np.abs(segment))))
+    peaks, _ = signal.find_peaks(absorption, height=floor, prominence=floor)
     peaks = peaks[(peaks > 0) & (peaks < segment.size - 1)]
     if peaks.size == 0:
-        return [], np.inf, np.inf
+        return [], np.inf, np.inf, None
     positions = peaks + np.array([_parabolic_offset(*absorption[k - 1:k + 2]) for k in peaks])
     x = np.arange(segment.size, dtype=float)
     lorentz = 1.0 / (half_width - 1j * sign * (x[:, None] - positions[None, :]))
@@ -601,19 +655,19 @@ def _region_lines(segment, rough_rad, sigma, half_width, sign):
     try:
         inverse = np.linalg.inv(normal)
     except np.linalg.LinAlgError:
-        return [], np.inf, np.inf
+        return [], np.inf, np.inf, None
     solution = inverse @ np.einsum("ij,i->j", real, np.concatenate([segment.real, segment.imag]))
     coefficients = solution[:k] + 1j * solution[k:]
-    residual = float(np.sum(np.abs(segment - design @ coefficients) ** 2))
+    residual = float(np.sum(np.abs(segment - np.einsum("ij,j->i", design, coefficients)) ** 2))
     dof = max(1, x.size - design.shape[1])
     # model error (line shape, width) counts at high SNR: a fit within 0.3 % of the
     # tallest point is good enough however small the noise
     level = sigma * sigma + (_SHAPE_TOLERANCE * float(np.max(np.abs(segment)))) ** 2
     chi2 = residual / (2.0 * level * dof)
-    variance = inverse.diagonal()[:k]  # var(Re c) = var(Im c) = sigma^2 inverse_jj
-    lines = [(float(p), coefficients[j], sigma * math.sqrt(max(variance[j], 0.0)))
-             for j, p in enumerate(positions)]
-    return lines, residual, chi2
+    # (the real-real block of the inverse is the covariance of Re c / sigma^2, and equal
+    # to the imaginary-imaginary block)
+    lines = [(float(p), coefficients[j]) for j, p in enumerate(positions)]
+    return lines, residual, chi2, inverse[:positions.size, :positions.size]
 
 
 def _fit_phase_line(u, phi, sd, p1_range_rad):
@@ -649,16 +703,25 @@ def _fit_phase_line(u, phi, sd, p1_range_rad):
 def _phase_by_peaks(z, ppm, inside, exclude_ppm, pivot_ppm, p1_range_deg):
     n = z.size
     width_ppm = ppm[0] - ppm[-1]
-    sigma = _robust_sigma(np.concatenate([np.diff(z.real[inside]), np.diff(z.imag[inside])])) / math.sqrt(2.0)
-    if sigma <= 0:  # noise-free data: any small positive level will do
-        sigma = 1e-9 * float(np.max(np.abs(z[inside])))
+    sigma = _noise_level(z, inside, 1)
     width_points = _line_width_points(np.abs(z), inside, sigma)
+    # apodisation correlates neighbouring points' noise (0.3 Hz on a long FID: over a few
+    # points), which hides it from first differences (measured 7 times too small):
+    # differences over one line width see the whole noise
+    sigma = _noise_level(z, inside, max(1, int(round(width_points))))
     regions = _signal_regions(z, inside, width_points)
     centres = []
     for high, low in exclude_ppm:
         excluded = np.flatnonzero((ppm <= max(high, low)) & (ppm >= min(high, low)))
         if excluded.size:
             centres.append(int(excluded[np.argmax(np.abs(z[excluded]))]))
+    dominant = _dominant_line(np.abs(z), inside, regions)
+    if dominant is not None:
+        centre, half_width_points = dominant
+        inside = inside.copy()
+        inside[max(0, centre - half_width_points):centre + half_width_points + 1] = False
+        centres.append(centre)
+        regions = [(a, b) for a, b in regions if inside[a:b].all()]
     if centres:
         z = _remove_solvent_tails(z, inside, regions, centres, width_points)
         width_points = _line_width_points(np.abs(z), inside, sigma)
@@ -681,18 +744,51 @@ def _phase_by_peaks(z, ppm, inside, exclude_ppm, pivot_ppm, p1_range_deg):
     rough = p0 + p1 * index_to_u(np.arange(a, b))
     half_width = 0.5 * width_points
     sign = min((1, -1), key=lambda s: _region_lines(z[a:b], rough, sigma, half_width, s)[1])
-    us, phis, sds = [], [], []
+    us, phis, sds = centre_u.copy(), phi.copy(), sd.copy()
     for k, (a, b) in enumerate(regions):
         rough = p0 + p1 * index_to_u(np.arange(a, b))
-        lines, _, chi2 = _region_lines(z[a:b], rough, sigma, half_width, sign)
-        lines = [line for line in lines if abs(line[1]) > 3.0 * line[2]]
+        lines, _, chi2, covariance = _region_lines(z[a:b], rough, sigma, half_width, sign)
         if chi2 > _CHI2_MAX or not lines:
-            us.append(centre_u[k]), phis.append(phi[k]), sds.append(sd[k])
+            continue  # keep the integral's estimate
+        # one phase per region, from the sum of its lines' coefficients: closely spaced
+        # lines trade amplitude between them, their sum is well determined; lines under
+        # 5 % of the largest (ripples, artefacts) are left out
+        amplitude = np.abs([c for _, c in lines])
+        chosen = np.flatnonzero(amplitude >= _MINOR_LINE * amplitude.max())
+        total = sum(lines[j][1] for j in chosen)
+        spread = sigma * math.sqrt(max(float(covariance[np.ix_(chosen, chosen)].sum()), 0.0))
+        if abs(total) <= 3.0 * spread:
             continue
-        for offset, coefficient, s in lines:
-            us.append(index_to_u(a + offset)), phis.append(-np.angle(coefficient)), sds.append(s / abs(coefficient))
-    p0, p1, rms, note = _fit_phase_line(np.array(us), np.array(phis), np.array(sds), p1_range)
-    return math.degrees(p0), math.degrees(p1), rms, True, note
+        position = sum(amplitude[j] * lines[j][0] for j in chosen) / amplitude[chosen].sum()
+        us[k], phis[k], sds[k] = index_to_u(a + position), -np.angle(total), spread / abs(total)
+    p0, p1, rms, note = _fit_phase_line(us, phis, sds, p1_range)
+    p0_deg, p1_deg = math.degrees(p0), math.degrees(p1)
+    # the tallest line within the fitted regions (not a solvent tail at an exclusion's edge)
+    if max(float(np.max(np.abs(z[a:b]))) for a, b in regions) > _POLISH_SNR * sigma:
+        p0_deg, p1_deg = _polish_with_acme(z, ppm, inside, pivot_ppm, sigma, p0_deg, p1_deg, p1_range_deg)
+        note = "; ".join(filter(None, [note, "polished by ACME within 5 deg (p0) and 10 deg (p1)"]))
+    return p0_deg, p1_deg, rms, True, note
+
+
+def _polish_with_acme(z, ppm, inside, pivot_ppm, sigma, p0_deg, p1_deg, p1_range_deg):
+    """Bounded ACME refinement (+/- 5 deg p0, +/- 10 deg p1, p1 within its range).
+
+    Used only at high SNR, where ACME is not biased by noise: on simulated spectra at SNR
+    3000 both methods were within 0.3 deg, while on the real 500 MHz FID of tests/data
+    (real, slightly non-Lorentzian lines) they differed by 3 deg in p0 and ACME's phase
+    gave per-proton integrals closer to the proton counts (within 4 % against 7 %)."""
+    ramp = np.deg2rad((pivot_ppm - ppm) / (ppm[0] - ppm[-1]))[inside]
+    zi = z[inside]
+
+    def score(params):
+        real = (zi * np.exp(1j * (np.deg2rad(params[0]) + params[1] * ramp))).real
+        return acme_score(real, noise_sigma=sigma)
+
+    bounds = [(p0_deg - 5.0, p0_deg + 5.0),
+              (max(p1_deg - 10.0, -p1_range_deg), min(p1_deg + 10.0, p1_range_deg))]
+    result = optimize.minimize(score, np.array([p0_deg, float(np.clip(p1_deg, *bounds[1]))]),
+                               method="Powell", bounds=bounds, options={"xtol": 0.05, "ftol": 1e-6, "maxfev": 120})
+    return float(result.x[0]), float(result.x[1])
 
 
 def _linear_phasor(offset_rad: float, step_rad: float, n: int, block: int = 256) -> np.ndarray:

@@ -294,9 +294,9 @@ def test_model_choice_first_versus_second_order():
 
 @pytest.mark.parametrize("name", ["zero", "first", "second"])
 def test_results_do_not_depend_on_the_units(name):
-    # Analytic: expressing time in hours and concentration in mmol/L rescales k (and its
-    # stderr) by a known factor and must change nothing else; scipy.optimize.curve_fit
-    # (relative finite-difference steps) is the reference for the stderr.
+    # Analytic: a change of units rescales k (and its stderr) by a known factor and must
+    # change nothing else; scipy.optimize.curve_fit (relative finite-difference steps) is the
+    # reference for the stderr.
     from scipy.optimize import curve_fit
 
     rng = np.random.default_rng(21)
@@ -304,16 +304,21 @@ def test_results_do_not_depend_on_the_units(name):
     law = {"zero": laws.zero_order, "first": laws.first_order, "second": laws.second_order}[name]
     y = law(t, 0.8, {"zero": 8e-4, "first": 3e-3, "second": 5e-3}[name]) + rng.normal(0, 0.005, t.size)
     base = fit_law(from_arrays(t, y), name, profile=("k",))
-    # hours and mmol/L: k scales by 3600 (zero: x1000 too, second: /1000)
-    conc_factor = {"zero": 1e3, "first": 1.0, "second": 1e-3}[name]
-    scaled = fit_law(from_arrays(t / 3600.0, y * 1e3), name, profile=("k",))
+    # a slow run: time x 1e3 (ks -> s); concentrations x 1e-3 (mmol/L values read as mol/L)
+    # or, for second order, x 1e3 (mol/L -> mmol/L), so that k gets small in every case:
+    # k of order n scales by c^(1-n) / t, here 1e-6, 1e-3 and 1e-6
+    order = {"zero": 0, "first": 1, "second": 2}[name]
+    c_factor = 1e3 if name == "second" else 1e-3
+    factor = c_factor ** (1 - order) / 1e3
+    scaled = fit_law(from_arrays(t * 1e3, y * c_factor), name, profile=("k",))
     assert base.converged and scaled.converged
-    factor = 3600.0 * conc_factor
     assert scaled.param("k").value == pytest.approx(base.param("k").value * factor, rel=1e-6)
     assert scaled.param("k").stderr == pytest.approx(base.param("k").stderr * factor, rel=1e-4)
     for a, b in zip(scaled.param("k").ci95, base.param("k").ci95):
         assert a == pytest.approx(b * factor, rel=1e-4)
-    if name == "first":  # days instead of hours: k ~ 2.6e-6 s^-1 in seconds-of-days units
+    c_name = scaled.params[0].name
+    assert scaled.param(c_name).stderr == pytest.approx(base.param(c_name).stderr * c_factor, rel=1e-4)
+    if name == "first":  # k ~ 3e-6 s^-1: a reaction followed over about a week
         p, cov = curve_fit(lambda x, c0, k: c0 * np.exp(-k * x), t * 1e3, y, p0=[0.8, 3e-6])
         slow = fit_law(from_arrays(t * 1e3, y), "first", profile=False)
         assert slow.param("k").stderr == pytest.approx(math.sqrt(cov[1, 1]), rel=1e-4)

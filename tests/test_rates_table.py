@@ -186,3 +186,30 @@ def test_negative_values_give_one_summary_per_table(tmp_path):
     data = read_concentration_table(write(tmp_path, rows), "time_s", ["A"])
     assert len(data.warnings) == 1
     assert "has 3" in data.warnings[0] and "-0.03" in data.warnings[0] and "line 7" in data.warnings[0]
+
+
+@pytest.mark.parametrize("extra, fragment", [
+    (["--seed", "-1", "--bootstrap", "5"], "--seed"),           # numpy would raise ValueError
+    (["--bootstrap", "100000000"], "--bootstrap"),              # would run for days
+    (["--start", "c0=nan"], "not a finite number"),
+    (["--start", "k=-1"], "within its bounds"),
+    (["--fix", "c0=inf"], "not a finite number"),
+])
+def test_hostile_options_are_clear_errors(capsys, tmp_path, extra, fragment):
+    code, out, err = fit(capsys, write(tmp_path, GOOD_ROWS), "--json", *extra)
+    assert code == 2 and out == "" and fragment in err and "Traceback" not in err
+
+
+def test_hostile_mechanism_initial_values(capsys, tmp_path):
+    path = write(tmp_path, GOOD_ROWS)
+    for initial, fragment in (("A=nan", "not a finite number"), ("A=-1", "initial concentration")):
+        code = cli.main(["fit", str(path), "--time-column", "time_s", "--column", "A",
+                         "--mechanism", "A -> B", "--initial", initial, "--json"])
+        captured = capsys.readouterr()
+        assert code == 2 and captured.out == "" and fragment in captured.err
+
+
+def test_negative_times_are_flagged(tmp_path):
+    rows = [(t - 60, c) for t, c in GOOD_ROWS]
+    data = read_concentration_table(write(tmp_path, rows), "time_s", ["A"])
+    assert any("times before 0" in w for w in data.warnings)

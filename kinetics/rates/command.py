@@ -16,6 +16,10 @@ from kinetics.rates.mechanism import mechanism_model, parse_mechanism
 from kinetics.rates.table import read_concentration_table
 
 
+#: Upper limit of ``--bootstrap``: beyond it a run takes hours and adds nothing to a 95 % interval.
+MAX_BOOTSTRAP = 20000
+
+
 def parse_assignments(items, option: str) -> dict:
     """``["k=0.5,c_final=100", "n=1"]`` -> ``{"k": 0.5, "c_final": 100.0, "n": 1.0}``."""
     out = {}
@@ -28,9 +32,12 @@ def parse_assignments(items, option: str) -> dict:
             try:
                 if not sep or not name.strip():
                     raise ValueError
-                out[name.strip()] = float(text)
+                value = float(text)
             except ValueError:
                 raise ConfigError(option, f"cannot read {piece!r}", hint="write NAME=NUMBER, e.g. k=0.5") from None
+            if not np.isfinite(value):
+                raise ConfigError(option, f"{piece!r} is not a finite number", hint="write NAME=NUMBER, e.g. k=0.5")
+            out[name.strip()] = value
     return out
 
 
@@ -56,6 +63,11 @@ def fit_command(table, time_column, columns, *, model=None, mechanism=None, obse
     """
     if (model is None) == (mechanism is None):
         raise ConfigError("--model/--mechanism", "give exactly one of them")
+    if not 0 <= int(bootstrap) <= MAX_BOOTSTRAP:
+        raise ConfigError("--bootstrap", f"{bootstrap} refits asked for", hint=f"give 0 to {MAX_BOOTSTRAP}; "
+                          "1000-2000 is plenty for 95 % percentile intervals (Efron & Tibshirani 1993)")
+    if seed is not None and int(seed) < 0:
+        raise ConfigError("--seed", f"{seed} is negative", hint="give a seed of 0 or more")
     data = read_concentration_table(table, time_column, columns, sigma_columns)
     rng = np.random.default_rng(seed) if bootstrap else None
     options = dict(start=start or {}, fixed=fixed or {}, profile=profile, bootstrap=bootstrap,

@@ -292,7 +292,7 @@ class FitResult:
             return out
         if "derived_K" in self.model.extra:
             out.append(self.derived("K", self.model.extra["derived_K"], ""))
-        if "derived_k2" in self.model.extra and np.isfinite(self.values.get("b0", np.nan)):
+        if "derived_k2" in self.model.extra and self.values.get("b0", np.nan) > 0:
             out.append(self.derived("k2", self.model.extra["derived_k2"], "L mol^-1 s^-1"))
         return out
 
@@ -419,6 +419,13 @@ def _build_problem(model: RateModel, data: ConcentrationData, options: FitOption
                        + ", ".join(model.param_names))
     start.update({k: float(v) for k, v in options.start.items()})
     start.update({k: float(v) for k, v in options.fixed.items()})
+    specs = {spec.name: spec for spec in model.params}
+    for name, value in {**options.start, **options.fixed}.items():
+        lo, hi = options.bounds.get(name, (specs[name].lower, specs[name].upper))
+        if not (np.isfinite(float(value)) and lo <= float(value) <= hi):
+            kind = "fixed" if name in options.fixed else "start"
+            raise FitError(f"{kind} value {name} = {value} is not a finite number within its bounds "
+                           f"[{lo:g}, {hi:g}]")
     names, lower, upper, linear, fixed = [], [], [], [], {}
     for spec in model.params:
         lo, hi = options.bounds.get(spec.name, (spec.lower, spec.upper))

@@ -123,6 +123,8 @@ class Mechanism:
             atol = 1e-12 * max(float(np.max(np.abs(c0))), 1e-300)
         if t.size == 1:
             return c0[:, None].copy()
+        if not (np.all(np.isfinite(c0)) and np.all(np.isfinite(kv))):
+            raise FitError("ODE integration needs finite initial concentrations and rate constants")
         solution = solve_ivp(
             lambda _t, c: self.derivatives(c, kv), (t[0], t[-1]), c0, method=method,
             t_eval=t, jac=lambda _t, c: self.jacobian(c, kv), rtol=rtol, atol=atol)
@@ -382,6 +384,10 @@ def mechanism_model(mechanism, observed, initial=None, fit_initial=(), method="L
     mechanism.check_species(observed, "observed")
     mechanism.check_species(initial, "initial")
     mechanism.check_species(fit_initial, "fit_initial")
+    for name, value in initial.items():
+        if not (np.isfinite(float(value)) and float(value) >= 0):
+            raise ConfigError("initial", f"initial concentration of {name!r} is {value}",
+                              hint="give a finite concentration of 0 mol/L or more")
     specs = [ParamSpec(name, mechanism.rate_unit(name), 0.0) for name in mechanism.rate_names]
     for name in mechanism.species:
         vary = (name in fit_initial) or (name in observed and name not in initial)

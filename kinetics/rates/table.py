@@ -107,14 +107,17 @@ def _validate(time_s, values, sigma, columns, source, lines=None):
         if negative.size:
             first = "" if lines is None else f", first on line {lines[negative[0]]}"
             parts.append(f"column {name!r} has {negative.size} (lowest {values[r].min():.3g}{first})")
+    early = "" if time_s[0] >= 0 else (
+        f"times before 0 (earliest {time_s[0]:g} s): times are seconds from the reaction start, where "
+        "c0 of the laws refers")
     if not parts:
-        return ()
+        return (early,) if early else ()
     # One summary per table, not one line per value: noise around zero is common in the
     # late points of every run, and a study reads many runs.
     message = ("negative concentrations: " + "; ".join(parts)
                + ": fine if noise around zero, otherwise check the baseline")
     log.info("%s: %s", source, message)
-    return (message,)
+    return (message, early) if early else (message,)
 
 
 def from_arrays(time_s, values, sigma=None, columns=None, source="<arrays>") -> ConcentrationData:
