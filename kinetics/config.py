@@ -468,6 +468,8 @@ def _alignment_section(raw: Mapping) -> AlignmentConfig:
                            reference_index=index)
 
 
+#: sections other modules validate: processing (kinetics.processing), fit and live (watchers.live)
+_OTHER_SECTIONS = {"processing", "fit", "live"}
 _OWN_SECTIONS = {"run", "time", "integration", "quantify", "alignment", "signals"}
 
 
@@ -483,6 +485,10 @@ def run_config_from_dict(raw: Mapping[str, Any], path: str | Path | None = None)
         folder = base / folder
     signals = signals_from_list(raw.get("signals"))
     sections = {name: value for name, value in raw.items() if name not in _OWN_SECTIONS}
+    unknown = sorted(set(sections) - _OTHER_SECTIONS)
+    if unknown:
+        raise ConfigError(unknown[0], "unknown section or key at the top level",
+                          hint="known: " + ", ".join(sorted(_OWN_SECTIONS | _OTHER_SECTIONS)))
     if "processing" in sections:
         from kinetics.processing import Pipeline
 

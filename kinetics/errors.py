@@ -1,7 +1,8 @@
-"""One exception tree for everything the user can get wrong.
+"""One exception tree for everything the user can get wrong (or the machine refuses).
 
-``KineticsError`` is the root; the CLI catches it and prints its message without a
-traceback.  Every message says what went wrong, where (file, line or key) and what to do.
+``KineticsError`` is the root of InputFileError, ConfigError, FitError and OutputError;
+the CLI catches it and prints its message without a traceback.  Every message says what
+went wrong, where (file, line or key) and what to do.
 """
 
 from __future__ import annotations
@@ -59,3 +60,16 @@ class ConfigError(KineticsError):
 
 class FitError(KineticsError):
     """A fit could not be set up or run (bad data, no free parameters, ...)."""
+
+
+class OutputError(KineticsError):
+    """An output (ledger, table, page, report) could not be written: names the file and the cause
+    (a read-only folder, a full disk)."""
+
+    def __init__(self, path, problem: str, hint: str | None = None):
+        self.path = str(path)
+        self.problem = problem
+        message = f"{self.path}: {problem}"
+        if hint:
+            message = f"{message} ({hint})"
+        super().__init__(message)

@@ -141,7 +141,8 @@ def validate_signals(signals, ppm_range: tuple[float, float] | None = None,
 
     Rules: unique names, low < high, nuclei >= 1, a known method, a line shape for
     'fit', ``correct_truncation`` only for 'integral', a positive standard concentration, windows inside ``ppm_range`` when given, and
-    no two windows overlapping unless both signals are 'fit' signals of one group.
+    no two windows overlapping unless both signals are 'fit' signals of one group (and
+    then not with the same centre and line shape, which would make the two alike).
     """
     names = set()
     for i, sig in enumerate(signals):
@@ -178,6 +179,13 @@ def validate_signals(signals, ppm_range: tuple[float, float] | None = None,
             b = signals[j]
             if a.window_ppm[0] < b.window_ppm[1] and b.window_ppm[0] < a.window_ppm[1]:
                 if a.method == b.method == "fit" and a.fit_group == b.fit_group:
+                    # a component starts at its window's centre: two alike starts cannot tell
+                    # which line is which, and the fit may swap them between spectra
+                    if abs(a.center_ppm - b.center_ppm) < 1e-6 and a.lineshape == b.lineshape:
+                        raise ConfigError(f"{key}[{j}].window_ppm",
+                                          f"{b.name!r} and {a.name!r} ({key}[{i}]) have the same window "
+                                          "centre and line shape, so the fit cannot tell them apart",
+                                          hint="centre each signal's window on its own line")
                     continue
                 raise ConfigError(f"{key}[{j}].window_ppm",
                                   f"window of {b.name!r} overlaps that of {a.name!r} ({key}[{i}])",

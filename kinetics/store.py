@@ -51,7 +51,7 @@ from typing import Any, Mapping
 
 import pandas as pd
 
-from kinetics.errors import ConfigError, InputFileError, KineticsError
+from kinetics.errors import ConfigError, InputFileError, KineticsError, OutputError
 
 log = logging.getLogger(__name__)
 
@@ -104,18 +104,7 @@ CREATE TABLE IF NOT EXISTS config (
 """
 
 
-class OutputError(KineticsError):
-    """An output (ledger, table, page) could not be written: names the file and the cause."""
-
-    def __init__(self, path, problem: str, hint: str | None = None):
-        self.path = str(path)
-        self.problem = problem
-        message = f"{self.path}: {problem}"
-        if hint:
-            message = f"{message} ({hint})"
-        super().__init__(message)
-
-
+# OutputError lives in kinetics.errors with the rest of the tree; re-exported here.
 def output_error(path, error: BaseException) -> OutputError:
     """Turn an OS or SQLite failure while writing ``path`` into an :class:`OutputError`."""
     text = str(error)

@@ -26,6 +26,8 @@ its unit and its default:
     ``table`` (path, relative to the config file) — a CSV series table with a time column
     and concentration column(s); or ``config`` (path) — a single-run config, turned into a
     table by ``kinetics.series.run_config_to_table``.  Exactly one of the two.
+    ``folder`` (path, with ``config`` only) — run that config on this folder instead of its
+    own ``[run] folder``, so one run config serves every temperature.
     ``time_column`` (str, default ``"time_s"``) and ``time_unit`` (``"s"``, ``"min"`` or
     ``"h"``, default ``"s"``).
     ``column`` (str, required) — the concentration column, mol/L.
@@ -38,6 +40,7 @@ Outputs written to the output folder: ``runs.csv`` (per-run fits), ``arrhenius.c
 
 from __future__ import annotations
 
+import dataclasses
 import logging
 import tomllib
 from dataclasses import dataclass
@@ -54,7 +57,7 @@ log = logging.getLogger(__name__)
 
 _STUDY_KEYS = {"name", "model", "observed", "reference_temperature_kelvin", "t_ref_kelvin", "global_fit", "profile",
                "interval_basis", "runs"}
-_RUN_KEYS = {"label", "temperature_c", "temperature_kelvin", "table", "config", "time_column", "time_unit",
+_RUN_KEYS = {"label", "temperature_c", "temperature_kelvin", "table", "config", "folder", "time_column", "time_unit",
              "column", "sigma_column"}
 _TIME_UNITS_S = {"s": 1.0, "min": 60.0, "h": 3600.0}
 
@@ -160,6 +163,9 @@ def _run_temperature(run: Mapping, key: str, source: Path) -> tuple[float, list[
 
 
 def _read_series_table(run: Mapping, key: str, base: Path, source: Path):
+    if "folder" in run and "config" not in run:
+        raise ConfigError(f"{key}.folder", "a folder goes with 'config' (the run config applied to it)",
+                          source=source)
     if ("table" in run) == ("config" in run):
         raise ConfigError(key, "needs exactly one of 'table' (a CSV series table) and 'config' (a run config)",
                           source=source)
@@ -170,7 +176,18 @@ def _read_series_table(run: Mapping, key: str, base: Path, source: Path):
             raise ConfigError(f"{key}.config", "run configs need kinetics.series.run_config_to_table, "
                               "which this installation does not provide yet",
                               "export the run as a CSV series table and give it as 'table'", source=source) from None
-        return run_config_to_table(base / run["config"]), base / run["config"]
+        config_path = base / run["config"]
+        if "folder" not in run:
+            return run_config_to_table(config_path), config_path
+        # one run config for every temperature: the study names each run's folder
+        from kinetics.config import load_run_config
+        from kinetics.series import run_series
+
+        template = load_run_config(config_path)
+        folder = base / str(run["folder"])
+        if not folder.is_dir():
+            raise ConfigError(f"{key}.folder", f"folder {folder} does not exist", source=source)
+        return run_series(dataclasses.replace(template, folder=folder)).table, config_path
     path = base / run["table"]
     if not path.exists():
         raise InputFileError(path, "series table not found", hint=f"named by {key}.table in {source}")

@@ -1153,6 +1153,11 @@ def harmonic_mean_temperature(temperature_kelvin) -> float:
     return float(1.0 / np.mean(1.0 / np.asarray(temperature_kelvin, float)))
 
 
+def _exp_or_inf(x: float) -> float:
+    """exp(x), but +inf instead of an OverflowError (a hopeless interval stays reportable)."""
+    return math.exp(x) if x < 700.0 else float("inf")
+
+
 def global_fit(
     runs: Sequence[KineticRun],
     model: str | GlobalModel | Callable = "first",
@@ -1246,7 +1251,8 @@ def global_fit(
     ea = Estimate(ea_value, se_ea, (ea_value - q * se_ea, ea_value + q * se_ea), "kJ/mol")
     k_ref_value = math.exp(ln_k_ref)
     k_ref = Estimate(k_ref_value, k_ref_value * se_ln_k,
-                     (math.exp(ln_k_ref - q * se_ln_k), math.exp(ln_k_ref + q * se_ln_k)) if success else (float("nan"),) * 2,
+                     (_exp_or_inf(ln_k_ref - q * se_ln_k), _exp_or_inf(ln_k_ref + q * se_ln_k)) if success
+                     else (float("nan"),) * 2,
                      model.k_unit)
     # ln A = ln k_ref + Ea/(R T_ref): linear in the fitted pair, so its variance is exact.
     g = np.array([1.0, 1e3 / (GAS_CONSTANT_J_PER_MOL_K * t_ref)])
