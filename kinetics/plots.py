@@ -147,7 +147,9 @@ def stacked_spectra_figure(
     time_s : sequence of float, shape (n,), optional
         Time of each spectrum from reaction start; labels each trace.
     windows : mapping name -> (low_ppm, high_ppm) or sequence of (name, low, high), optional
-        Signal windows to shade (each with its own hatch, so they read in greyscale).
+        Signal windows to shade (each with its own hatch, so they read in greyscale).  With
+        windows the traces are scaled to the tallest signal inside them, and anything
+        taller (a solvent line) is clipped at 1.6 times that height.
     ppm_limits : (high_ppm, low_ppm), optional
         Shift range shown; default the range of the first spectrum.
     max_traces : int
@@ -168,19 +170,26 @@ def stacked_spectra_figure(
         ppm_limits = (float(first_ppm.max()), float(first_ppm.min()))
     high, low = max(ppm_limits), min(ppm_limits)
 
+    window_list = _as_windows(windows)
     heights = []
     for ppm, intensity in (traces[i] for i in chosen):
         inside = (ppm <= high) & (ppm >= low)
+        if window_list:
+            # scale to the tracked signals, so a huge solvent line does not flatten them
+            inside &= np.any([(ppm >= lo) & (ppm <= hi) for _, lo, hi in window_list], axis=0)
         heights.append(np.ptp(intensity[inside]) if inside.any() else 0.0)
-    step = 0.35 * (max(heights) if heights and max(heights) > 0 else 1.0)
+    reference_height = max(heights) if heights and max(heights) > 0 else 1.0
+    step = 0.35 * reference_height if not window_list else 0.8 * reference_height
+    clip_height = None if not window_list else 1.6 * reference_height
 
     figure = _new_figure(7.5, 2.2 + 0.32 * len(chosen))
     ax = figure.add_subplot(1, 1, 1)
-    for number, (name, lo, hi) in enumerate(_as_windows(windows)):
+    for number, (name, lo, hi) in enumerate(window_list):
         ax.axvspan(lo, hi, facecolor=_WINDOW_FILL, edgecolor="#8c7a4a", alpha=0.55,
                    hatch=_WINDOW_HATCHES[number % len(_WINDOW_HATCHES)], linewidth=0.6, zorder=0)
-        ax.text(0.5 * (lo + hi), 1.0, _plain(name), transform=ax.get_xaxis_transform(), ha="center",
-                va="bottom", fontsize=8, color="#4a3f22", rotation=0, clip_on=False)
+        # labels of neighbouring windows alternate in height so they do not overprint
+        ax.text(0.5 * (lo + hi), 1.0 + 0.045 * (number % 3), _plain(name), transform=ax.get_xaxis_transform(),
+                ha="center", va="bottom", fontsize=8, color="#4a3f22", rotation=0, clip_on=False)
 
     scale, unit = _time_scale(max(time_s) if time_s is not None and len(time_s) else 0.0)
     for rank, index in enumerate(chosen):
@@ -189,7 +198,8 @@ def stacked_spectra_figure(
         fraction = rank / max(1, len(chosen) - 1)
         colour = tuple(_TRACE_DARK + fraction * (_TRACE_LIGHT - _TRACE_DARK))
         offset = rank * step
-        ax.plot(ppm[inside], intensity[inside] + offset, color=colour, linewidth=0.8)
+        shown = intensity[inside] if clip_height is None else np.minimum(intensity[inside], clip_height)
+        ax.plot(ppm[inside], shown + offset, color=colour, linewidth=0.8)
         if time_s is not None:
             ax.text(low, offset, f" {time_s[index] / scale:.3g} {unit}", fontsize=7,
                     va="bottom", ha="left", color=colour, clip_on=False)

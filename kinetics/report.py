@@ -284,7 +284,8 @@ def spectra_section(spectra, *, windows=None, time_s=None, heading: str = "Spect
                                           max_traces=max_traces)
     shown = min(len(spectra), max(2, max_traces))
     caption = (f"{shown} of {len(spectra)} spectra, first at the bottom; shaded bands are the "
-               "tracked signal windows.")
+               "tracked signal windows" + ("; traces are scaled to the tracked signals and taller lines "
+                                           "(a solvent) are clipped." if windows else "."))
     return Section(heading, (FigureBlock("Stacked spectra", figure, caption, name=f"{heading}_spectra"),))
 
 

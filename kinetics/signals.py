@@ -1207,7 +1207,13 @@ def fit_window(signals) -> tuple[float, float]:
 
 
 def components_for(signals) -> list[Component]:
-    """Deconvolution components of a group of fit signals (start at the window centres)."""
+    """Deconvolution components of a group of fit signals (start at the window centres).
+
+    A centre may move by the signal's ``tolerance_ppm`` when one is given, else by a
+    quarter of its window: an explicit tolerance is how a user keeps two close lines of
+    one group from trading places.
+    """
     return [Component(name=s.name, center_ppm=s.center_ppm, lineshape=s.lineshape,
-                      tolerance_ppm=max(s.tolerance_ppm, 0.25 * (s.window_ppm[1] - s.window_ppm[0])))
+                      tolerance_ppm=s.tolerance_ppm if s.tolerance_ppm > 0
+                      else 0.25 * (s.window_ppm[1] - s.window_ppm[0]))
             for s in signals]

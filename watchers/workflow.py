@@ -167,7 +167,8 @@ def _study_sections(study) -> list:
     if study.global_result is not None:
         blocks = []
         try:
-            blocks.append(rp.TableBlock("Two-step and global estimates compared", study.global_result.comparison(),
+            blocks.append(rp.TableBlock("Two-step and global estimates compared",
+                                        pd.DataFrame(study.global_result.comparison()),
                                         name="two_step_vs_global",
                                         caption="Global: every concentration of every run fitted at once with "
                                                 "k(T) = k_ref exp(-(Ea/R)(1/T - 1/T_ref))."))
