@@ -320,17 +320,24 @@ def _job_text(job) -> str:
         lines.append(note)
     if job.runs:
         lines.append("")
-        lines.append(f"{'run':<12} {'spectra':>7}  {'k with 95 % interval':<48} {'fit'}")
+        width = max(12, *(len(run.label) + 1 for run in job.runs))
+        lines.append(f"{'run':<{width}} {'spectra':>7}  {'k with 95 % interval':<48} {'fit'}")
         for run in job.runs:
             status = "no fit" if run.fit is None else ("converged" if run.fit.converged else
                                                         f"NOT converged: {run.fit.message}")
-            lines.append(f"{run.label:<12} {len(run.table):>7}  {_fmt(run.k()):<48} {status}")
+            lines.append(f"{run.label:<{width}} {len(run.table):>7}  {_fmt(run.k()):<48} {status}")
             skipped = {k: v for k, v in run.counts.items() if k not in ("processed",) and v}
             if skipped:
-                lines.append(f"{'':<12} files: " + ", ".join(f"{k} {v}" for k, v in sorted(skipped.items())))
+                lines.append(f"{'':<{width}} files: " + ", ".join(f"{k} {v}" for k, v in sorted(skipped.items())))
     study = job.study
     if study is not None:
         lines.append("")
+        if not job.runs:
+            for fit in study.run_fits:
+                state = "" if fit.success else f"  ({fit.message})"
+                lines.append(f"{fit.label:<12} {fit.temperature_kelvin:8.2f} K  k = {fit.k:.4g} ± {fit.k_stderr:.2g}"
+                             f"{state}")
+            lines.append("")
         if study.temperature is None:
             lines.append(f"temperature study: {study.message}")
         else:

@@ -120,3 +120,24 @@ def test_demo_recovers_its_generator_self_consistency(readme_demo):
     assert ea["ci95"][0] <= demo.EA_KJ_PER_MOL <= ea["ci95"][1], ea
     global_ea = study["global_fit"]["ea_kj_per_mol"]
     assert global_ea["ci95"][0] <= demo.EA_KJ_PER_MOL <= global_ea["ci95"][1], global_ea
+
+
+def test_demo_report_in_a_real_browser(readme_demo, tmp_path):
+    """The demo's report, rendered by headless Chromium, shows its figures and headings."""
+    from tests_support_browser import chromium, dump_dom_with_image_sizes, screenshot
+
+    binary = chromium()
+    if binary is None:
+        reason = "chromium is not installed (apt-get install chromium); browser check skipped"
+        print(reason)
+        pytest.skip(reason)
+    _, out, _ = readme_demo
+    html = out / "report" / "report.html"
+    dom, sizes = dump_dom_with_image_sizes(binary, html, tmp_path)
+    assert len(sizes) >= 7 and all(w > 300 and h > 200 for w, h in sizes)  # every figure decoded
+    for heading in ("Temperature dependence (two-step)", "Arrhenius plot", "Eyring plot",
+                    "Spectra through time: 25 °C", "Rate law: 25 °C", "Rate laws compared", "Safety first"):
+        assert heading in dom, heading
+    shot = screenshot(binary, html, tmp_path)
+    print(f"screenshot of the demo report: {shot}")
+    assert shot.stat().st_size > 50_000

@@ -12,9 +12,7 @@ from __future__ import annotations
 
 import base64
 import re
-import shutil
 import struct
-import subprocess
 from pathlib import Path
 
 import numpy as np
@@ -23,32 +21,9 @@ import pytest
 
 from kinetics import plots, report
 
-_FLAGS = ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-          "--disable-background-networking", "--disable-component-update", "--disable-sync",
-          "--disable-extensions", "--hide-scrollbars")
-
-# Writes "naturalWidth x naturalHeight" of every image into a data attribute, once loaded.
-_PROBE = """<script>
-window.addEventListener("load", function () {
-  var sizes = Array.prototype.map.call(document.images, function (img) {
-    return img.complete ? img.naturalWidth + "x" + img.naturalHeight : "0x0"; });
-  document.body.setAttribute("data-image-sizes", sizes.join(" "));
-});
-</script>"""
-
-
-def _chromium() -> str | None:
-    for candidate in ("/usr/bin/chromium", shutil.which("chromium"), shutil.which("chromium-browser")):
-        if candidate and Path(candidate).exists():
-            return candidate
-    return None
-
-
-def _run(binary: str, tmp_path: Path, profile: str, *args: str) -> subprocess.CompletedProcess:
-    profile_dir = tmp_path / profile
-    profile_dir.mkdir()
-    return subprocess.run([binary, *_FLAGS, f"--user-data-dir={profile_dir}", *args],
-                          capture_output=True, timeout=90, check=False)
+from tests_support_browser import PROBE as _PROBE
+from tests_support_browser import chromium as _chromium
+from tests_support_browser import run as _run
 
 
 def _png_size(data: bytes) -> tuple[int, int]:
