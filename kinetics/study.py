@@ -424,18 +424,16 @@ _MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*")
 
 
 def _figure():
-    import matplotlib
+    # a bare Figure (no pyplot): no global figure state, safe in threads and servers
+    from matplotlib.figure import Figure
 
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    fig, ax = plt.subplots(figsize=(6.0, 4.2), dpi=120)
-    return plt, fig, ax
+    fig = Figure(figsize=(6.0, 4.2), dpi=120)
+    return fig, fig.add_subplot(1, 1, 1)
 
 
 def _line_plot(result: temp.TemperatureResult, line: temp.LineFit, y, ylabel: str, title: str, path: Path,
                global_curve=None) -> Path:
-    plt, fig, ax = _figure()
+    fig, ax = _figure()
     t = np.asarray(result.temperature_kelvin)
     x = 1.0 / t
     sigma = result._sigma_lnk() if result.k_stderr is not None else None
@@ -455,7 +453,6 @@ def _line_plot(result: temp.TemperatureResult, line: temp.LineFit, y, ylabel: st
     secondary.set_xlabel("T (K)")
     fig.tight_layout()
     fig.savefig(path)
-    plt.close(fig)
     return path
 
 
@@ -482,7 +479,7 @@ def eyring_plot(result: temp.TemperatureResult, path: Path, name: str = "") -> P
 def global_fit_plot(runs, global_result: temp.GlobalFitResult, model: temp.GlobalModel, path: Path,
                     name: str = "") -> Path:
     """Every run's concentration data with the globally fitted curves."""
-    plt, fig, ax = _figure()
+    fig, ax = _figure()
     shades = np.linspace(0.0, 0.6, max(len(runs), 1))
     for i, (run, params) in enumerate(zip(runs, global_result.nuisance)):
         grey = str(shades[i])
@@ -504,5 +501,4 @@ def global_fit_plot(runs, global_result: temp.GlobalFitResult, model: temp.Globa
     ax.legend(fontsize=7, frameon=False)
     fig.tight_layout()
     fig.savefig(path)
-    plt.close(fig)
     return path
