@@ -201,6 +201,36 @@ def first_spectrum(folder: str | Path) -> tuple[Spectrum, list[Path], list[str],
                              hint="check that the file is a complete FID") from error
 
 
+# ---------------------------------------------------------------- phase
+#: a stored spectrum counts as mis-phased beyond these corrections (degrees)
+_PHASE_TOLERANCE_P0_DEG = 5.0
+_PHASE_TOLERANCE_P1_DEG = 10.0
+
+
+def _rephase_if_needed(spectrum: Spectrum) -> tuple[Spectrum, str | None]:
+    """Auto-phase a stored spectrum that carries imaginary data and is visibly mis-phased.
+
+    Benchtop instruments often write spectra with a residual phase error; peak picking on
+    them misses multiplets sitting on a solvent line's dispersive tail.  A spectrum whose
+    automatic correction is small is kept as stored (None is returned for the note).
+    """
+    if spectrum.imag is None:
+        return spectrum, None
+    from kinetics.processing import auto_phase
+
+    try:
+        result = auto_phase(spectrum)
+    except (ValueError, FitError) as error:
+        log.info("init: automatic phasing of %s failed (%s); using it as stored", spectrum.source_path, error)
+        return spectrum, None
+    p0 = abs((result.p0_deg + 180.0) % 360.0 - 180.0)
+    if p0 <= _PHASE_TOLERANCE_P0_DEG and abs(result.p1_deg) <= _PHASE_TOLERANCE_P1_DEG:
+        return spectrum, None
+    note = (f"the first spectrum needed p0 {result.p0_deg:.0f} deg, p1 {result.p1_deg:.0f} deg: "
+            "every spectrum is re-phased")
+    return result.spectrum, note
+
+
 # ---------------------------------------------------------------- peaks
 def _robust_noise(spectrum: Spectrum) -> float:
     from kinetics.signals import estimate_noise
@@ -514,7 +544,7 @@ def _signal_lines(window: ProposedWindow) -> list[str]:
 
 def render_config(spectrum: Spectrum, windows: list[ProposedWindow], folder: Path,
                   noise_region_ppm, config_dir: Path, files: list[Path], skipped: list[str],
-                  from_fid: bool = False) -> str:
+                  from_fid: bool = False, phase_note: str | None = None) -> str:
     """The commented TOML text of a starter run config (loads with
     :func:`kinetics.config.load_run_config`)."""
     try:
@@ -553,6 +583,12 @@ def render_config(spectrum: Spectrum, windows: list[ProposedWindow], folder: Pat
     if from_fid:
         out.append('phase = "auto"                  # FIDs: DC offset, filter delay, 0.3 Hz broadening, '
                    "zero-fill, ACME phase")
+    elif phase_note is not None:
+        out.append(f'phase = "auto"                  # {phase_note}')
+        solvent_window = next((w for w in windows if w.role == "solvent"), None)
+        if solvent_window is not None:
+            lo, hi = solvent_window.window_ppm
+            out.append(f"phase_exclude_ppm = [[{hi:.2f}, {lo:.2f}]]   # keep the solvent line out of the phase score")
     else:
         out.append('phase = "none"                  # files are spectra already; "auto" re-phases '
                    "when they carry imaginary data")
@@ -620,10 +656,14 @@ def draft_config(folder: str | Path, out: str | Path | None = None, *, force: bo
         raise InputFileError(out, "already exists and was left unchanged",
                              hint="choose another --out or pass --force to replace it")
     spectrum, files, skipped, from_fid = first_spectrum(folder)
+    phase_note = None
+    if not from_fid:
+        spectrum, phase_note = _rephase_if_needed(spectrum)
     peaks, noise, threshold, windows = propose_windows(spectrum, snr_threshold=snr_threshold,
                                                        coupling_hz=coupling_hz)
     region = _noise_region(spectrum, windows)
-    text = render_config(spectrum, windows, folder, region, out.parent, files, skipped, from_fid)
+    text = render_config(spectrum, windows, folder, region, out.parent, files, skipped, from_fid,
+                         phase_note=phase_note)
     from kinetics.spectra.reader import atomic_write_text
 
     out.parent.mkdir(parents=True, exist_ok=True)

@@ -12,6 +12,7 @@ config loads with the project's config loader.
 from __future__ import annotations
 
 import re
+from pathlib import Path
 from datetime import datetime, timezone
 
 import numpy as np
@@ -253,3 +254,26 @@ def test_csv_folder_pattern_leaves_out_the_unreadable_table(tmp_path):
     config = load_run_config(tmp_path / "csv.toml")
     assert config.pattern == "spectrum_*.csv"
     assert sorted(p.name for p in folder.glob(config.pattern)) == ["spectrum_0001.csv", "spectrum_0002.csv"]
+
+
+def test_mis_phased_benchtop_spectra_are_rephased_before_peak_picking(tmp_path):
+    # the demo's invented 60 MHz spectra carry phase errors of tens of degrees and a water
+    # line whose dispersive tail hides the O-CH2 triplet at 4.05 ppm unless re-phased
+    import shutil
+
+    from kinetics import demo
+    from kinetics.config import load_run_config
+    from kinetics.init import draft_config
+
+    source = Path(__file__).resolve().parent.parent / "demo_series" / demo.demo_runs()[0].folder
+    folder = tmp_path / "run"
+    folder.mkdir()
+    for name in ("spectrum_0001.jdx", "spectrum_0002.jdx"):
+        shutil.copy(source / name, folder / name)
+    draft = draft_config(folder)
+    assert 'phase = "auto"' in draft.text and "phase_exclude_ppm" in draft.text
+    signal_windows = [w.window_ppm for w in draft.windows if w.role == "signal"]
+    assert any(lo < 4.05 < hi for lo, hi in signal_windows)  # the ester's O-CH2 triplet
+    assert any(lo < 6.20 < hi for lo, hi in signal_windows)  # the standard
+    assert any(w.role == "solvent" and w.window_ppm[0] < 4.75 < w.window_ppm[1] for w in draft.windows)
+    load_run_config(draft.config_path)  # the draft loads as written
