@@ -216,3 +216,33 @@ def test_terminal_panel_shows_k_forecast_and_counts():
     assert "0.0015  (95 %: 0.00148 – 0.00152) s^-1" in text
     assert "time to 90%" in text and "1535" in text
     assert "12 processed, 1 duplicate, 2 quarantined" in text
+
+
+def test_a_measurer_crash_quarantines_that_file_and_the_run_goes_on(tmp_path):
+    # whatever a parser raises on one bad file (here an IndexError) must become a
+    # quarantine reason, never an exception that stops the live loop
+    from kinetics.store import Ledger
+    from watchers.folder import ReadyFile
+    from watchers.live import process_ready
+    import test_live_support as support
+
+    folder = tmp_path / "in"
+    support.write_series(folder, 2)
+    bad = folder / "zz_bad.txt"
+    bad.write_text("not a spectrum")
+
+    def measure(path):
+        if path.name == bad.name:
+            raise IndexError("list index out of range")
+        return support.measure(path)
+
+    ready = []
+    for path in sorted(folder.iterdir()):
+        st = path.stat()
+        ready.append(ReadyFile(path, path.name, st.st_size, st.st_mtime_ns, "2026-01-01T00:00:00Z"))
+    with Ledger(tmp_path / "ledger.sqlite") as ledger:
+        rows, handled, changed = process_ready(ready, ledger, measure)
+        counts = ledger.counts()
+    assert counts["processed"] == 2 and counts["quarantined"] == 1
+    (quarantined,) = [r for r in rows if r.status == "quarantined"]
+    assert "IndexError" in quarantined.error and len(handled) == 3 and not changed

@@ -240,6 +240,22 @@ def _stat_key(path: Path) -> tuple[int, int] | None:
     return stat.st_size, stat.st_mtime_ns
 
 
+def _measure_safely(measure: Measurer, path: Path):
+    """(measurement, None), or (None, InputFileError) for a file that cannot be measured.
+
+    Whatever a parser or measurer raises on a bad file becomes a quarantine reason: a bad
+    file never stops a live run.
+    """
+    try:
+        return measure(path), None
+    except InputFileError as error:
+        return None, error
+    except Exception as error:  # noqa: BLE001 - any failure on one file quarantines that file
+        log.debug("measuring %s failed", path, exc_info=True)
+        return None, InputFileError(path, f"could not be measured: {type(error).__name__}: {error}",
+                                    hint="the file is quarantined; the run goes on")
+
+
 def process_ready(ready: list[ReadyFile], ledger: Ledger, measure: Measurer,
                   known: dict[str, tuple[int, int, str]] | None = None,
                   ) -> tuple[list[FileRow], list[ReadyFile], list[ReadyFile]]:
@@ -276,16 +292,16 @@ def process_ready(ready: list[ReadyFile], ledger: Ledger, measure: Measurer,
             sha = sha256_of_file(item.path)
         except FileNotFoundError:
             continue  # deleted after it was complete: nothing to take
+        except OSError as error:  # no read permission, a disk error: never stop the run
+            log.warning("cannot read %s yet (%s); it is looked at again later", item.path, error)
+            continue
         action = ledger.decide(item.relpath, sha).action
         if action == "known":
             handled.append(item)
             continue
         candidate = _Candidate(item, sha)
         if action == "new":
-            try:
-                candidate.measurement = measure(item.path)
-            except InputFileError as error:
-                candidate.error = error
+            candidate.measurement, candidate.error = _measure_safely(measure, item.path)
         if _stat_key(item.path) != (item.size_bytes, item.mtime_ns):
             changed.append(item)
             continue
@@ -300,7 +316,10 @@ def process_ready(ready: list[ReadyFile], ledger: Ledger, measure: Measurer,
             if candidate.error is not None:
                 raise candidate.error
             if candidate.measurement is None:  # a duplicate whose twin has just gone
-                return measure(candidate.ready.path)
+                measurement, error = _measure_safely(measure, candidate.ready.path)
+                if error is not None:
+                    raise error
+                return measurement
             return candidate.measurement
 
         row = ledger.ingest(candidate.ready.relpath, candidate.sha256, candidate.ready.size_bytes,
@@ -806,7 +825,11 @@ def watch_command(args) -> dict:
         if Path(args.replay).resolve() == folder.resolve():
             raise ConfigError("--replay", "the replay source is the watched folder itself",
                               hint="replay a finished copy into the run's folder")
-        folder.mkdir(parents=True, exist_ok=True)
+        try:
+            folder.mkdir(parents=True, exist_ok=True)
+        except OSError as error:
+            raise ConfigError("run.folder", f"cannot create the watched folder {folder}: {error.strerror or error}",
+                              hint="point [run] folder at a writable place for --replay") from error
         replayer = ReplayThread(args.replay, folder, args.interval, pipeline.spec.include)
         replayer.start()
     try:
