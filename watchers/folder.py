@@ -133,6 +133,9 @@ def check_folder(folder: Path) -> Path:
     if not folder.is_dir():
         raise InputFileError(folder, "the input path is not a folder",
                              hint="give the folder the instrument writes into")
+    if not os.access(folder, os.R_OK | os.X_OK):
+        raise InputFileError(folder, "the input folder cannot be read (permission denied)",
+                             hint="give this user read access to the folder")
     return folder.resolve()
 
 
@@ -298,11 +301,17 @@ class FolderWatcher:
         if not self.spec.poll:
             from watchdog.observers import Observer
 
-            self._observer = Observer()
-            self._observer.schedule(_EventHandler(folder, self.spec, self._events), str(folder),
-                                    recursive=self.spec.recursive)
-            self._observer.daemon = True
-            self._observer.start()
+            try:
+                self._observer = Observer()
+                self._observer.schedule(_EventHandler(folder, self.spec, self._events), str(folder),
+                                        recursive=self.spec.recursive)
+                self._observer.daemon = True
+                self._observer.start()
+            except OSError as error:
+                # e.g. the system's limit of file watches is reached: listing still works
+                log.warning("file events unavailable for %s (%s); polling the folder instead", folder, error)
+                self._observer = None
+                self.spec = dataclasses.replace(self.spec, poll=True)
         self._list()
 
     def relist(self) -> None:
