@@ -180,12 +180,6 @@ def _study_sections(study) -> list:
 
 
 # ---------------------------------------------------------------- single run
-def _load_run(config_path: Path):
-    from kinetics.config import load_run_config
-
-    return load_run_config(config_path)
-
-
 def _outcome(label: str, config_path: Path, out_dir: Path, summary, temperature_c=None) -> RunOutcome:
     series_csv = out_dir / "series.csv"
     table = pd.read_csv(series_csv) if series_csv.exists() else pd.DataFrame()
@@ -201,7 +195,9 @@ def run_single(config_path: str | Path, out_dir: str | Path, report: bool = True
 
     config_path = Path(config_path)
     out_dir = Path(out_dir)
-    config = _load_run(config_path)
+    from kinetics.config import load_run_config
+
+    config = load_run_config(config_path)
     summary = batch_run(config_path, out_dir)
     run = _outcome(config_path.stem, config_path, out_dir, summary)
     html = pdf = None
@@ -251,13 +247,6 @@ def is_study_file(config_path: str | Path) -> bool:
     except UnicodeDecodeError:
         raise InputFileError(path, "not a text file", hint="give the .toml config") from None
     return is_study_config(raw)
-
-
-def run_any(config_path: str | Path, out_dir: str | Path) -> JobOutcome:
-    """``kinetics run``: a study config or a single-run config."""
-    if is_study_file(config_path):
-        return run_study_config(config_path, out_dir)
-    return run_single(config_path, out_dir)
 
 
 # ---------------------------------------------------------------- the demo
