@@ -9,40 +9,11 @@ job, so the ratio says what the pipeline costs on top of the unavoidable work.
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
 
-
-@dataclass(frozen=True)
-class BenchRow:
-    section: str
-    task: str
-    median_s: float
-    p95_s: float
-    runs: int
-    floor_s: float | None = None
-    note: str = ""
-
-    @property
-    def ratio(self) -> float | None:
-        if self.floor_s is None or self.floor_s <= 0:
-            return None
-        return self.median_s / self.floor_s
-
-
-def time_runs(task: Callable[[], object], runs: int, warmup: int = 1) -> tuple[float, float]:
-    """Median and 95th-percentile wall time of ``task`` over ``runs`` calls (after warm-up)."""
-    for _ in range(warmup):
-        task()
-    samples = []
-    for _ in range(max(1, runs)):
-        start = time.perf_counter()
-        task()
-        samples.append(time.perf_counter() - start)
-    samples = np.asarray(samples)
-    return float(np.median(samples)), float(np.percentile(samples, 95))
+from kinetics.benchkit import BenchRow, time_runs  # re-exported: sections import them from here too
 
 
 # Sections are added below, one function per issue area; each takes ``quick`` (fewer
@@ -227,7 +198,154 @@ def _bench_processing(quick: bool) -> list[BenchRow]:
     return rows
 
 
-SECTIONS.append(("processing", _bench_processing))
+SECTIONS.append(("processing", lambda quick: _bench_processing(quick) + _bench_demo_spectrum(quick)))
+
+
+# ---------------------------------------------------------------- per spectrum (issue 10), beside a plain script
+def plain_nmrglue_script(paths, windows_ppm) -> np.ndarray:
+    """The per-spectrum job done the plain way, as a reference for the pipeline's cost.
+
+    For each JCAMP-DX file: read with ``nmrglue.jcampdx.read``; a FID (``DATA TYPE``
+    holding "FID") is zero-filled to twice its points and Fourier-transformed with numpy
+    (first point halved), a spectrum is used as stored; zero- and first-order phase by
+    Nelder-Mead (``scipy.optimize.minimize``) on an ACME-like score (entropy of the
+    derivative plus a negativity penalty) from (0, 0); then one numpy window sum per
+    ``(low_ppm, high_ppm)`` window.  No filter delay, baseline, referencing, alignment,
+    noise or uncertainty: only what any script must do.
+
+    Returns
+    -------
+    ndarray, shape (len(paths), len(windows_ppm))
+        Window sums (ppm x intensity).
+    """
+    import nmrglue
+    from scipy import optimize
+
+    def acme_like(params, z, ramp):
+        real = (z * np.exp(1j * (params[0] + params[1] * ramp))).real
+        d = np.abs(np.diff(real))
+        h = d[d > 0] / d.sum()
+        negative = np.minimum(real, 0.0) / np.abs(real).max()
+        return -np.sum(h * np.log(h)) + 1000.0 * np.sum(negative * negative)
+
+    out = np.zeros((len(paths), len(windows_ppm)))
+    for row, path in enumerate(paths):
+        header, data = nmrglue.jcampdx.read(str(path))
+        mhz = float(header[".OBSERVEFREQUENCY"][0])
+        first_x, last_x = (float(v) for v in (header["FIRST"][0].split(",")[0], header["LAST"][0].split(",")[0]))
+        z = np.asarray(data[0]) + 1j * np.asarray(data[1])
+        if "FID" in header["DATATYPE"][0].upper():
+            n = z.size
+            z[0] *= 0.5
+            z = np.fft.fftshift(np.fft.fft(z, 2 * n))[::-1]
+            spectral_width_hz = (n - 1) / (last_x - first_x)
+            left_ppm = float(header[".SHIFTREFERENCE"][0].split(",")[-1])
+            ppm = left_ppm - np.arange(2 * n) * spectral_width_hz / (2 * n) / mhz
+        else:
+            ppm = np.linspace(first_x, last_x, z.size) / mhz
+        ramp = np.linspace(0.0, 1.0, z.size)
+        best = optimize.minimize(acme_like, np.zeros(2), args=(z, ramp), method="Nelder-Mead")
+        real = (z * np.exp(1j * (best.x[0] + best.x[1] * ramp))).real
+        step = abs(ppm[1] - ppm[0])
+        for col, (low, high) in enumerate(windows_ppm):
+            out[row, col] = real[(ppm >= low) & (ppm <= high)].sum() * step
+    return out
+
+
+def _demo_files(run: str = "run_25C") -> list:
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parent.parent
+    return sorted((root / "demo_series" / run).glob("spectrum_*.jdx"))
+
+
+def _bench_demo_spectrum(quick: bool) -> list[BenchRow]:
+    """Read + process + measure one demo spectrum through the library's per-file path,
+    beside the floor (the file's bytes plus one FFT of its size) and beside
+    :func:`plain_nmrglue_script` on the same file, timed in the same run.  Also the plain
+    script over the 144 demo spectra (the engine's row compares with it)."""
+    import dataclasses
+
+    from kinetics import series
+    from kinetics.config import load_run_config
+
+    rows = []
+    files = _demo_files()
+    root = files[0].parent.parent.parent
+    config = load_run_config(root / "configs" / "demo_run.toml")
+    windows = [sig.window_ppm for sig in config.signals]
+    reference = series.make_reference(files[0], config)
+    runs = 10 if quick else 40
+    picks = [files[1 + i % (len(files) - 1)] for i in range(runs + 1)]
+    order = iter(picks * 3)
+    median, p95 = time_runs(lambda: series.measure_file(next(order), config, reference), runs)
+    floor, _ = time_runs(lambda: (files[1].read_bytes(), np.fft.fft(np.ones(4096, complex))), runs)
+    plain, _ = time_runs(lambda: plain_nmrglue_script([files[1]], windows), max(3, runs // 4))
+    rows.append(BenchRow("processing", "demo spectrum read+process+measure", median, p95, runs, floor,
+                         f"4k points, configs/demo_run.toml (global fit: per-spectrum areas come from the "
+                         f"series fit); plain nmrglue+numpy script {plain * 1e3:.1f} ms "
+                         f"({median / plain:.2f}x); floor = bytes + one 4k FFT"))
+    per_spectrum = dataclasses.replace(config, integration=dataclasses.replace(config.integration,
+                                                                                global_fit=False))
+    median, p95 = time_runs(lambda: series.measure_file(next(order), per_spectrum, reference), runs)
+    rows.append(BenchRow("processing", "  same, 4 fit groups deconvolved per spectrum", median, p95, runs, floor,
+                         f"integration.global_fit = false; plain script {plain * 1e3:.1f} ms "
+                         f"({median / plain:.2f}x)"))
+
+    all_files = sorted(f for run in ("run_25C", "run_35C", "run_45C", "run_55C") for f in _demo_files(run))
+    plain_runs = 1 if quick else 3
+    median, p95 = time_runs(lambda: plain_nmrglue_script(all_files, windows), plain_runs, warmup=0)
+    floor, _ = time_runs(lambda: [(f.read_bytes(), np.fft.fft(np.ones(4096, complex))) for f in all_files],
+                         plain_runs)
+    rows.append(BenchRow("processing", f"{len(all_files)} demo spectra, plain nmrglue+numpy script", median, p95,
+                         plain_runs, floor, "read, ACME-like phase, five window sums; the engine's row compares "
+                                            "with this one; floor = bytes + one FFT per file"))
+    return rows
+
+
+def _bench_32k_integrals(quick: bool) -> list[BenchRow]:
+    """A 16k-point FID read, processed to a 32k-point spectrum and measured in 7 regions
+    (noise, integrals with sigma and truncation loss), beside the floor (bytes + one 32k
+    FFT) and :func:`plain_nmrglue_script` on the same file, timed in the same run."""
+    import tempfile
+    from pathlib import Path
+
+    from kinetics import simulate
+    from kinetics.processing import Pipeline
+    from kinetics.signals import estimate_noise, integrate_region
+    from kinetics.spectra.jcampdx import write_fid
+    from kinetics.spectra.reader import read
+
+    rows = []
+    rng = np.random.default_rng(20261210)
+    centres = [7.26, 6.05, 5.1, 4.10, 3.65, 2.05, 1.25]
+    species = [simulate.SpeciesSignals(f"s{i}", (simulate.Multiplet(c, 2 + i % 3, j_hz=7.0,
+                                                                    multiplicity=1 + i % 3),))
+               for i, c in enumerate(centres)]
+    acquisition = simulate.Acquisition(observe_mhz=60.0, n_points=16384)
+    fid = simulate.simulate_fid(species, {s.species: 0.1 + 0.05 * i for i, s in enumerate(species)}, rng,
+                                acquisition, snr=300, phase0_deg=35.0)
+    # each window holds its multiplet (lines 7 Hz = 0.117 ppm apart) and 0.08 ppm on either side
+    windows_32k = [(c - 0.08 - (i % 3) * 0.0583, c + 0.08 + (i % 3) * 0.0583) for i, c in enumerate(centres)]
+    pipeline = Pipeline.from_config({})
+    with tempfile.TemporaryDirectory() as folder:
+        path = Path(folder) / "fid16k.jdx"
+        write_fid(path, fid, compression="dif")
+
+        def kinetics_job():
+            spectrum = pipeline(read(path)).spectrum
+            noise = estimate_noise(spectrum, (10.0, 8.5))
+            return [integrate_region(spectrum, window, noise) for window in windows_32k]
+
+        runs = 5 if quick else 20
+        median, p95 = time_runs(kinetics_job, runs)
+        floor, _ = time_runs(lambda: (path.read_bytes(), np.fft.fft(np.ones(32768, complex))), runs)
+        plain, _ = time_runs(lambda: plain_nmrglue_script([path], windows_32k), max(2, runs // 4))
+    rows.append(BenchRow("signals", "32k spectrum, 7 region integrals", median, p95, runs, floor,
+                         f"read 16k-point FID + default pipeline (zero-fill to 32k, auto-phase) + noise + "
+                         f"7 integrals with sigma and truncation; plain nmrglue+numpy script "
+                         f"{plain * 1e3:.1f} ms ({median / plain:.2f}x); floor = bytes + one 32k FFT"))
+    return rows
 
 
 # ---------------------------------------------------------------- rates (issue 4)
@@ -299,25 +417,59 @@ def _rss_mb() -> float:
     return pages * os.sysconf("SC_PAGE_SIZE") / 1e6
 
 
+def _engine_run(folder_files, run_dir, n: int, refresh_s: float = 5.0):
+    """A run of ``_LIVE_CONFIG`` whose first ``n`` files are taken in one batch turn."""
+    import os
+
+    from kinetics.run.engine import RunState, plan_from_config, ready_files
+
+    (run_dir / "in").mkdir(parents=True)
+    (run_dir / "run.toml").write_text(_LIVE_CONFIG)
+    for path in folder_files[:n]:
+        os.link(path, run_dir / "in" / path.name)
+    plan = plan_from_config(run_dir / "run.toml")
+    state = RunState(plan, run_dir / "out", refresh_s=refresh_s)
+    state.take(ready_files(plan.spec), parallel=True)
+    state.refit(from_scratch=True)
+    state.write_outputs()
+    return state
+
+
+def _live_turn(state, source):
+    """One live turn through the engine: a complete file -> ledger, refit, outputs."""
+    import shutil
+
+    from kinetics.run.files import ReadyFile
+
+    target = state.plan.spec.folder / source.name
+    shutil.copy(source, target)
+    stat = target.stat()
+    start = time.perf_counter()
+    state.take([ReadyFile(target, target.name, stat.st_size, stat.st_mtime_ns, "bench")])
+    taken = time.perf_counter()
+    state.refit()
+    refitted = time.perf_counter()
+    state.write_outputs()
+    done = time.perf_counter()
+    return done - start, taken - start, refitted - taken
+
+
 def _bench_live(quick: bool) -> list[BenchRow]:
-    """Latency of the live step and memory over a soak, on the real series + rates path.
+    """Latency of a live turn and memory over a soak, through the run engine.
 
     Latency: from the moment a file is complete (handed over by the watcher; the quiet
     period, a setting, comes on top) to the ledger row, the warm-start refit and the
-    rewritten page (series.csv, fit.json, series.png, index.html).  Floor: measuring the
-    same file alone (read, process, integrate) — what any pipeline must do per spectrum.
+    outputs (series.csv and fit.json every turn; series.png and index.html at most once
+    per refresh interval, 5 s).  Floor: measuring the same file alone (read, process,
+    integrate) — what any pipeline must do per spectrum.
     """
-    import os
     import shutil
     import tempfile
     from pathlib import Path
 
     from kinetics import series
-    from kinetics.config import load_run_config
-    from watchers.folder import ReadyFile
-    from watchers.live import RunState, build_from_config, process_ready
 
-    sizes = (50,) if quick else (50, 500)
+    sizes = (50,) if quick else (50, 800)
     new_files = 6 if quick else 20
     soak_n, turn = (150, 50) if quick else (5000, 100)
     rows = []
@@ -326,60 +478,38 @@ def _bench_live(quick: bool) -> list[BenchRow]:
         staging = base / "staging"
         files = _live_spectra(staging, max(max(sizes) + new_files, soak_n), np.random.default_rng(6))
         for in_run in sizes:
-            run = base / f"run{in_run}"
-            (run / "in").mkdir(parents=True)
-            (run / "run.toml").write_text(_LIVE_CONFIG)
-            for path in files[:in_run]:
-                shutil.copy(path, run / "in" / path.name)
-            pipeline = build_from_config(run / "run.toml")
-            state = RunState(pipeline, run / "out")
-            folder = Path(pipeline.spec.folder)
-            now = "bench"
-            ready = [ReadyFile(p, p.name, p.stat().st_size, p.stat().st_mtime_ns, now)
-                     for p in sorted(folder.iterdir())]
-            process_ready(ready, state.ledger, pipeline.measure)
-            state.refit(from_scratch=True)
-            samples, parts = [], []
-            for path in files[in_run:in_run + new_files]:
-                target = folder / path.name
-                shutil.copy(path, target)
-                stat = target.stat()
-                start = time.perf_counter()
-                process_ready([ReadyFile(target, target.name, stat.st_size, stat.st_mtime_ns, now)],
-                              state.ledger, pipeline.measure)
-                ledger_s = time.perf_counter() - start
-                state.refit()
-                refit_s = time.perf_counter() - start - ledger_s
-                state.write_outputs()
-                samples.append(time.perf_counter() - start)
-                parts.append((ledger_s, refit_s))
-            config = load_run_config(run / "run.toml")
-            reference = series.make_reference(folder / files[0].name, config)
-            floor, _ = time_runs(lambda: series.measure_file(folder / files[1].name, config, reference), 5)
-            state.close()
-            ledger_s, refit_s = np.median(np.asarray(parts), axis=0)
+            state = _engine_run(files, base / f"run{in_run}", in_run)
+            try:
+                parts = np.array([_live_turn(state, path) for path in files[in_run:in_run + new_files]])
+                config = state.plan.config
+                reference = series.make_reference(files[0], config)
+                floor, _ = time_runs(lambda: series.measure_file(files[1], config, reference), 5)
+                page_s, _ = time_runs(lambda: state.write_outputs(final=True), 3)
+            finally:
+                state.close()
+            total, taken, refit = parts[:, 0], parts[:, 1], parts[:, 2]
             rows.append(BenchRow(
-                "live", f"new file -> ledger, refit, page ({in_run} in run)",
-                float(np.median(samples)), float(np.percentile(samples, 95)), len(samples), floor,
-                f"median split: ledger (incl. measuring) {ledger_s * 1e3:.0f} ms, refit "
-                f"{refit_s * 1e3:.0f} ms, outputs the rest; quiet period not included"))
-        # soak: files in turns, refit and page after each turn; RSS must stay flat
+                "live", f"live turn: new file -> ledger, refit, outputs ({in_run} in run)",
+                float(np.median(total)), float(np.percentile(total, 95)), len(total), floor,
+                f"median split: measure + ledger {np.median(taken) * 1e3:.0f} ms, table + refit "
+                f"{np.median(refit) * 1e3:.0f} ms, outputs the rest; figure and page (drawn at "
+                f"most every 5 s) {page_s * 1e3:.0f} ms; quiet period not included"))
+        # soak: files in turns, refit and outputs after each turn; RSS must stay flat
         run = base / "soak"
-        (run / "in").mkdir(parents=True)
-        (run / "run.toml").write_text(_LIVE_CONFIG)
-        pipeline = build_from_config(run / "run.toml")
-        state = RunState(pipeline, run / "out")
-        folder = Path(pipeline.spec.folder)
+        state = _engine_run(files, run, 0)
+        from kinetics.run.files import ReadyFile
+
+        folder = Path(state.plan.spec.folder)
         rss = []
         start = time.perf_counter()
         for offset in range(0, soak_n, turn):
             batch = []
             for path in files[offset:offset + turn]:
                 target = folder / path.name
-                os.link(path, target)
+                shutil.copy(path, target)
                 stat = target.stat()
                 batch.append(ReadyFile(target, target.name, stat.st_size, stat.st_mtime_ns, "bench"))
-            process_ready(batch, state.ledger, pipeline.measure)
+            state.take(batch)
             state.refit()
             state.write_outputs()
             rss.append(_rss_mb())
@@ -401,11 +531,36 @@ def _bench_live(quick: bool) -> list[BenchRow]:
             len(rss), note=f"RSS {early:.0f} MB after {marker * turn} spectra -> {rss[-1]:.0f} MB "
                            f"after {soak_n} ({per_spectrum_kb:.1f} kB per spectrum of run data); "
                            f"then turns without new files: {steady[len(steady) // 2 - 1]:.0f} MB "
-                           f"-> {steady[-1]:.0f} MB over the last {len(steady) - len(steady) // 2} "
-                           f"(caches warm)"))
+                           f"-> {steady[-1]:.0f} MB over the last {len(steady) - len(steady) // 2}"))
     finally:
         shutil.rmtree(base, ignore_errors=True)
     return rows
+
+
+def time_demo_run(out_dir=None, parallel: bool = True) -> float:
+    """Seconds for the 144 demo spectra through the engine, as ``kinetics run
+    configs/demo_study.toml --no-report`` takes them (four runs, ledgers, tables, fits,
+    the temperature study).  For the row beside the plain nmrglue + numpy script."""
+    import shutil
+    import tempfile
+    from pathlib import Path
+
+    from kinetics.run import engine
+    from kinetics.run.job import run_study_config
+
+    root = Path(__file__).resolve().parent.parent
+    out = Path(out_dir) if out_dir is not None else Path(tempfile.mkdtemp(prefix="kinetics-bench-demo-"))
+    minimum = engine.PARALLEL_MIN_FILES
+    try:
+        if not parallel:
+            engine.PARALLEL_MIN_FILES = 10 ** 9
+        start = time.perf_counter()
+        run_study_config(root / "configs" / "demo_study.toml", out, report=False)
+        return time.perf_counter() - start
+    finally:
+        engine.PARALLEL_MIN_FILES = minimum
+        if out_dir is None:
+            shutil.rmtree(out, ignore_errors=True)
 
 
 SECTIONS.append(("live", _bench_live))
@@ -468,4 +623,4 @@ def _bench_signals(quick: bool) -> list[BenchRow]:
     return rows
 
 
-SECTIONS.append(("signals", _bench_signals))
+SECTIONS.append(("signals", lambda quick: _bench_signals(quick) + _bench_32k_integrals(quick)))

@@ -59,7 +59,7 @@ def _add_fit(sub) -> None:
 
     p = sub.add_parser("fit", help="rate law or mechanism fitted to a concentration table")
     p.add_argument("table", type=Path, help="delimited table: a time column (s) and concentration columns")
-    p.add_argument("--time-column", required=True, help="column with time in s from the reaction start")
+    p.add_argument("--time-column", required=True, help="column with time from the reaction start (s unless --time-unit)")
     p.add_argument("--column", action="append", required=True, help="concentration column (repeat for several)")
     how = p.add_mutually_exclusive_group(required=True)
     how.add_argument("--model", choices=MODELS, help="integrated rate law")
@@ -69,6 +69,11 @@ def _add_fit(sub) -> None:
     p.add_argument("--species", action="append", help="species of each --column (multi-species models, mechanisms)")
     p.add_argument("--sigma-column", action="append", help="uncertainty column for each --column (weights)")
     p.add_argument("--absolute-sigma", action="store_true", help="sigmas are absolute (no chi-square rescaling)")
+    p.add_argument("--weighting", choices=("none", "relative"), default="none",
+                   help="relative: noise proportional to the concentration (no sigma column needed)")
+    p.add_argument("--time-unit", choices=("s", "min", "h"), help="unit of the time column (default s)")
+    p.add_argument("--concentration-unit", choices=("mol/L", "mmol/L", "umol/L"),
+                   help="unit of the concentration and sigma columns (default mol/L)")
     p.add_argument("--start", action="append", help="starting values NAME=VALUE[,NAME=VALUE...]")
     p.add_argument("--fix", action="append", help="fixed parameter values NAME=VALUE[,...]")
     p.add_argument("--initial", action="append", help="mechanism: known initial concentrations SPECIES=mol/L[,...]")
@@ -90,7 +95,8 @@ def _cmd_fit(args) -> int:
         compare=args.compare, target_conversion=args.target_conversion, bootstrap=args.bootstrap,
         seed=args.seed, start=parse_assignments(args.start, "--start"),
         fixed=parse_assignments(args.fix, "--fix"), initial=parse_assignments(args.initial, "--initial"),
-        profile=not args.no_profile, absolute_sigma=args.absolute_sigma)
+        profile=not args.no_profile, absolute_sigma=args.absolute_sigma, weighting=args.weighting,
+        time_unit=args.time_unit, concentration_unit=args.concentration_unit)
     if args.json:
         _print_json(payload)
     else:
@@ -192,10 +198,12 @@ def _cmd_init(args) -> int:
           f"{len(draft.peaks)} lines above {draft.threshold:.3g} (noise sigma {draft.noise_sigma:.3g})")
     for window in draft.windows:
         lo, hi = window.window_ppm
-        print(f"  {window.name:12s} {lo:7.3f} .. {hi:7.3f} ppm  {window.role:9s} {window.multiplicity}")
+        print(f"  {window.name:12s} {lo:7.3f} .. {hi:7.3f} ppm  {window.role:9s} {window.multiplicity}"
+              f" ({window.pattern.describe()}){'  left out: two species overlap' if window.mixed else ''}")
     for message in draft.skipped:
         print(f"  skipped: {message}")
-    print(f"wrote {config}: edit species, nuclei and the internal standard, then `kinetics run {config}`")
+    print(f"wrote {config}: set the lines marked EDIT (the standard's concentration or mode = \"relative\", "
+          f"reactant, product; species names), check nuclei, then `kinetics run {config}`")
     return 0
 
 
@@ -249,7 +257,7 @@ def _add_run(sub) -> None:
 
 
 def _cmd_run(args) -> int:
-    from watchers import workflow
+    from kinetics.run import job as workflow
 
     out = args.out or args.config.with_suffix(".out")
     if workflow.is_study_file(args.config):

@@ -1,9 +1,16 @@
 """The single-run TOML config: one folder of spectra, how to process, what to measure.
 
-Loaded with :mod:`tomllib`, validated once here, then trusted.  Every problem raises
-:class:`~kinetics.errors.ConfigError` naming the key, e.g. ``signals[2].window_ppm``.
-Sections other modules own (``[processing]`` -> :meth:`kinetics.processing.Pipeline.from_config`,
-``[fit]`` and anything else) are kept as plain dicts in :attr:`RunConfig.sections`.
+Loaded with :mod:`tomllib`, validated once here, then trusted: this module is the one
+validator of a run config.  Every problem raises :class:`~kinetics.errors.ConfigError`
+naming the key, e.g. ``signals[2].window_ppm``.  Each section becomes a small frozen record
+(``time``, ``integration``, ``quantify``, ``alignment``, ``fit``, ``live``, the signal
+definitions) and functions take the record they need.  ``[processing]`` is validated by
+:meth:`kinetics.processing.Pipeline.from_config`, and the pipeline built there is kept in
+:attr:`RunConfig.pipeline`, so a run builds it once, not once per file.
+
+:attr:`RunConfig.unnamed` lists what a draft still has to name before a rate can be fitted
+(the fitted species; the internal standard or an explicit relative/initial mode):
+``kinetics run`` and ``kinetics watch`` refuse such a config with one line naming the keys.
 
 Keys (unit, default) are listed in ``configs/run_example.toml``; the tables below in the
 validators are the source of truth.
@@ -135,6 +142,79 @@ class AlignmentConfig:
 
 
 @dataclass(frozen=True)
+class FitConfig:
+    """The rate fit of a run (``[fit]``), resolved against the measured species.
+
+    Attributes
+    ----------
+    model : str
+        Rate-law name (:data:`kinetics.rates.laws.MODELS`), default ``"first"``.
+    observed : {'reactant', 'product'}
+        What the fitted species is for a rate law.
+    species : str
+        The species fitted by a rate law: ``[fit] species``, else ``[quantify] reactant``,
+        else the first species.
+    mechanism : str or None
+        Reaction text (``"ester -> alcohol"``); replaces ``model`` when given.
+    observed_species : tuple of str
+        Mechanism species taken from the series table (default: all it names that are
+        measured).
+    initial_mol_per_l : tuple of (species, mol/L)
+        Known initial concentrations of a mechanism.
+    """
+
+    model: str = "first"
+    observed: str = "reactant"
+    species: str = ""
+    mechanism: str | None = None
+    observed_species: tuple[str, ...] = ()
+    initial_mol_per_l: tuple[tuple[str, float], ...] = ()
+
+    @property
+    def columns(self) -> tuple[str, ...]:
+        """The series-table columns fitted (``<species>_concentration``)."""
+        names = self.observed_species if self.mechanism else (self.species,)
+        return tuple(f"{name}_concentration" for name in names)
+
+
+@dataclass(frozen=True)
+class LiveConfig:
+    """How a live run follows its folder (``[live]``; times in s, None switches a limit off).
+
+    Attributes
+    ----------
+    quiet_period_s : float
+        Seconds a file must stay unchanged to count as complete (2).
+    poll : bool
+        List the folder instead of listening to file events (false).
+    poll_interval_s : float
+        Seconds between listings in poll mode (1).
+    recursive : bool
+        Also take files of sub-folders (false).
+    exclude : tuple of str
+        Glob patterns of files never taken.
+    target_conversion : float or None
+        Stop once the conversion's lower 95 % bound reaches it (fraction, 0-1).
+    idle_minutes : float or None
+        Stop after this many minutes without a new spectrum.
+    max_duration_s : float or None
+        Stop after this many seconds.
+    refresh_s : float
+        Seconds between redraws of the figure and reloads of the HTML page (5).
+    """
+
+    quiet_period_s: float = 2.0
+    poll: bool = False
+    poll_interval_s: float = 1.0
+    recursive: bool = False
+    exclude: tuple[str, ...] = ()
+    target_conversion: float | None = None
+    idle_minutes: float | None = None
+    max_duration_s: float | None = None
+    refresh_s: float = 5.0
+
+
+@dataclass(frozen=True)
 class RunConfig:
     """A validated single-run config.
 
@@ -148,10 +228,14 @@ class RunConfig:
         Glob of the spectrum files (default ``*.jdx`` ... see ``[run]``).
     order : {'name', 'time'}
         Series order: by file name or by time.
-    time, integration, quantify, alignment : the section records
+    time, integration, quantify, alignment, fit, live : the section records
     signals : tuple of SignalDefinition
     sections : mapping name -> dict
-        The raw sections owned by other modules (``processing``, ``fit``, ...).
+        The raw sections as written (``processing``, ``fit``, ``live``), for provenance.
+    pipeline : kinetics.processing.Pipeline
+        The processing pipeline of ``[processing]``, built once at load.
+    unnamed : tuple of str
+        Keys a draft still has to set before a rate can be fitted (empty when ready).
     """
 
     path: Path | None
@@ -164,10 +248,30 @@ class RunConfig:
     alignment: AlignmentConfig
     signals: tuple[SignalDefinition, ...]
     sections: Mapping[str, Any] = field(default_factory=dict)
+    fit: FitConfig = field(default_factory=FitConfig)
+    live: LiveConfig = field(default_factory=LiveConfig)
+    pipeline: Any = field(default=None, repr=False, compare=False)
+    unnamed: tuple[str, ...] = ()
 
     @property
     def processing(self) -> Mapping[str, Any]:
         return self.sections.get("processing", {})
+
+    @property
+    def fit_groups(self) -> dict[str, tuple[SignalDefinition, ...]]:
+        """Fit group -> its ``method = "fit"`` signals, in config order."""
+        groups: dict[str, list[SignalDefinition]] = {}
+        for sig in self.signals:
+            if sig.method == "fit":
+                groups.setdefault(sig.fit_group, []).append(sig)
+        return {group: tuple(members) for group, members in groups.items()}
+
+    def require_named(self) -> None:
+        """Raise one ConfigError naming every key a draft still has to set (see module doc)."""
+        if self.unnamed:
+            raise ConfigError(" and ".join(self.unnamed), "not set: the run cannot fit a rate yet",
+                              hint="name the fitted species and how concentrations are "
+                                   "quantified", source=self.path)
 
     def signal(self, name: str) -> SignalDefinition:
         for sig in self.signals:
@@ -468,9 +572,110 @@ def _alignment_section(raw: Mapping) -> AlignmentConfig:
                            reference_index=index)
 
 
-#: sections other modules validate: processing (kinetics.processing), fit and live (watchers.live)
-_OTHER_SECTIONS = {"processing", "fit", "live"}
-_OWN_SECTIONS = {"run", "time", "integration", "quantify", "alignment", "signals"}
+FIT_KEYS = {
+    # key: meaning -- the [fit] table of a run config
+    "model": "rate-law name (kinetics.rates.laws.MODELS), default \"first\"",
+    "observed": "\"reactant\" or \"product\": what the fitted species is, default \"reactant\"",
+    "species": "species fitted by a rate law, default [quantify] reactant, else the first species",
+    "mechanism": "reaction text, e.g. \"ester -> alcohol\"; replaces model",
+    "observed_species": "mechanism species taken from the series table, default all it names that are measured",
+    "initial_mol_per_l": "table species -> known initial concentration of a mechanism (mol/L)",
+}
+
+
+def _species_order(signals) -> list[str]:
+    seen: list[str] = []
+    for sig in signals:
+        if sig.species not in seen:
+            seen.append(sig.species)
+    return seen
+
+
+def _fit_section(raw: Mapping, signals, quantify: QuantifyConfig) -> FitConfig:
+    _check_keys(raw, FIT_KEYS, "fit")
+    measured = _species_order(signals)
+    mechanism = raw.get("mechanism")
+    if mechanism is not None:
+        from kinetics.rates.mechanism import parse_mechanism
+
+        if not isinstance(mechanism, str) or not mechanism.strip():
+            raise ConfigError("fit.mechanism", "expected reaction text such as \"A -> B\"")
+        names = parse_mechanism(mechanism).species
+        wanted = raw.get("observed_species") or [sp for sp in names if sp in measured]
+        if not isinstance(wanted, list) or not wanted:
+            raise ConfigError("fit.observed_species", "no species of the mechanism is measured",
+                              hint=f"the mechanism names {', '.join(names)}; the signals measure "
+                                   f"{', '.join(measured)}")
+        for sp in wanted:
+            if sp not in measured or sp not in names:
+                raise ConfigError("fit.observed_species", f"{sp!r} is not both a measured species "
+                                  "and a species of the mechanism")
+        initial = raw.get("initial_mol_per_l", {}) or {}
+        if not isinstance(initial, Mapping) or any(
+                isinstance(v, bool) or not isinstance(v, (int, float)) or v < 0 for v in initial.values()):
+            raise ConfigError("fit.initial_mol_per_l", "expected a table species = concentration >= 0")
+        return FitConfig(mechanism=mechanism, species=str(wanted[0]),
+                         observed_species=tuple(str(sp) for sp in wanted),
+                         initial_mol_per_l=tuple((str(k), float(v)) for k, v in initial.items()))
+    from kinetics.rates.laws import MODELS
+
+    model = str(raw.get("model", "first"))
+    if model not in MODELS:
+        raise ConfigError("fit.model", f"unknown rate law {model!r}", hint=f"use one of {', '.join(MODELS)}")
+    observed = str(raw.get("observed", "reactant"))
+    if observed not in ("reactant", "product"):
+        raise ConfigError("fit.observed", f"expected reactant or product, got {observed!r}")
+    species = raw.get("species") or quantify.reactant or measured[0]
+    if species not in measured:
+        raise ConfigError("fit.species", f"{species!r} is not a measured species",
+                          hint=f"measured: {', '.join(measured)}")
+    return FitConfig(model=model, observed=observed, species=str(species))
+
+
+_LIVE_KEYS = {
+    # key: (type, default) -- the [live] table; meanings in LiveConfig
+    "quiet_period_s": (float, 2.0), "poll": (bool, False), "poll_interval_s": (float, 1.0),
+    "recursive": (bool, False), "exclude": (list, []), "target_conversion": (float, None),
+    "idle_minutes": (float, None), "max_duration_s": (float, None), "refresh_s": (float, 5.0),
+}
+
+
+def _live_section(raw: Mapping) -> LiveConfig:
+    _check_keys(raw, _LIVE_KEYS, "live")
+    values = {}
+    for key, (kind, default) in _LIVE_KEYS.items():
+        value = raw.get(key, default)
+        if value is not None:
+            if kind is float:
+                value = _number(value, f"live.{key}", 0)
+            elif kind is bool:
+                value = _bool(value, f"live.{key}")
+            elif not (isinstance(value, list) and all(isinstance(v, str) for v in value)):
+                raise ConfigError(f"live.{key}", "expected a list of glob patterns")
+            else:
+                value = tuple(value)
+        values[key] = value
+    target = values["target_conversion"]
+    if target is not None and not 0.0 < target < 1.0:
+        raise ConfigError("live.target_conversion", "must be a fraction between 0 and 1")
+    return LiveConfig(**values)
+
+
+def _unnamed(raw: Mapping, signals, quantify: QuantifyConfig) -> tuple[str, ...]:
+    """Keys still to set before a rate can be fitted (module doc); empty when ready."""
+    keys = []
+    fit = raw.get("fit") or {}
+    if quantify.reactant is None and not fit.get("species") and not fit.get("mechanism"):
+        keys.append("quantify.reactant (or fit.species)")
+    explicit = (raw.get("quantify") or {}).get("mode")
+    if not any(s.is_standard for s in signals) and explicit not in ("relative", "initial"):
+        keys.append("a signal's standard = true with concentration_mol_per_l "
+                    "(or quantify.mode = \"relative\" / \"initial\")")
+    return tuple(keys)
+
+
+_OTHER_SECTIONS = {"processing"}
+_OWN_SECTIONS = {"run", "time", "integration", "quantify", "alignment", "signals", "fit", "live"}
 
 
 def run_config_from_dict(raw: Mapping[str, Any], path: str | Path | None = None) -> RunConfig:
@@ -484,24 +689,27 @@ def run_config_from_dict(raw: Mapping[str, Any], path: str | Path | None = None)
     if not folder.is_absolute():
         folder = base / folder
     signals = signals_from_list(raw.get("signals"))
-    sections = {name: value for name, value in raw.items() if name not in _OWN_SECTIONS}
-    unknown = sorted(set(sections) - _OTHER_SECTIONS)
+    sections = {name: value for name, value in raw.items() if name not in _OWN_SECTIONS - {"fit", "live"}}
+    unknown = sorted(set(sections) - _OTHER_SECTIONS - {"fit", "live"})
     if unknown:
         raise ConfigError(unknown[0], "unknown section or key at the top level",
                           hint="known: " + ", ".join(sorted(_OWN_SECTIONS | _OTHER_SECTIONS)))
-    if "processing" in sections:
-        from kinetics.processing import Pipeline
+    from kinetics.processing import Pipeline
 
-        Pipeline.from_config(_table(sections["processing"], "processing"))  # validate now
+    pipeline = Pipeline.from_config(_table(sections.get("processing"), "processing"))
+    quantify = _quantify_section(_table(raw.get("quantify"), "quantify"), signals)
     return RunConfig(
         path=None if path is None else Path(path), folder=folder,
         pattern=_string(run.get("pattern", "*.jdx"), "run.pattern"),
         order=_choice(run.get("order", "name"), "run.order", ORDERS),
         time=_time_section(_table(raw.get("time"), "time")),
         integration=_integration_section(_table(raw.get("integration"), "integration")),
-        quantify=_quantify_section(_table(raw.get("quantify"), "quantify"), signals),
+        quantify=quantify,
         alignment=_alignment_section(_table(raw.get("alignment"), "alignment")),
         signals=signals, sections=MappingProxyType(dict(sections)),
+        fit=_fit_section(_table(raw.get("fit"), "fit"), signals, quantify),
+        live=_live_section(_table(raw.get("live"), "live")),
+        pipeline=pipeline, unnamed=_unnamed(raw, signals, quantify),
     )
 
 
@@ -518,6 +726,176 @@ def load_run_config(path: str | Path) -> RunConfig:
         raise ConfigError("<syntax>", f"not valid TOML: {error}", source=path) from error
     try:
         return run_config_from_dict(raw, path)
+    except ConfigError as error:
+        if error.source is None:
+            raise ConfigError(error.key, error.problem, error.hint, source=path) from None
+        raise
+
+
+# ---------------------------------------------------------------- study configs
+#: seconds per unit of a study table's time column
+TIME_UNITS_S = {"s": 1.0, "min": 60.0, "h": 3600.0}
+_STUDY_KEYS = {"name", "model", "observed", "reference_temperature_kelvin", "t_ref_kelvin", "global_fit", "profile",
+               "interval_basis", "runs"}
+_STUDY_RUN_KEYS = {"label", "temperature_c", "temperature_kelvin", "table", "config", "folder", "time_column",
+                   "time_unit", "column", "sigma_column"}
+
+
+@dataclass(frozen=True)
+class StudyRunConfig:
+    """One ``[[study.runs]]`` table (keys and units in :mod:`kinetics.study`).
+
+    Attributes
+    ----------
+    key : str
+        ``study.runs[i]``, for error messages.
+    label : str
+    temperature_kelvin : float
+    temperature_warnings : tuple of str
+        E.g. a Celsius value that looks like kelvin.
+    table, config, folder : Path or None
+        A CSV series table, or a run config (applied to ``folder`` when given); resolved
+        against the study file's folder.
+    time_column, time_unit, column, sigma_column : str (sigma_column may be None)
+    """
+
+    key: str
+    label: str
+    temperature_kelvin: float
+    temperature_warnings: tuple[str, ...]
+    table: Path | None
+    config: Path | None
+    folder: Path | None
+    time_column: str
+    time_unit: str
+    column: str
+    sigma_column: str | None
+
+    @property
+    def time_factor_s(self) -> float:
+        return TIME_UNITS_S[self.time_unit]
+
+
+@dataclass(frozen=True)
+class StudyConfig:
+    """A validated temperature-study config (``[study]``; keys in :mod:`kinetics.study`)."""
+
+    path: Path
+    name: str
+    model: str
+    observed: str
+    reference_temperature_kelvin: float
+    t_ref_kelvin: float | None
+    global_fit: bool
+    profile: bool
+    interval_basis: str
+    runs: tuple[StudyRunConfig, ...]
+
+
+def is_study_config(config: Mapping[str, Any]) -> bool:
+    """True when a parsed config is a temperature study (it has a top-level ``[study]`` table)."""
+    return isinstance(config, Mapping) and isinstance(config.get("study"), Mapping)
+
+
+def _study_run(run, index: int, base: Path) -> StudyRunConfig:
+    from kinetics import temperature as temp
+
+    key = f"study.runs[{index}]"
+    if not isinstance(run, Mapping):
+        raise ConfigError(key, "each run must be a table ([[study.runs]])")
+    unknown = set(run) - _STUDY_RUN_KEYS
+    if unknown:
+        raise ConfigError(f"{key}.{sorted(unknown)[0]}", "unknown key",
+                          f"known keys: {', '.join(sorted(_STUDY_RUN_KEYS))}")
+    has_c, has_k = "temperature_c" in run, "temperature_kelvin" in run
+    if has_c == has_k:
+        raise ConfigError(key, "needs exactly one of temperature_c (°C) and temperature_kelvin (K)")
+    name = "temperature_c" if has_c else "temperature_kelvin"
+    value = run[name]
+    if not isinstance(value, (int, float)) or isinstance(value, bool):
+        raise ConfigError(f"{key}.{name}", f"{value!r} is not a number")
+    kelvin, warnings = temp.to_kelvin([value], "c" if has_c else "k", [key])
+    if "column" not in run:
+        raise ConfigError(f"{key}.column", "missing: which concentration column (mol/L) to fit")
+    time_unit = run.get("time_unit", "s")
+    if time_unit not in TIME_UNITS_S:
+        raise ConfigError(f"{key}.time_unit", f"unknown unit {time_unit!r}", "use s, min or h")
+    if "folder" in run and "config" not in run:
+        raise ConfigError(f"{key}.folder", "a folder goes with 'config' (the run config applied to it)")
+    if ("table" in run) == ("config" in run):
+        raise ConfigError(key, "needs exactly one of 'table' (a CSV series table) and 'config' (a run config)")
+    folder = None
+    if "folder" in run:
+        folder = base / str(run["folder"])
+        if not folder.is_dir():
+            raise ConfigError(f"{key}.folder", f"folder {folder} does not exist")
+    return StudyRunConfig(
+        key=key, label=str(run.get("label", f"run {index + 1}")), temperature_kelvin=float(kelvin[0]),
+        temperature_warnings=tuple(warnings),
+        table=base / str(run["table"]) if "table" in run else None,
+        config=base / str(run["config"]) if "config" in run else None, folder=folder,
+        time_column=str(run.get("time_column", "time_s")), time_unit=time_unit, column=str(run["column"]),
+        sigma_column=None if run.get("sigma_column") is None else str(run["sigma_column"]))
+
+
+def study_config_from_dict(raw: Mapping[str, Any], path: str | Path) -> StudyConfig:
+    """Validate a parsed study TOML document (paths resolve against ``path``'s folder)."""
+    from kinetics import temperature as temp
+
+    path = Path(path)
+    if not is_study_config(raw):
+        raise ConfigError("study", "missing the top-level [study] table", "a study config starts with [study]")
+    study = raw["study"]
+    unknown = set(study) - _STUDY_KEYS
+    if unknown:
+        raise ConfigError(f"study.{sorted(unknown)[0]}", "unknown key", f"known keys: {', '.join(sorted(_STUDY_KEYS))}")
+    model = study.get("model", "first")
+    observed = study.get("observed", "reactant")
+    basis = study.get("interval_basis", "scatter")
+    if basis not in ("scatter", "stated"):
+        raise ConfigError("study.interval_basis", f"{basis!r} is not 'scatter' or 'stated'")
+    if observed not in ("reactant", "product"):
+        raise ConfigError("study.observed", f"{observed!r} is not 'reactant' or 'product'")
+    if not isinstance(model, str):
+        raise ConfigError("study.model", f"{model!r} is not a rate-law name")
+    try:
+        temp.resolve_model(model, observed)
+    except ConfigError as error:
+        raise ConfigError(f"study.{error.key}", error.problem, error.hint) from None
+    runs = study.get("runs")
+    if not isinstance(runs, list) or len(runs) < 2:
+        raise ConfigError("study.runs", f"{0 if not isinstance(runs, list) else len(runs)} run(s) listed; "
+                          "a temperature study needs at least 2 ([[study.runs]] tables), 3 or more recommended")
+    records = tuple(_study_run(run, i, path.parent) for i, run in enumerate(runs))
+    labels = [r.label for r in records]
+    if len(set(labels)) != len(labels):
+        raise ConfigError("study.runs.label", "two runs share a label", "give every run its own label")
+    t_ref = study.get("t_ref_kelvin")
+    return StudyConfig(
+        path=path, name=str(study.get("name", path.stem)), model=model, observed=observed,
+        reference_temperature_kelvin=_number(study.get("reference_temperature_kelvin",
+                                                       temp.DEFAULT_REFERENCE_TEMPERATURE_KELVIN),
+                                             "study.reference_temperature_kelvin", 0, strict=True),
+        t_ref_kelvin=None if t_ref is None else _number(t_ref, "study.t_ref_kelvin", 0, strict=True),
+        global_fit=_bool(study.get("global_fit", True), "study.global_fit"),
+        profile=_bool(study.get("profile", True), "study.profile"),
+        interval_basis=basis, runs=records)
+
+
+def load_study_config(path: str | Path) -> StudyConfig:
+    """Read and validate a temperature-study TOML file (errors name the file)."""
+    from kinetics.errors import InputFileError
+
+    path = Path(path)
+    try:
+        with open(path, "rb") as handle:
+            raw = tomllib.load(handle)
+    except FileNotFoundError:
+        raise InputFileError(path, "study config not found") from None
+    except tomllib.TOMLDecodeError as error:
+        raise InputFileError(path, f"not valid TOML ({error})", line=getattr(error, "lineno", None)) from None
+    try:
+        return study_config_from_dict(raw, path)
     except ConfigError as error:
         if error.source is None:
             raise ConfigError(error.key, error.problem, error.hint, source=path) from None

@@ -23,6 +23,8 @@ import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
+from kinetics.atomic import write_atomic
+
 __all__ = [
     "SeriesStyle",
     "SERIES_STYLES",
@@ -428,8 +430,4 @@ def png_bytes(figure: Figure, dpi: int = 130) -> bytes:
 
 def save_png(figure: Figure, path: str | Path, dpi: int = 130) -> Path:
     """Write the figure as a PNG file atomically (temporary file, then rename)."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    from kinetics.report import write_atomic  # report imports plots, so import late
-
     return write_atomic(path, png_bytes(figure, dpi=dpi))

@@ -28,10 +28,8 @@ import html
 import importlib.metadata
 import io
 import logging
-import os
 import platform
 import re
-import tempfile
 import textwrap
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
@@ -44,6 +42,7 @@ from matplotlib.backends.backend_pdf import PdfPages
 from matplotlib.figure import Figure
 
 from kinetics import plots
+from kinetics.atomic import write_atomic
 from kinetics.jsonio import dumps
 from kinetics.plots import png_bytes
 
@@ -169,26 +168,6 @@ class ReportFiles:
 
 
 # ---------------------------------------------------------------- small helpers
-def write_atomic(path: str | Path, data: bytes | str) -> Path:
-    """Write ``data`` to ``path`` through a temporary file in the same folder and rename."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    if isinstance(data, str):
-        data = data.encode("utf-8")
-    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(handle, "wb") as stream:
-            stream.write(data)
-            stream.flush()
-            os.fsync(stream.fileno())
-        os.chmod(temporary, 0o644)  # mkstemp makes 0600; reports are meant to be shared
-        os.replace(temporary, path)
-    except BaseException:
-        Path(temporary).unlink(missing_ok=True)
-        raise
-    return path
-
-
 def package_versions(names: Sequence[str] = _PACKAGES) -> dict[str, str]:
     """Installed versions (``importlib.metadata``) of the packages results depend on."""
     versions = {"python": platform.python_version()}

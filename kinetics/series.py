@@ -228,6 +228,9 @@ def _seconds(value: float):
 
 # ---------------------------------------------------------------- one file
 def _pipeline(config: RunConfig):
+    """The run's processing pipeline, built once when the config was loaded."""
+    if config.pipeline is not None:
+        return config.pipeline
     from kinetics.processing import Pipeline
 
     return Pipeline.from_config(dict(config.processing))
@@ -249,18 +252,22 @@ def _noise(spectrum: Spectrum, config: RunConfig) -> sg.NoiseEstimate:
                              detrend_order=order)
 
 
-def _fit_groups(config: RunConfig) -> dict[str, list[sg.SignalDefinition]]:
-    groups: dict[str, list[sg.SignalDefinition]] = {}
-    for sig in config.signals:
-        if sig.method == "fit":
-            groups.setdefault(sig.fit_group, []).append(sig)
-    return groups
+def _fit_groups(config: RunConfig) -> dict[str, tuple[sg.SignalDefinition, ...]]:
+    return config.fit_groups
 
 
 def make_reference(path: str | Path, config: RunConfig) -> Reference:
     """Process the first file of a run and record what later files are compared with."""
     _, processed = _read_processed(path, config)
-    spectrum = processed.spectrum
+    return reference_from_spectrum(processed.spectrum, path, config)
+
+
+def reference_from_spectrum(spectrum: Spectrum, path: str | Path, config: RunConfig) -> Reference:
+    """The :class:`Reference` of a run from its first processed spectrum.
+
+    The signal windows are checked against the spectrum's range here, once per run (every
+    later spectrum of the run covers the same range after alignment).
+    """
     sg.validate_signals(config.signals, spectrum.ppm_range)
     noise = _noise(spectrum, config)
     centroids = {}
@@ -337,17 +344,32 @@ def _measure_group(spectrum, members, reference: Reference, config: RunConfig):
     return results, FitWindow(members[0].fit_group, ppm.copy(), values.copy())
 
 
+def _pending_group(spectrum, members, reference: Reference):
+    """A fit group's window data only: the series-wide fit gives the areas (NaN until then)."""
+    window = sg.fit_window(members)
+    ppm, values = sg.window_data(spectrum, window, reference.fit_points.get(members[0].fit_group))
+    results = [SignalResult(s.name, s.species, "fit", float("nan"), float("nan"), 0.0, s.window_ppm,
+                            float("nan"), ("global_fit_pending",)) for s in members]
+    return results, FitWindow(members[0].fit_group, ppm.copy(), values.copy())
+
+
 def measure_spectrum(spectrum: Spectrum, config: RunConfig, reference: Reference) -> tuple:
-    """Signals of one processed, aligned spectrum: (noise, signal results, fit windows)."""
-    sg.validate_signals(config.signals, spectrum.ppm_range)
+    """Signals of one processed, aligned spectrum: (noise, signal results, fit windows).
+
+    With ``integration.global_fit`` the fit groups are not deconvolved here: the
+    series-wide fit (:func:`table_from_measurements`) gives every spectrum's areas, so a
+    per-spectrum fit would be overwritten; only the window data are kept.
+    """
     noise = _noise(spectrum, config)
     results = {}
     for sig in config.signals:
         if sig.method == "integral":
             results[sig.name] = _measure_integral(spectrum, sig, noise, reference, config)
     windows = []
+    measure_group = _pending_group if config.integration.global_fit else (
+        lambda spectrum, members, reference: _measure_group(spectrum, members, reference, config))
     for members in _fit_groups(config).values():
-        group_results, data = _measure_group(spectrum, members, reference, config)
+        group_results, data = measure_group(spectrum, members, reference)
         windows.append(data)
         results.update({r.name: r for r in group_results})
     ordered = tuple(results[s.name] for s in config.signals)
@@ -365,9 +387,18 @@ def measure_file(path: str | Path, config: RunConfig, reference: Reference | Non
         From :func:`make_reference` on the run's first file; when None this file is
         its own reference (it is the first file).
     """
+    return measure_first(path, config)[1] if reference is None else _measure(path, config, reference)
+
+
+def measure_first(path: str | Path, config: RunConfig) -> tuple[Reference, FileMeasurement]:
+    """The run's first file: its :class:`Reference` and its measurement, reading it once."""
     record, processed = _read_processed(path, config)
-    if reference is None:
-        reference = make_reference(path, config)
+    reference = reference_from_spectrum(processed.spectrum, path, config)
+    return reference, _measure(path, config, reference, (record, processed))
+
+
+def _measure(path, config: RunConfig, reference: Reference, read=None) -> FileMeasurement:
+    record, processed = read if read is not None else _read_processed(path, config)
     spectrum, shift = _align(processed.spectrum, reference, config)
     noise, results, windows = measure_spectrum(spectrum, config, reference)
     start, mid, elapsed, duration = acquisition_time(path, record, config)
@@ -398,23 +429,62 @@ def time_axis(measurements: Sequence[FileMeasurement], config: RunConfig) -> np.
     return np.array([(m.mid_utc - origin).total_seconds() + offset for m in measurements])
 
 
-def _apply_global_fits(measurements, config: RunConfig, integral, sigma, shift, flags, notes) -> None:
+def _warm_components(members, previous) -> list:
+    """Components started at a previous global fit's centres, widths and J (live turns).
+
+    Each centre keeps inside the limits of a fit from scratch (its window centre plus or
+    minus the tolerance), so a warm start only moves the start, never widens the search.
+    """
+    components = []
+    for comp in sg.components_for(members):
+        if previous is None or comp.name not in previous.center_ppm:
+            components.append(comp)
+            continue
+        centre = float(previous.center_ppm[comp.name][0])
+        room = comp.tolerance_ppm - abs(centre - comp.center_ppm)
+        if not (np.isfinite(centre) and room > 0):
+            components.append(comp)
+            continue
+        shape = comp.lineshape
+        width = float(previous.width_hz.get(comp.name, (shape.width_hz,))[0])
+        coupling = float(previous.coupling_hz.get(comp.name, (shape.coupling_hz,))[0])
+        gauss = float(previous.gauss_width_hz.get(comp.name, (shape.gauss_width_hz,))[0])
+        shape = sg.LineShape(shape.n_lines, coupling if shape.n_lines > 1 else shape.coupling_hz,
+                             shape.profile, width, gauss if shape.profile == "voigt" else shape.gauss_width_hz)
+        components.append(sg.Component(comp.name, centre, shape, room))
+    return components
+
+
+def _apply_global_fits(measurements, config: RunConfig, integral, sigma, shift, flags, notes,
+                       start: Mapping | None = None) -> dict:
+    """Series-wide deconvolution of every fit group (in place); returns group -> result.
+
+    ``start`` (group -> a previous turn's DeconvolutionResult) warm-starts a live turn;
+    without it every group is fitted from scratch, as a batch run and a live run's final
+    pass do.
+    """
     names = [s.name for s in config.signals]
+    fits = {}
     for group, members in _fit_groups(config).items():
         data = [next(w for w in m.fit_windows if w.group == group) for m in measurements]
         n = min(w.values.size for w in data)
         ppm = np.array([w.ppm[:n] for w in data])
         values = np.array([w.values[:n] for w in data])
         shared_axis = np.allclose(ppm, ppm[0], rtol=0, atol=1e-12)
+        previous = None if start is None else start.get(group)
+        components = _warm_components(members, previous) if previous is not None else sg.components_for(members)
         try:
-            fit = sg.deconvolve(ppm[0] if shared_axis else ppm, values, sg.components_for(members),
+            fit = sg.deconvolve(ppm[0] if shared_axis else ppm, values, components,
                                 measurements[0].observe_mhz, config.integration.fit_baseline_order)
         except FitError as error:
             notes.append(f"global fit of {group} failed: {error}")
             for sig in members:
                 for row in range(len(measurements)):
+                    flags[names.index(sig.name)][row] = [
+                        f for f in flags[names.index(sig.name)][row] if f != "global_fit_pending"]
                     flags[names.index(sig.name)][row].append("global_fit_failed")
             continue
+        fits[group] = fit
         notes.append(fit.report())
         for k, sig in enumerate(members):
             col = names.index(sig.name)
@@ -422,8 +492,9 @@ def _apply_global_fits(measurements, config: RunConfig, integral, sigma, shift, 
             sigma[col] = fit.area_stderr[:, k]
             shift[col] = fit.center_ppm[sig.name][0] - sig.center_ppm
             for row in range(len(measurements)):
-                flags[col][row] = [f for f in flags[col][row] if f != "fit_failed"]
+                flags[col][row] = [f for f in flags[col][row] if f not in ("fit_failed", "global_fit_pending")]
                 flags[col][row].append("global_fit" if fit.success else "global_fit_failed")
+    return fits
 
 
 def _saturation(config: RunConfig, integral, sigma, warnings: list[str]) -> None:
@@ -497,6 +568,18 @@ def table_from_measurements(measurements: Sequence[FileMeasurement], config: Run
 
     Rows are ordered by ``run.order`` (file name or time) and indexed 0..m-1.
     ``df.attrs`` holds 'warnings', 'notes' (global-fit reports) and 'concentration_unit'.
+    Fit groups are deconvolved across the series from scratch (see :func:`series_table`).
+    """
+    return series_table(measurements, config)[0]
+
+
+def series_table(measurements: Sequence[FileMeasurement], config: RunConfig,
+                 start: Mapping | None = None) -> tuple[pd.DataFrame, dict]:
+    """:func:`table_from_measurements` plus the global fits (group -> DeconvolutionResult).
+
+    ``start`` warm-starts the global deconvolution from a previous table's fits (a live
+    turn); None fits from scratch (a batch run, a live run's final pass).  With
+    ``integration.global_fit`` off, the per-spectrum deconvolutions stand.
     """
     if not measurements:
         raise FitError("no measurements to tabulate")
@@ -506,15 +589,20 @@ def table_from_measurements(measurements: Sequence[FileMeasurement], config: Run
     ms = [measurements[i] for i in order]
     times = times[order]
     k, m = len(config.signals), len(ms)
-    integral = np.array([[x.signal(s.name).integral for x in ms] for s in config.signals], float).reshape(k, m)
-    sigma = np.array([[x.signal(s.name).sigma for x in ms] for s in config.signals], float).reshape(k, m)
-    shift = np.array([[x.signal(s.name).shift_ppm for x in ms] for s in config.signals], float).reshape(k, m)
-    flags = [[list(x.signal(s.name).flags) for x in ms] for s in config.signals]
-    loss = np.array([[x.signal(s.name).truncation_loss for x in ms] for s in config.signals], float).reshape(k, m)
+    names = tuple(s.name for s in config.signals)
+    # measure_spectrum keeps the config's signal order: look a signal up only when not
+    rows = [x.signals if tuple(r.name for r in x.signals) == names else tuple(x.signal(n) for n in names)
+            for x in ms]
+    integral = np.array([[r.integral for r in row] for row in rows], float).reshape(m, k).T.copy()
+    sigma = np.array([[r.sigma for r in row] for row in rows], float).reshape(m, k).T.copy()
+    shift = np.array([[r.shift_ppm for r in row] for row in rows], float).reshape(m, k).T.copy()
+    flags = [[list(row[col].flags) for row in rows] for col in range(k)]
+    loss = np.array([[r.truncation_loss for r in row] for row in rows], float).reshape(m, k).T.copy()
     notes: list[str] = []
     warnings: list[str] = []
-    if config.integration.global_fit and m >= 2 and _fit_groups(config):
-        _apply_global_fits(ms, config, integral, sigma, shift, flags, notes)
+    fits: dict = {}
+    if config.integration.global_fit and _fit_groups(config):
+        fits = _apply_global_fits(ms, config, integral, sigma, shift, flags, notes, start)
     _saturation(config, integral, sigma, warnings)
     conc, csig, unit = _concentrations(config, integral, sigma)
 
@@ -540,7 +628,7 @@ def table_from_measurements(measurements: Sequence[FileMeasurement], config: Run
     df.attrs["warnings"] = warnings
     df.attrs["notes"] = notes
     df.attrs["concentration_unit"] = unit
-    return df
+    return df, fits
 
 
 def _species_table(config, conc, csig, unit, table):
@@ -594,11 +682,28 @@ class SeriesRun:
 
 
 def run_series(config: RunConfig) -> SeriesRun:
-    """Batch path: every file of the folder through :func:`measure_file`, then the table."""
-    files = list_files(config)
-    reference = make_reference(files[0], config)
-    measurements = tuple(measure_file(path, config, reference) for path in files)
-    return SeriesRun(table_from_measurements(measurements, config), measurements, reference, config)
+    """Batch path without output files: the folder through the run engine, in memory.
+
+    The same engine as ``kinetics run`` (:func:`kinetics.run.engine.batch_run`), with an
+    in-memory ledger: the same reference spectrum, the same table.  A file that cannot be
+    measured is quarantined (left out of the table) as in any run.
+    """
+    from kinetics.run.engine import RunState, plan_from_config, ready_files
+
+    list_files(config)  # a clear error for a missing folder or no matching file
+    plan = plan_from_config(config, require_named=False)
+    state = RunState(plan, None)
+    try:
+        state.take(ready_files(plan.spec))
+        table = state.source.table(final=True)
+        measured = state.source.measurements()
+    finally:
+        state.close()
+    if not measured:
+        raise FitError("no file of the run could be measured")
+    by_file = {m.file: m for m in measured}
+    ordered = tuple(by_file[name] for name in table["file"])
+    return SeriesRun(table, ordered, plan.measure.reference, config)
 
 
 def run_config_to_table(path: str | Path) -> pd.DataFrame:

@@ -1,8 +1,8 @@
 """The SQLite ledger of one run: every file seen, its hash, its measurements, its errors.
 
-The ledger is the source of truth of a run.  A live run (``watchers.live``) and a batch
-run over the same folder write the same rows, because both hand each file to
-:meth:`Ledger.ingest` in the same order.  One database per run, in WAL mode (readers —
+The ledger is the source of truth of a run.  Every run of the engine
+(:mod:`kinetics.run`) has one: a live run and a batch run over the same folder write the
+same rows, because both hand each file to :meth:`Ledger.ingest` in the same order.  One database per run, in WAL mode (readers —
 the HTML page, a second terminal — never block the writer).
 
 Tables
@@ -44,7 +44,7 @@ import hashlib
 import json
 import logging
 import sqlite3
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Mapping
@@ -164,12 +164,17 @@ class FileMeasurement:
     signals : tuple of SignalRow
     record : Mapping or None
         The measurer's whole per-file record as JSON-ready values (kept in
-        ``files.record_json``; NaN allowed), for rebuilding the series table.
+        ``files.record_json``; NaN allowed), from which a restarted run rebuilds its
+        in-memory state.
+    value : object or None
+        The measurer's in-memory result (never stored): what the run engine keeps so a
+        live turn never reads the ledger back.
     """
 
     acquired_utc: datetime | None
     signals: tuple[SignalRow, ...]
     record: Mapping[str, Any] | None = None
+    value: Any = field(default=None, compare=False, repr=False)
 
 
 @dataclass(frozen=True)

@@ -1,8 +1,9 @@
 """Temperature studies from a TOML config: per-run fits, Arrhenius/Eyring, global fit, files.
 
 A study config has a top-level ``[study]`` table (that is how :func:`is_study_config`
-tells it from a single-run config) and one ``[[study.runs]]`` table per run.  Every key,
-its unit and its default:
+tells it from a single-run config) and one ``[[study.runs]]`` table per run.  It is
+validated by :func:`kinetics.config.load_study_config` into a frozen
+:class:`~kinetics.config.StudyConfig`.  Every key, its unit and its default:
 
 ``[study]``
     ``name`` (str, default: the config file name without extension) — title of plots/report.
@@ -24,8 +25,9 @@ its unit and its default:
     ``label`` (str, default ``"run N"``).
     ``temperature_c`` (°C) or ``temperature_kelvin`` (K) — exactly one.
     ``table`` (path, relative to the config file) — a CSV series table with a time column
-    and concentration column(s); or ``config`` (path) — a single-run config, turned into a
-    table by ``kinetics.series.run_config_to_table``.  Exactly one of the two.
+    and concentration column(s); or ``config`` (path) — a single-run config, taken through
+    the run engine (:func:`kinetics.run.engine.batch_run`; its ledger and outputs go to
+    ``runs/<label>/`` in the output folder).  Exactly one of the two.
     ``folder`` (path, with ``config`` only) — run that config on this folder instead of its
     own ``[run] folder``, so one run config serves every temperature.
     ``time_column`` (str, default ``"time_s"``) and ``time_unit`` (``"s"``, ``"min"`` or
@@ -40,31 +42,21 @@ Outputs written to the output folder: ``runs.csv`` (per-run fits), ``arrhenius.c
 
 from __future__ import annotations
 
-import dataclasses
 import logging
-import tomllib
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Mapping
+from typing import Any
 
 import numpy as np
 
 from kinetics import temperature as temp
+from kinetics.config import StudyConfig, StudyRunConfig, is_study_config, load_study_config  # noqa: F401
 from kinetics.errors import ConfigError, InputFileError, KineticsError
 from kinetics.jsonio import dumps
 
 log = logging.getLogger(__name__)
 
-_STUDY_KEYS = {"name", "model", "observed", "reference_temperature_kelvin", "t_ref_kelvin", "global_fit", "profile",
-               "interval_basis", "runs"}
-_RUN_KEYS = {"label", "temperature_c", "temperature_kelvin", "table", "config", "folder", "time_column", "time_unit",
-             "column", "sigma_column"}
-_TIME_UNITS_S = {"s": 1.0, "min": 60.0, "h": 3600.0}
-
-
-def is_study_config(config: Mapping[str, Any]) -> bool:
-    """True when a parsed config is a temperature study (it has a top-level ``[study]`` table)."""
-    return isinstance(config, Mapping) and isinstance(config.get("study"), Mapping)
+__all__ = ["StudyResult", "is_study_config", "load_study_config", "run_from_table", "run_study", "study_from_runs"]
 
 
 @dataclass(frozen=True)
@@ -134,63 +126,20 @@ class StudyResult:
 
 
 # ---------------------------------------------------------------- config reading
-def load_study_config(config_path: str | Path) -> dict[str, Any]:
-    """Parse a study TOML file; errors name the file (and line, for syntax errors)."""
-    path = Path(config_path)
-    try:
-        with open(path, "rb") as handle:
-            config = tomllib.load(handle)
-    except FileNotFoundError:
-        raise InputFileError(path, "study config not found") from None
-    except tomllib.TOMLDecodeError as error:
-        line = getattr(error, "lineno", None)
-        raise InputFileError(path, f"not valid TOML ({error})", line=line) from None
-    if not is_study_config(config):
-        raise ConfigError("study", "missing the top-level [study] table", "a study config starts with [study]", source=path)
-    return config
-
-
-def _run_temperature(run: Mapping, key: str, source: Path) -> tuple[float, list[str]]:
-    has_c, has_k = "temperature_c" in run, "temperature_kelvin" in run
-    if has_c == has_k:
-        raise ConfigError(key, "needs exactly one of temperature_c (°C) and temperature_kelvin (K)", source=source)
-    name = "temperature_c" if has_c else "temperature_kelvin"
-    value = run[name]
-    if not isinstance(value, (int, float)) or isinstance(value, bool):
-        raise ConfigError(f"{key}.{name}", f"{value!r} is not a number", source=source)
-    kelvin, warnings = temp.to_kelvin([value], "c" if has_c else "k", [key])
-    return float(kelvin[0]), warnings
-
-
-def _read_series_table(run: Mapping, key: str, base: Path, source: Path):
-    if "folder" in run and "config" not in run:
-        raise ConfigError(f"{key}.folder", "a folder goes with 'config' (the run config applied to it)",
-                          source=source)
-    if ("table" in run) == ("config" in run):
-        raise ConfigError(key, "needs exactly one of 'table' (a CSV series table) and 'config' (a run config)",
-                          source=source)
-    if "config" in run:
-        try:
-            from kinetics.series import run_config_to_table
-        except ImportError:
-            raise ConfigError(f"{key}.config", "run configs need kinetics.series.run_config_to_table, "
-                              "which this installation does not provide yet",
-                              "export the run as a CSV series table and give it as 'table'", source=source) from None
-        config_path = base / run["config"]
-        if "folder" not in run:
-            return run_config_to_table(config_path), config_path
-        # one run config for every temperature: the study names each run's folder
+def _read_series_table(run: StudyRunConfig, runs_dir: Path | None = None):
+    """A run's series table: the CSV named, or its run config through the run engine."""
+    if run.config is not None:
+        # a run config goes through the run engine, as `kinetics run` would take it, with
+        # its own ledger under the study's output folder
         from kinetics.config import load_run_config
-        from kinetics.series import run_series
+        from kinetics.run.engine import batch_run, plan_from_config
 
-        template = load_run_config(config_path)
-        folder = base / str(run["folder"])
-        if not folder.is_dir():
-            raise ConfigError(f"{key}.folder", f"folder {folder} does not exist", source=source)
-        return run_series(dataclasses.replace(template, folder=folder)).table, config_path
-    path = base / run["table"]
+        plan = plan_from_config(load_run_config(run.config), folder=run.folder, require_named=False)
+        summary = batch_run(plan, (runs_dir or run.config.parent) / _slug(run.label))
+        return summary.table, run.config
+    path = run.table
     if not path.exists():
-        raise InputFileError(path, "series table not found", hint=f"named by {key}.table in {source}")
+        raise InputFileError(path, "series table not found", hint=f"named by {run.key}.table")
     from kinetics.rates.table import read_rows
 
     header, rows, lines, header_line = read_rows(path)
@@ -222,7 +171,7 @@ def _column(frame, name: str, path: Path, key: str) -> np.ndarray:
     if name not in frame:
         raise InputFileError(path, f"no column '{name}' (asked for by {key})", line=getattr(frame, "header_line", 1),
                              hint=f"columns are: {', '.join(map(str, frame.columns))}")
-    if not isinstance(frame, _SeriesTable):  # a DataFrame from kinetics.series.run_config_to_table
+    if not isinstance(frame, _SeriesTable):  # a DataFrame from the run engine
         import pandas as pd
 
         values = pd.to_numeric(frame[name], errors="coerce").to_numpy(float)
@@ -245,25 +194,23 @@ def _column(frame, name: str, path: Path, key: str) -> np.ndarray:
     return np.array(values, dtype=float)
 
 
-def _load_run(run: Mapping, index: int, base: Path, source: Path) -> tuple[temp.KineticRun, list[str]]:
-    key = f"study.runs[{index}]"
-    if not isinstance(run, Mapping):
-        raise ConfigError(key, "each run must be a table ([[study.runs]])", source=source)
-    unknown = set(run) - _RUN_KEYS
-    if unknown:
-        raise ConfigError(f"{key}.{sorted(unknown)[0]}", "unknown key", f"known keys: {', '.join(sorted(_RUN_KEYS))}",
-                          source=source)
-    label = str(run.get("label", f"run {index + 1}"))
-    kelvin, warnings = _run_temperature(run, key, source)
-    if "column" not in run:
-        raise ConfigError(f"{key}.column", "missing: which concentration column (mol/L) to fit", source=source)
-    time_unit = run.get("time_unit", "s")
-    if time_unit not in _TIME_UNITS_S:
-        raise ConfigError(f"{key}.time_unit", f"unknown unit {time_unit!r}", "use s, min or h", source=source)
-    frame, path = _read_series_table(run, key, base, source)
-    time_s = _column(frame, run.get("time_column", "time_s"), path, f"{key}.time_column") * _TIME_UNITS_S[time_unit]
-    conc = _column(frame, run["column"], path, f"{key}.column")
-    sigma = _column(frame, run["sigma_column"], path, f"{key}.sigma_column") if "sigma_column" in run else None
+def _slug(text: str) -> str:
+    return "".join(c if c.isalnum() else "_" for c in text).strip("_").lower() or "run"
+
+
+def _load_run(run: StudyRunConfig, runs_dir: Path | None = None) -> tuple[temp.KineticRun, list[str]]:
+    frame, path = _read_series_table(run, runs_dir)
+    return run_from_table(run, frame, path)
+
+
+def run_from_table(run: StudyRunConfig, frame, path: Path) -> tuple[temp.KineticRun, list[str]]:
+    """A study run from its series table (a DataFrame, or the cells of a CSV file at
+    ``path``): the columns the run names, as a ``temperature.KineticRun``, plus warnings."""
+    key, label = run.key, run.label
+    warnings = list(run.temperature_warnings)
+    time_s = _column(frame, run.time_column, path, f"{key}.time_column") * run.time_factor_s
+    conc = _column(frame, run.column, path, f"{key}.column")
+    sigma = _column(frame, run.sigma_column, path, f"{key}.sigma_column") if run.sigma_column else None
     missing = ~np.isfinite(time_s) | ~np.isfinite(conc)
     if sigma is not None:
         missing |= ~np.isfinite(sigma)
@@ -271,42 +218,7 @@ def _load_run(run: Mapping, index: int, base: Path, source: Path) -> tuple[temp.
         warnings.append(f"{label}: {int(missing.sum())} row(s) of {path.name} with empty cells skipped")
     if np.any(time_s[np.isfinite(time_s)] < 0):
         warnings.append(f"{label}: negative times in {path.name}; times are seconds from reaction start")
-    return temp.KineticRun(label, kelvin, time_s, conc, sigma), warnings
-
-
-def _study_options(study: Mapping, source: Path) -> dict[str, Any]:
-    unknown = set(study) - _STUDY_KEYS
-    if unknown:
-        raise ConfigError(f"study.{sorted(unknown)[0]}", "unknown key", f"known keys: {', '.join(sorted(_STUDY_KEYS))}",
-                          source=source)
-    options = {
-        "name": str(study.get("name", source.stem)),
-        "model": study.get("model", "first"),
-        "observed": study.get("observed", "reactant"),
-        "reference_temperature_kelvin": float(study.get("reference_temperature_kelvin",
-                                                        temp.DEFAULT_REFERENCE_TEMPERATURE_KELVIN)),
-        "t_ref_kelvin": study.get("t_ref_kelvin"),
-        "global_fit": bool(study.get("global_fit", True)),
-        "profile": bool(study.get("profile", True)),
-        "interval_basis": study.get("interval_basis", "scatter"),
-    }
-    if options["interval_basis"] not in ("scatter", "stated"):
-        raise ConfigError("study.interval_basis", f"{options['interval_basis']!r} is not 'scatter' or 'stated'",
-                          source=source)
-    if options["observed"] not in ("reactant", "product"):
-        raise ConfigError("study.observed", f"{options['observed']!r} is not 'reactant' or 'product'", source=source)
-    if not isinstance(options["model"], str):
-        raise ConfigError("study.model", f"{options['model']!r} is not a rate-law name", source=source)
-    try:
-        temp.resolve_model(options["model"], options["observed"])
-    except ConfigError as error:
-        raise ConfigError(f"study.{error.key}", error.problem, error.hint, source=source) from None
-    runs = study.get("runs")
-    if not isinstance(runs, list) or len(runs) < 2:
-        raise ConfigError("study.runs", f"{0 if not isinstance(runs, list) else len(runs)} run(s) listed; "
-                          "a temperature study needs at least 2 ([[study.runs]] tables), 3 or more recommended",
-                          source=source)
-    return options
+    return temp.KineticRun(label, run.temperature_kelvin, time_s, conc, sigma), warnings
 
 
 # ---------------------------------------------------------------- running
@@ -327,21 +239,32 @@ def run_study(config_path: str | Path, out_dir: str | Path) -> StudyResult:
     ConfigError, InputFileError
         Bad config keys, unreadable tables, bad temperatures.
     """
-    source = Path(config_path)
-    config = load_study_config(source)
-    study = config["study"]
-    options = _study_options(study, source)
+    config = load_study_config(config_path)
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
-    base = source.parent
     runs, warnings = [], []
-    for i, run in enumerate(study["runs"]):
-        loaded, run_warnings = _load_run(run, i, base, source)
+    for run in config.runs:
+        loaded, run_warnings = _load_run(run, out / "runs")
         runs.append(loaded)
         warnings += run_warnings
-    labels = [r.label for r in runs]
-    if len(set(labels)) != len(labels):
-        raise ConfigError("study.runs.label", "two runs share a label", "give every run its own label", source=source)
+    return study_from_runs(config, runs, out, warnings)
+
+
+def study_from_runs(config: StudyConfig, runs: list, out_dir: str | Path, warnings=()) -> StudyResult:
+    """The study over runs already in memory (``temperature.KineticRun``): per-run fits,
+    Arrhenius, Eyring, the global fit; tables, JSON and plots written to ``out_dir``.
+
+    ``config`` gives the options (its ``runs`` are not read again: the demo passes the
+    runs it has just followed live).
+    """
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    warnings = list(warnings)
+    source = config.path
+    options = {"name": config.name, "model": config.model, "observed": config.observed,
+               "reference_temperature_kelvin": config.reference_temperature_kelvin,
+               "t_ref_kelvin": config.t_ref_kelvin, "global_fit": config.global_fit,
+               "profile": config.profile, "interval_basis": config.interval_basis}
     model = temp.resolve_model(options["model"], options["observed"])
     run_fits = [_fit_one(run, model) for run in runs]
     warnings += [f"{f.label}: {f.message}" for f in run_fits if not f.success]

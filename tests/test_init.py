@@ -11,6 +11,7 @@ config loads with the project's config loader.
 
 from __future__ import annotations
 
+import math
 import re
 from pathlib import Path
 from datetime import datetime, timezone
@@ -23,6 +24,7 @@ from kinetics.cli import main
 from kinetics.config import load_run_config
 from kinetics.errors import InputFileError
 from kinetics.init import draft_config, first_spectrum
+from kinetics.spectra.spectrum import Spectrum
 
 MHZ = 60.0
 J_HZ = 7.0
@@ -85,7 +87,12 @@ def test_spectra_folder_gives_true_windows_and_loadable_config(spectra_folder, t
     assert [s.window_ppm for s in config.signals] == [tuple(round(v, 3) for v in w.window_ppm) for w in draft.signals]
     assert config.processing["reference"] == {"ppm": 0.0, "window_ppm": 0.3}
     text = out.read_text()
-    assert re.search(r"# Probable solvent line, .*singlet at 4\.79\d ppm", text)
+    assert re.search(r"# Solvent line, left out of the signals .*(water|HDO)", text)
+    assert re.search(r"# s \(singlet\), lines at 4\.79\d ppm", text)
+    (high, low), = config.sections["processing"]["phase_exclude_ppm"]  # the solvent, out of phasing
+    assert low < 4.79 < high
+    (noise_low, noise_high), = config.integration.noise_region_ppm  # the noise clear of its tail
+    assert noise_low > high or noise_high < low
 
 
 def test_fid_folder_is_transformed_first(tmp_path):
@@ -192,20 +199,27 @@ def test_real_spectra_groups_and_proton_counts(tmp_path, name, groups, coupling_
     load_run_config(tmp_path / "real.toml")
 
 
-def test_without_the_mirror_rule_the_trans_alkene_dd_splits():
-    # The control for the test above: with the mirror-halves rule off, the default 8 Hz
-    # grouping cuts the =CH2 trans dd of butyl acrylate (6.25-6.40 ppm, README) in two, so
-    # the rule is what keeps it whole.
+def test_trans_alkene_dd_needs_the_large_coupling():
+    # The control for the test above: with couplings limited to the 12.8 Hz of an
+    # unexplained cluster (large_coupling_hz None), the =CH2 trans dd of butyl acrylate
+    # (6.25-6.40 ppm, tests/data/README.md; J ~ 17 Hz, 1.5 Hz measured from this file's
+    # line positions: 3805.6, 3804.1, 3788.2, 3786.7 Hz) cannot be one multiplet; with
+    # 18 Hz it is one dd with both couplings.
     from pathlib import Path
 
     from kinetics.init import propose_windows
     from kinetics.spectra import read
 
     spectrum = read(Path(__file__).parent / "data" / "butyl-acrylate.1h.dx")
-    for large_coupling_hz, expected in ((None, 2), (18.0, 1)):
+    for large_coupling_hz in (None, 18.0):
         *_, windows = propose_windows(spectrum, large_coupling_hz=large_coupling_hz)
         holders = [w for w in windows if any(6.25 <= p.shift_ppm <= 6.40 for p in w.peaks)]
-        assert len(holders) == expected, [w.window_ppm for w in holders]
+        if large_coupling_hz is None:
+            assert len(holders) > 1, [w.window_ppm for w in holders]
+        else:
+            assert len(holders) == 1 and holders[0].pattern.code == "dd"
+            assert holders[0].pattern.j_hz[0] == pytest.approx(17.4, abs=0.5)
+            assert holders[0].pattern.j_hz[1] == pytest.approx(1.5, abs=0.5)
 
 
 def _dq_lines(centre_ppm: float, j_large_hz: float, j_small_hz: float) -> np.ndarray:
@@ -277,3 +291,204 @@ def test_mis_phased_benchtop_spectra_are_rephased_before_peak_picking(tmp_path):
     assert any(lo < 6.20 < hi for lo, hi in signal_windows)  # the standard
     assert any(w.role == "solvent" and w.window_ppm[0] < 4.75 < w.window_ppm[1] for w in draft.windows)
     load_run_config(draft.config_path)  # the draft loads as written
+
+
+# ---------------------------------------------------------------- multiplet names, solvent, reference, edits
+def _edit(text: str, standard_mol_per_l: float, reactant: str, product: str) -> tuple[str, int]:
+    """The chemist's edits to a draft: the standard's concentration, reactant and product.
+    Returns the edited text and the number of lines changed."""
+    edited = text.replace("# concentration_mol_per_l = 0.05   # EDIT",
+                          f"concentration_mol_per_l = {standard_mol_per_l}   # EDIT", 1)
+    edited = re.sub(r"^# reactant = \"[^\"]*\"", f'reactant = "{reactant}"', edited, count=1, flags=re.M)
+    edited = re.sub(r"^# product = \"[^\"]*\"", f'product = "{product}"', edited, count=1, flags=re.M)
+    changed = sum(a != b for a, b in zip(text.splitlines(), edited.splitlines()))
+    return edited, changed
+
+
+def test_demo_draft_names_solvent_reference_multiplets_and_runs_after_three_edits(tmp_path, capsys):
+    # The demo scenario (demo_series/README.md, kinetics/demo.py): water at 4.75 ppm in an
+    # undeuterated solvent, the standard's 6-proton singlet at 6.20 ppm (0.0500 mol/L), the
+    # ester's O-CH2 triplet (4.05, J 6.8 Hz) and acetyl singlet (2.04), the alcohol's
+    # HO-CH2 triplet (3.58, J 6.6 Hz), the acid's acetyl singlet (2.09, 3 Hz from the
+    # ester's), the two CH3 triplets overlapping at 0.9 ppm; generator k(25 C) 1.5e-4 1/s.
+    from kinetics import demo
+
+    folder = Path(__file__).resolve().parent.parent / "demo_series" / demo.demo_runs()[0].folder
+    out = tmp_path / "demo.toml"
+    draft = draft_config(folder, out)
+    assert draft.last_source is not None and draft.last_source.name == "spectrum_0036.jdx"
+    (water,) = draft.solvents
+    assert abs(water.peaks[0].shift_ppm - 4.75) < 0.03 and "water" in water.label
+    reference = draft.reference
+    assert reference.reference_candidate and abs(reference.peaks[0].shift_ppm - 6.20) < 0.02
+    assert reference.pattern.code == "s" and 0.8 < reference.change < 1.25
+
+    def holder(shift):
+        (found,) = [w for w in draft.windows if any(abs(p.shift_ppm - shift) < 0.015 for p in w.peaks)]
+        return found
+
+    for shift, j_hz in ((4.05, 6.8), (3.58, 6.6)):
+        triplet = holder(shift)
+        assert triplet.pattern.code == "t" and triplet.pattern.j_hz[0] == pytest.approx(j_hz, abs=0.3)
+    ester_acetyl, acid_acetyl = holder(2.04), holder(2.09)
+    assert ester_acetyl is not acid_acetyl  # 3 Hz apart: two singlets, never one doublet
+    assert [len(w.peaks) for w in (ester_acetyl, acid_acetyl)] == [1, 1]
+    assert ester_acetyl.change < 0.3 and acid_acetyl.change == float("inf")
+    assert ester_acetyl.fit_group and ester_acetyl.fit_group == acid_acetyl.fit_group
+    assert holder(0.93).mixed  # two species' triplets overlap: left out of the draft
+    assert holder(4.05).species == ester_acetyl.species  # both fall alike: one placeholder species
+    config = load_run_config(out)
+    assert config.quantify.reactant is None and config.quantify.standard is None  # nothing guessed
+    assert not any(s.is_standard for s in config.signals)
+    edited, edits = _edit(draft.text, 0.05, ester_acetyl.species, holder(3.58).species)
+    assert edits == 3
+    (tmp_path / "edited.toml").write_text(edited)
+    import json
+
+    capsys.readouterr()
+    assert main(["run", str(tmp_path / "edited.toml"), "--out", str(tmp_path / "out"), "--json"]) == 0
+    summary = json.loads(capsys.readouterr().out)
+    k = summary["runs"][0]["k_per_s"]["value"]
+    assert k == pytest.approx(demo.K_REF_PER_S, rel=0.02)  # the generator's k at 25 C
+
+
+@pytest.mark.parametrize("name, expected", [
+    # Structures (tests/data/README.md): ethyl (E)-but-2-enoate CH3-CH=CH-CO-O-CH2-CH3,
+    # 500 MHz in CDCl3.  First-order names from the structure: O-CH2 a quartet and the
+    # ethyl CH3 a triplet (3J ~ 7 Hz); the crotonate CH3 a doublet of doublets (3J to the
+    # CH= ~ 7 Hz, 4J to =CH-CO ~ 1.7 Hz); both alkene protons doublets of quartets (trans
+    # 3J ~ 15.5 Hz; coupling ranges common practice, from memory).  Windows as in README.
+    ("ethyl-crotonate.1h.dx", [(4.00, 4.20, "q", (7.0,), 2), (1.13, 1.27, "t", (7.0,), 3),
+                               (1.74, 1.86, "dd", (6.9, 1.7), 3), (6.80, 7.02, "dq", (15.5, 6.9), 1),
+                               (5.66, 5.86, "dq", (15.5, 1.7), 1)]),
+    # butyl prop-2-enoate CH2=CH-CO-O-CH2-CH2-CH2-CH3, 600 MHz in CDCl3 with TMS: the three
+    # vinyl protons are each a dd (trans ~17, cis ~10, geminal ~1.5 Hz), O-CH2 and CH3
+    # triplets.
+    ("butyl-acrylate.1h.dx", [(6.25, 6.40, "dd", (17.4, 1.5), 1), (5.95, 6.12, "dd", (17.4, 10.4), 1),
+                              (5.68, 5.80, "dd", (10.4, 1.5), 1), (4.02, 4.16, "t", (6.7,), 2),
+                              (0.82, 0.94, "t", (7.4,), 3)]),
+])
+def test_real_spectra_multiplet_names_solvent_and_reference(tmp_path, name, expected):
+    import shutil
+
+    folder = tmp_path / "real"
+    folder.mkdir()
+    shutil.copy(Path(__file__).parent / "data" / name, folder / name)
+    draft = draft_config(folder, tmp_path / "real.toml")
+    for low, high, code, j_hz, protons in expected:
+        (window,) = [w for w in draft.signals if low <= w.line_centre_ppm <= high]
+        assert window.pattern.code == code, (low, high, window.pattern)
+        # J within 0.5 Hz (1.5 lines of digitisation on these files' 0.29-0.38 Hz points)
+        assert window.pattern.j_hz == pytest.approx(j_hz, abs=0.5), (low, high, window.pattern)
+        assert window.nuclei_guess == protons
+    # the CHCl3 residual (7.26 ppm in CDCl3, from memory; the file names its solvent) is a solvent line
+    (chcl3,) = draft.solvents
+    assert "CDCl3" in chcl3.label and abs(chcl3.peaks[0].shift_ppm - 7.26) < 0.08
+    config = load_run_config(tmp_path / "real.toml")
+    assert all(not (lo < 7.22 < hi) for lo, hi in (s.window_ppm for s in config.signals))
+    if name.startswith("butyl"):
+        assert draft.reference.role == "reference" and abs(draft.reference.peaks[0].shift_ppm) < 0.01  # TMS
+        assert config.processing["reference"]["ppm"] == 0.0
+
+
+# ---------------------------------------------------------------- an invented 60 MHz stress series
+def _stress_spectrum(reactant_mol_per_l: float, product_mol_per_l: float, rng, minutes: float) -> Spectrum:
+    """This test's own generator (not kinetics.simulate): Lorentzian lines on a 60 MHz
+    axis, first-order multiplets built here, Gaussian noise.
+
+    Reactant: ethyl group (O-CH2 quartet 4.10 ppm, CH3 triplet 1.25 ppm, J 7.1 Hz), acetyl
+    singlet 2.10 ppm and a vinyl dd at 6.90 ppm (J 15.6, 6.9 Hz); product: acetyl singlet
+    1.98 ppm (0.12 ppm from the reactant's) and a CH2 triplet at 3.60 ppm (J 6.5 Hz);
+    standard: 6-proton singlet at 6.20 ppm, 0.05 mol/L; water at 4.80 ppm, 45 times the
+    quartet's tallest line."""
+    mhz, width_hz = 60.0, 1.0
+    ppm = np.linspace(11.0, -1.0, 8192)
+    real = np.zeros_like(ppm)
+
+    def multiplet(centre_ppm, nuclei, couplings):
+        # first-order rule: each coupling (J, n partners) splits every line into n + 1 binomial lines
+        lines = [(0.0, float(nuclei))]
+        for j_hz, partners in couplings:
+            weights = [math.comb(partners, m) / 2 ** partners for m in range(partners + 1)]
+            lines = [(x + (m - partners / 2) * j_hz, a * w) for x, a in lines for m, w in enumerate(weights)]
+        for offset_hz, area in lines:
+            hw = 0.5 * width_hz / mhz
+            real[:] += area / (math.pi * hw) / (1 + ((ppm - centre_ppm - offset_hz / mhz) / hw) ** 2) / 1000
+
+    multiplet(4.10, 2 * reactant_mol_per_l, [(7.1, 3)])
+    multiplet(1.25, 3 * reactant_mol_per_l, [(7.1, 2)])
+    multiplet(2.10, 3 * reactant_mol_per_l, [])
+    multiplet(6.90, 1 * reactant_mol_per_l, [(15.6, 1), (6.9, 1)])
+    multiplet(1.98, 3 * product_mol_per_l, [])
+    multiplet(3.60, 2 * product_mol_per_l, [(6.5, 2)])
+    multiplet(6.20, 6 * 0.05, [])
+    quartet_top = 2 * 0.45 * 3 / 8 / (math.pi * 0.5 * width_hz / mhz) / 1000
+    multiplet(4.80, 45 * quartet_top * math.pi * 0.5 * width_hz / mhz * 1000, [])
+    real += rng.normal(0.0, 2e-3 * quartet_top, ppm.size)
+    start = datetime(2026, 3, 1, 9, 0, 0, tzinfo=timezone.utc)
+    from datetime import timedelta
+
+    return Spectrum(ppm=ppm, real=real, observe_mhz=mhz, acquired_utc=start + timedelta(minutes=minutes),
+                    duration_s=16.0)
+
+
+def quartet_nuclei(draft):
+    (quartet,) = [w for w in draft.windows if w.pattern.code == "q"]
+    return quartet.nuclei_guess
+
+
+def test_stress_series_water_close_singlets_and_dd(tmp_path):
+    from kinetics.spectra.jcampdx import write_spectrum
+
+    rng = np.random.default_rng(45)
+    folder = tmp_path / "stress_40C"
+    folder.mkdir()
+    k_per_min = 0.08
+    for number, minutes in enumerate((0.0, 10.0, 30.0), start=1):
+        reactant = 0.45 * math.exp(-k_per_min * minutes)
+        write_spectrum(folder / f"spectrum_{number:04d}.jdx",
+                       _stress_spectrum(reactant, 0.01 + 0.45 - reactant, rng, minutes))
+    out = tmp_path / "stress.toml"
+    draft = draft_config(folder, out)
+    (water,) = draft.solvents
+    assert abs(water.peaks[0].shift_ppm - 4.80) < 0.02 and re.search("water|HDO", water.label)
+    assert all(not (w.window_ppm[0] < 4.80 < w.window_ppm[1]) for w in draft.signals)  # not a signal
+
+    def holder(shift):
+        (found,) = [w for w in draft.windows if abs(w.line_centre_ppm - shift) < 0.02]
+        return found
+
+    reactant_s, product_s = holder(2.10), holder(1.98)  # 45:1 at the start, 7.2 Hz apart
+    assert reactant_s is not product_s and [w.pattern.code for w in (reactant_s, product_s)] == ["s", "s"]
+    assert [reactant_s.nuclei_guess, product_s.nuclei_guess, quartet_nuclei(draft)] == [3, 3, 2]
+    dd = holder(6.90)
+    assert dd.pattern.code == "dd" and dd.pattern.j_hz == pytest.approx((15.6, 6.9), abs=0.5)
+    quartet = holder(4.10)
+    assert quartet.pattern.code == "q" and quartet.pattern.j_hz[0] == pytest.approx(7.1, abs=0.5)
+    assert holder(1.25).pattern.code == "t" and holder(3.60).pattern.code == "t"
+    assert draft.reference.reference_candidate and abs(draft.reference.peaks[0].shift_ppm - 6.20) < 0.01
+    config = load_run_config(out)
+    (high, low), = config.sections["processing"]["phase_exclude_ppm"]
+    assert low < 4.80 < high
+    edited, edits = _edit(draft.text, 0.05, quartet.species, product_s.species)
+    assert edits <= 5
+    (tmp_path / "edited.toml").write_text(edited)
+    edited_config = load_run_config(tmp_path / "edited.toml")
+    assert edited_config.quantify.mode == "standard" and edited_config.quantify.reactant == quartet.species
+
+
+def test_file_names_cannot_inject_keys(tmp_path):
+    # issue 14 item 5: a file name with a newline must not add TOML keys to the draft
+    import shutil
+
+    source = _write(tmp_path / "plain", n=2)
+    folder = tmp_path / 'odd"dir\nmode = 1'
+    folder.mkdir()
+    for number, path in enumerate(sorted(source.glob("*.jdx"))):
+        shutil.copy(path, folder / f'x{number}\n[quantify]\nmode = "none"\n.jdx')
+    out = tmp_path / "odd.toml"
+    draft_config(folder, out)
+    config = load_run_config(out)
+    assert config.folder.resolve() == folder.resolve()
+    assert config.quantify.mode == "relative"  # the loader's default, not the injected "none"
+    assert all(not line.startswith("mode") for line in out.read_text().splitlines())

@@ -198,7 +198,7 @@ def test_dif_output_is_compressed_and_has_y_checks(tmp_path):
     assert max(len(line) for line in lines) <= 80  # JCAMP-DX line limit
     # Y-checks: decoded on its own, every data line starts with the value (and abscissa)
     # the previous line ended with.
-    from kinetics.spectra.jcampdx import _decode_asdf
+    from kinetics.spectra.asdf import decode_asdf as _decode_asdf
 
     data = lines[lines.index("##XYDATA= (X++(Y..Y))") + 1: -1]
     assert len(data) > 10 and any(char in "STUVWXYZs" for char in "".join(data))  # DUP used

@@ -22,7 +22,8 @@ sys.path.insert(0, str(Path(__file__).parent))
 import test_live_support as support  # noqa: E402
 
 from kinetics.store import Ledger  # noqa: E402
-from watchers.live import LiveOptions, _StopFlag, batch_run, run_live, target_reached  # noqa: E402
+from kinetics.run import batch_run  # noqa: E402
+from watchers.live import LiveOptions, _StopFlag, run_live, target_reached  # noqa: E402
 from watchers.replay import ReplayThread  # noqa: E402
 from watchers.views import LiveStatus, PageServer, render_html  # noqa: E402
 
@@ -231,7 +232,7 @@ def test_a_measurer_crash_quarantines_that_file_and_the_run_goes_on(tmp_path):
     # quarantine reason, never an exception that stops the live loop
     from kinetics.store import Ledger
     from watchers.folder import ReadyFile
-    from watchers.live import process_ready
+    from kinetics.run import process_ready
     import test_live_support as support
 
     folder = tmp_path / "in"

@@ -3,7 +3,7 @@
 An invented first-order reaction A -> B (k = 1.5e-3 1/s, truth set here) is simulated as
 a folder of JCAMP-DX spectra (kinetics.simulate), replayed into the watched folder by the
 real command (``kinetics watch CONFIG --replay SRC``, a separate process), and compared
-with :func:`watchers.live.batch_run` over the finished folder: same ledger rows, same fit.
+with :func:`kinetics.run.batch_run` over the finished folder: same ledger rows, same fit.
 """
 
 from __future__ import annotations
@@ -17,7 +17,7 @@ import numpy as np
 
 from kinetics import simulate
 from kinetics.store import Ledger
-from watchers.live import batch_run
+from kinetics.run import batch_run
 
 TRUE_K_PER_S = 1.5e-3
 
@@ -100,7 +100,7 @@ def test_unknown_or_bad_live_keys_name_the_key(tmp_path):
     import pytest
 
     from kinetics.errors import ConfigError
-    from watchers.live import build_from_config
+    from kinetics.run import plan_from_config
 
     (tmp_path / "in").mkdir()
     for extra, key in (("quiet_period = 2", "live.quiet_period"),
@@ -108,4 +108,4 @@ def test_unknown_or_bad_live_keys_name_the_key(tmp_path):
                        ("refresh_s = 'fast'", "live.refresh_s")):
         (tmp_path / "run.toml").write_text(CONFIG.format(folder="in") + extra + "\n")
         with pytest.raises(ConfigError, match=key.replace(".", r"\.")):
-            build_from_config(tmp_path / "run.toml")
+            plan_from_config(tmp_path / "run.toml")

@@ -3,7 +3,7 @@
 The live shell is tested apart from the science modules: here a tiny text format of
 invented spectra (two Gaussian lines whose areas follow a first-order reaction A -> B,
 truth set by the test) and a measurer that integrates two fixed windows; the refit is the
-project's own :class:`watchers.live.RatesRefitter` (first-order law of kinetics.rates).  Real files and real processes throughout: the watcher runs as
+project's own :class:`kinetics.run.RatesRefitter` (first-order law of kinetics.rates).  Real files and real processes throughout: the watcher runs as
 ``python tests/test_live_support.py watch ...`` so it can be killed with SIGKILL.
 
 File format (invented for these tests)::
@@ -124,13 +124,12 @@ def build_table(ledger) -> pd.DataFrame:
 
 def pipeline(folder: Path, target_conversion: float | None = None, quiet_period_s: float = 0.3,
              poll: bool = True):
-    from watchers.folder import WatchSpec
-    from watchers.live import Pipeline, RatesRefitter
+    from kinetics.run import RatesRefitter, RunPlan, WatchSpec
 
     spec = WatchSpec(Path(folder), include=("*.csv",), quiet_period_s=quiet_period_s, poll=poll,
                      poll_interval_s=0.05)
     refit = RatesRefitter("A", "first", "reactant", target_conversion)
-    return Pipeline(spec, measure, build_table, refit, ("A", "B"),
+    return RunPlan(spec, measure, build_table, refit, ("A", "B"),
                     config_text=f"test pipeline, windows {WINDOWS_PPM}",
                     target_conversion=target_conversion)
 
@@ -138,7 +137,8 @@ def pipeline(folder: Path, target_conversion: float | None = None, quiet_period_
 # ---------------------------------------------------------------- as a process
 def main(argv=None) -> int:
     from kinetics.errors import KineticsError
-    from watchers.live import LiveOptions, batch_run, run_live
+    from kinetics.run import batch_run
+    from watchers.live import LiveOptions, run_live
 
     parser = argparse.ArgumentParser()
     parser.add_argument("mode", choices=["watch", "batch"])

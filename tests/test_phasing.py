@@ -46,7 +46,7 @@ def phase_error_deg(result, spectrum, p0_deg, p1_deg, at_ppm=SIGNAL_PPM):
 
 def window_integrals(spectrum, end_points=8):
     """Sum of the real part over each window minus a straight baseline through the means of
-    its first and last ``end_points`` points (a local baseline, as signals.py integrates;
+    its first and last ``end_points`` points (a local baseline, as kinetics.signals integrates;
     without it the water line's dispersion tail, which a phase change rotates into the
     real part, would dominate the windows near it)."""
     values = []
@@ -188,3 +188,38 @@ def test_a_spectrum_stored_with_the_opposite_imaginary_sign_is_phased_too():
         flipped = spectrum.replace(imag=-spectrum.imag)
         result = P.auto_phase(flipped)
         assert np.max(np.abs(phase_error_deg(result, flipped, -p0, -p1))) < 3.0
+
+
+# ---------------------------------------------------------------- start hint (issue 10)
+@pytest.mark.parametrize("method", ["peaks", "acme"])
+def test_previous_phase_as_start_does_not_change_the_real_fid_result(method):
+    # Real data: tests/data/ethyl-crotonate.1h.fid.dx (source in tests/data/README.md).
+    # A series whose phase is stable passes the previous spectrum's phase as the start;
+    # started from the FID's own phase, or a few degrees off it, the result must be the
+    # one found without a start (within 0.05 deg, a tenth of Powell's/Nelder-Mead's
+    # tolerance scale).
+    from pathlib import Path
+
+    from kinetics.spectra.reader import read
+
+    fid = read(Path(__file__).parent / "data" / "ethyl-crotonate.1h.fid.dx")
+    pipeline = P.Pipeline.from_config({"phase_method": method})
+    alone = P.process(fid, pipeline)
+    assert alone.phase_used == P.PhaseHint(alone.p0_deg, alone.p1_deg, alone.pivot_ppm)
+    for dp0, dp1 in ((0.0, 0.0), (3.0, -5.0), (-4.0, 8.0)):
+        hint = P.PhaseHint(alone.p0_deg + dp0, alone.p1_deg + dp1, alone.pivot_ppm)
+        started = P.process(fid, pipeline, phase_hint=hint)
+        assert started.p0_deg == pytest.approx(alone.p0_deg, abs=0.05)
+        assert started.p1_deg == pytest.approx(alone.p1_deg, abs=0.05)
+        assert started.pivot_ppm == alone.pivot_ppm
+        assert "previous spectrum" in started.notes[-1]
+        assert np.allclose(started.spectrum.real, alone.spectrum.real,
+                           atol=2e-3 * np.max(np.abs(alone.spectrum.real)))
+
+
+def test_a_start_about_another_pivot_is_the_same_phase_line():
+    # p0 + p1 (pivot - x) / W is one line whatever the pivot (analytic).
+    hint = P.PhaseHint(30.0, -90.0, 2.0)
+    p0, p1 = hint.about(5.0, 12.0)
+    for x in (-1.0, 2.0, 7.5):
+        assert p0 + p1 * (5.0 - x) / 12.0 == pytest.approx(30.0 - 90.0 * (2.0 - x) / 12.0)

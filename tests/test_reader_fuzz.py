@@ -1,20 +1,29 @@
-"""Generated and mutated JCAMP-DX and CSV input: every failure is an InputFileError.
+"""Generated, mutated and hostile JCAMP-DX and CSV input: every failure is an InputFileError.
 
 Valid files come from this package's writers on small invented spectra/FIDs; Hypothesis
 then truncates them, flips bytes, deletes or repeats lines, changes declared counts,
 inserts NaN/inf and garbage.  Reading must either succeed (a valid record) or raise
 InputFileError with a deliberate message — never another exception, never a hang (each
 example has a deadline far above the few milliseconds a small file takes).
+
+A hostile corpus built here (many blocks, tiny files that declare millions of points,
+damaged SQZ/DIF/DUP tokens, lost pages, impossible dates, huge delimited headers) checks
+the bounds the readers promise: memory (tracemalloc peak) within a small multiple of the
+file size plus a constant, and work linear in the file size — counted as Python function
+calls (deterministic, unlike wall time on a shared machine) for files of N and 4N blocks.
 """
 
 from __future__ import annotations
 
 import os
 import re
+import sys
 import tempfile
+import tracemalloc
 from datetime import timedelta
 
 import numpy as np
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -22,9 +31,10 @@ from kinetics.errors import InputFileError
 from kinetics.spectra import Fid, Spectrum
 from kinetics.spectra.delimited import csv_text
 from kinetics.spectra.jcampdx import fid_text, spectrum_text
-from kinetics.spectra.reader import read
+from kinetics.spectra.reader import parse_loaded, read
+from kinetics.spectra.text import LoadedText
 
-FUZZ = settings(max_examples=150, deadline=timedelta(seconds=5), derandomize=True,
+FUZZ = settings(max_examples=300, deadline=timedelta(seconds=5), derandomize=True,
                 suppress_health_check=[HealthCheck.too_slow])
 
 
@@ -147,7 +157,7 @@ def test_arbitrary_bytes_fail_only_with_input_file_error(raw):
 def _data_tables(raw: bytes):
     """(line number, text) lists of every data table in a JCAMP-DX text, or []."""
     from kinetics.spectra import jcampdx
-    from kinetics.spectra.reader import LoadedText
+    from kinetics.spectra.text import LoadedText
 
     try:
         blocks = jcampdx._split_blocks(LoadedText("fuzz", "", raw.decode("latin-1")))
@@ -161,12 +171,252 @@ def _data_tables(raw: bytes):
 @given(st.one_of(documents(), mutated_documents()))
 def test_vectorised_asdf_decoder_matches_the_line_by_line_one(raw):
     # The numpy fast path must give exactly what the line-by-line decoder gives, or decline.
-    from kinetics.spectra import jcampdx
+    from kinetics.spectra import asdf
 
-    for lines in _data_tables(raw):
-        fast = jcampdx._decode_asdf_fast(lines)
-        if fast is None:
-            continue
-        slow = jcampdx._decode_asdf("fuzz", lines)
-        np.testing.assert_array_equal(fast.values, slow.values)
-        assert fast.line_x == slow.line_x
+    # Also in chunks of a few lines: a chunk may start with the y-check of the previous one.
+    chunk_chars = asdf._CHUNK_CHARS
+    try:
+        for lines in _data_tables(raw):
+            for asdf._CHUNK_CHARS in (chunk_chars, 160, 1):
+                fast = asdf.decode_asdf_fast(lines)
+                if fast is None:
+                    continue
+                slow = asdf.decode_asdf("fuzz", lines)
+                np.testing.assert_array_equal(fast.values, slow.values)
+                assert fast.line_x == slow.line_x
+    finally:
+        asdf._CHUNK_CHARS = chunk_chars
+
+
+
+# ============================================================ hostile corpus
+def _spectrum_doc(seed: int, n: int, imag: bool, compression: str) -> str:
+    return spectrum_text(_record(seed, n, "ntuples" if imag else "xydata"), compression)
+
+
+def _many_blocks(n: int, kind: str) -> str:
+    if kind == "empty":  # ##TITLE=...##END= blocks without data
+        return "".join(f"##TITLE= block {i}\n##END=\n" for i in range(n))
+    if kind == "spectra":  # n complete spectra: which one to read is unclear
+        return _spectrum_doc(1, 8, False, "affn") * n
+    if kind == "types":  # n data blocks of n different unsupported types
+        one = _spectrum_doc(1, 8, False, "affn")
+        return "".join(one.replace("NMR SPECTRUM", f"UV SPECTRUM {i}") for i in range(n))
+    if kind == "labels":  # one block with n user labels
+        body = "".join(f"##$LABEL {i}= {i}\n" for i in range(n))
+        return _spectrum_doc(1, 8, False, "affn").replace("##END=", body + "##END=")
+    if kind == "lines":  # one table of n AFFN lines (n points declared)
+        lines = "".join(f"{n - i} {i % 97}\n" for i in range(n))
+        return ("##TITLE= t\n##DATA TYPE= NMR SPECTRUM\n##.OBSERVE FREQUENCY= 60\n##XUNITS= HZ\n"
+                f"##FIRSTX= {n}\n##LASTX= 1\n##NPOINTS= {n}\n##XYDATA= (X++(Y..Y))\n{lines}##END=\n")
+    if kind == "csv":  # n delimited rows
+        return "# observe_mhz: 60\nppm,real\n" + "".join(f"{n - i},{i % 7}\n" for i in range(n))
+    if kind == "csv-meta":  # n metadata lines, then a short table
+        return "".join(f"# key{i}: {i}\n" for i in range(n)) + "# observe_mhz: 60\n1,2\n0,3\n"
+    raise ValueError(kind)
+
+
+_BLOCK_KINDS = ["empty", "spectra", "types", "labels", "lines", "csv", "csv-meta"]
+
+
+def _claims(draw) -> str:
+    """A tiny file whose header declares far more points than its bytes can hold."""
+    n = draw(st.sampled_from([70_000, 2**20, 2**24, 2**24 + 1, 10**12]))
+    dup = draw(st.sampled_from(["s6777215", "Z", "s" + "9" * 11, "S" * 50]))
+    if draw(st.booleans()):
+        return ("##TITLE= t\n##DATA TYPE= NMR SPECTRUM\n##.OBSERVE FREQUENCY= 60\n##XUNITS= HZ\n"
+                f"##FIRSTX= 600\n##LASTX= 0\n##NPOINTS= {n}\n##XYDATA= (X++(Y..Y))\n600@%{dup}\n##END=\n")
+    return ("##TITLE= t\n##DATA TYPE= NMR FID\n##.OBSERVE FREQUENCY= 60\n##NTUPLES= NMR FID\n##SYMBOL= X, R, I\n"
+            f"##VAR_DIM= {n}, {n}, {n}\n##UNITS= SECONDS, A, A\n##FIRST= 0, 0, 0\n##LAST= 1, 0, 0\n"
+            f"##PAGE= N=1\n##DATA TABLE= (X++(R..R)), XYDATA\n0@%{dup}\n"
+            f"##PAGE= N=2\n##DATA TABLE= (X++(I..I)), XYDATA\n0@%{dup}\n##END NTUPLES= x\n##END=\n")
+
+
+_PSEUDO = re.compile(r"[@A-Ia-i%J-Rj-rS-Zs][0-9]+")
+
+
+def _damaged_asdf(draw) -> str:
+    """A DIF spectrum with one compressed token damaged: a decimal point, a lost digit, a
+    changed pseudo-digit, a DUP where none may stand."""
+    text = _spectrum_doc(draw(st.integers(0, 999)), draw(st.integers(16, 200)), draw(st.booleans()), "dif")
+    head, _, table = text.partition("(X++(")
+    tokens = list(_PSEUDO.finditer(table))
+    match = tokens[draw(st.integers(0, len(tokens) - 1))]
+    token = match.group(0)
+    how = draw(st.sampled_from(["dot", "drop", "pseudo", "dup", "exponent"]))
+    if how == "dot":
+        cut = draw(st.integers(1, len(token)))
+        token = token[:cut] + "." + token[cut:]
+    elif how == "drop":
+        token = token[:-1] if len(token) > 1 else "%"
+    elif how == "pseudo":
+        token = draw(st.sampled_from("@ABIabi%JKRjkrSTs")) + token[1:]
+    elif how == "dup":
+        token = "S2" + token
+    else:
+        token = token + "E5"
+    return head + "(X++(" + table[:match.start()] + token + table[match.end():]
+
+
+def _lost_page(draw) -> str:
+    text = _spectrum_doc(draw(st.integers(0, 999)), draw(st.integers(8, 64)), True,
+                         draw(st.sampled_from(["dif", "affn"])))
+    how = draw(st.sampled_from(["table I", "table R", "page", "both I", "symbol"]))
+    if how == "table I":
+        return text.replace("##DATA TABLE= (X++(I..I)), XYDATA\n", "")
+    if how == "table R":
+        return text.replace("##DATA TABLE= (X++(R..R)), XYDATA\n", "")
+    if how == "page":
+        return text.replace("##PAGE= N=2\n", "")
+    if how == "both I":
+        return text.replace("##PAGE= N=2\n##DATA TABLE= (X++(I..I)), XYDATA\n", "")
+    return text.replace("##SYMBOL= X, R, I", "##SYMBOL= X, R")
+
+
+_DATES = ["0001/01/01 00:00:00+0100", "9999/12/31 23:59:59-0100", "0001/01/01", "9999/12/31",
+          "0000/01/01", "2026/02/30 10:00:00", "2026/13/01", "2026/01/01 25:00:00", "2026/01/01 10:61",
+          "2026/01/01 10:00:00+9900", "2026/01/01 10:00:00+1500", "99999999999999999999/01/01",
+          "1900/01/01", "2201/01/01", "٢٠٢٦/01/01", "2026/01/01 10:00:00." + "9" * 100, "2026-01-01T10:00:00Z",
+          "25/01/2026", "", "2026/01/01 " + " " * 500 + "x"]
+
+
+def _odd_date(draw) -> str:
+    text = _spectrum_doc(draw(st.integers(0, 999)), 16, False, "affn")
+    value = draw(st.sampled_from(_DATES))
+    label = draw(st.sampled_from(["LONG DATE", "LONGDATE", "DATE"]))
+    extra = "##TIME= 99:99:99\n" if label == "DATE" and draw(st.booleans()) else ""
+    return text.replace("##JCAMP-DX= 5.01\n", f"##JCAMP-DX= 5.01\n##{label}= {value}\n{extra}")
+
+
+@st.composite
+def hostile_documents(draw) -> bytes:
+    family = draw(st.sampled_from(["blocks", "claims", "asdf", "pages", "dates"]))
+    if family == "blocks":
+        text = _many_blocks(draw(st.integers(2, 400)), draw(st.sampled_from(_BLOCK_KINDS)))
+    elif family == "claims":
+        text = _claims(draw)
+    elif family == "asdf":
+        text = _damaged_asdf(draw)
+    elif family == "pages":
+        text = _lost_page(draw)
+    else:
+        text = _odd_date(draw)
+    return text.encode("utf-8")
+
+
+#: Memory a read may take: this multiple of the file size plus a constant (the point
+#: budget lets any file hold 65536 points, a few MB of arrays; measured peaks are ~9x the
+#: size for large files, ~45x for 300 kB ones, where the constant dominates).
+MEMORY_PER_BYTE = 64
+MEMORY_CONSTANT_BYTES = 16 * 1024 * 1024
+
+
+def _peak_bytes(raw: bytes) -> tuple[int, BaseException | None]:
+    loaded = LoadedText("hostile", "", raw.decode("utf-8"))
+    tracemalloc.start()
+    try:
+        parse_loaded(loaded)
+        error = None
+    except Exception as caught:  # judged by the caller
+        error = caught
+    finally:
+        peak = tracemalloc.get_traced_memory()[1]
+        tracemalloc.stop()
+    return peak, error
+
+
+@settings(max_examples=600, deadline=timedelta(seconds=20), derandomize=True,
+          suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
+@given(hostile_documents())
+def test_hostile_documents_fail_cleanly_within_bounded_memory(raw):
+    # Every read ends in a record or a deliberate InputFileError whose message stays one
+    # short line (a few places named, never every block), within bounded memory.
+    peak, error = _peak_bytes(raw)
+    if error is not None:
+        assert isinstance(error, InputFileError), repr(error)
+        assert not error.problem.startswith("unexpected"), error
+        assert len(str(error)) < 400, str(error)[:400]
+    assert peak <= MEMORY_PER_BYTE * len(raw) + MEMORY_CONSTANT_BYTES, (peak, len(raw))
+
+
+@pytest.mark.parametrize("text, problem", [
+    (_many_blocks(4000, "spectra"), "data blocks of one kind"),
+    (_many_blocks(4000, "empty"), "no ##XYDATA="),
+    (_many_blocks(300, "types"), "unsupported ##DATA TYPE="),
+])
+def test_many_blocks_give_one_short_error(text, problem):
+    with pytest.raises(InputFileError, match=re.escape(problem)) as caught:
+        parse_loaded(LoadedText("hostile", "", text))
+    assert len(str(caught.value)) < 400
+
+
+def test_tiny_file_claiming_gigabytes_is_refused_before_allocation():
+    # 2**24 points declared and one DUP count that would expand to all of them.
+    text = ("##TITLE= t\n##DATA TYPE= NMR SPECTRUM\n##.OBSERVE FREQUENCY= 60\n##XUNITS= HZ\n"
+            "##FIRSTX= 600\n##LASTX= 0\n##NPOINTS= 16777216\n##XYDATA= (X++(Y..Y))\n600@%s6777215\n##END=\n")
+    peak, error = _peak_bytes(text.encode())
+    assert isinstance(error, InputFileError) and error.line == 7 and "declares" in error.problem
+    assert peak < 1024 * 1024
+
+
+def test_sqz_token_with_a_decimal_point_is_an_error_naming_its_line():
+    text = _spectrum_doc(3, 64, False, "dif")
+    lines = text.split("\n")
+    index = next(i for i, line in enumerate(lines) if not line.startswith("##") and _PSEUDO.search(line[6:]))
+    token = _PSEUDO.search(lines[index], 6)
+    assert len(token.group(0)) >= 3
+    lines[index] = lines[index][:token.start() + 2] + "." + lines[index][token.start() + 2:]
+    with pytest.raises(InputFileError, match="decimal point") as caught:
+        parse_loaded(LoadedText("hostile", "", "\n".join(lines)))
+    assert caught.value.line == index + 1
+
+
+def test_missing_data_table_line_is_an_error_not_a_dropped_imaginary_part():
+    text = _spectrum_doc(4, 64, True, "dif")
+    line = text.split("\n").index("##PAGE= N=2") + 1
+    with pytest.raises(InputFileError, match="no ##DATA TABLE=") as caught:
+        parse_loaded(LoadedText("hostile", "", text.replace("##DATA TABLE= (X++(I..I)), XYDATA\n", "")))
+    assert caught.value.line == line
+    # The whole I page gone while ##SYMBOL= still declares I: refused, not read as real only.
+    without_page = text[:text.index("##PAGE= N=2")] + text[text.index("##END NTUPLES"):]
+    with pytest.raises(InputFileError, match="no I page"):
+        parse_loaded(LoadedText("hostile", "", without_page))
+
+
+@pytest.mark.parametrize("value", ["0001/01/01 00:00:00+0100", "9999/12/31 23:59:59-0100", "0001/01/01",
+                                   "9999/12/31 10:00:00+0000", "99999999999999999999/01/01", "2026/02/30"])
+def test_every_long_date_failure_names_its_line(value):
+    text = _spectrum_doc(5, 16, False, "affn").replace("##JCAMP-DX= 5.01\n",
+                                                        f"##JCAMP-DX= 5.01\n##LONG DATE= {value}\n")
+    with pytest.raises(InputFileError) as caught:
+        parse_loaded(LoadedText("hostile", "", text))
+    assert caught.value.line == 3 and not caught.value.problem.startswith("unexpected")
+
+
+def _python_calls(text: str) -> int:
+    """Python and C function calls made while parsing ``text`` (deterministic work count)."""
+    loaded = LoadedText("hostile", "", text)
+    calls = 0
+
+    def count(frame, event, arg):
+        nonlocal calls
+        if event in ("call", "c_call"):
+            calls += 1
+
+    sys.setprofile(count)
+    try:
+        parse_loaded(loaded)
+    except InputFileError:
+        pass
+    finally:
+        sys.setprofile(None)
+    return calls
+
+
+@pytest.mark.parametrize("kind", _BLOCK_KINDS)
+def test_reading_work_is_linear_in_the_number_of_blocks(kind):
+    # Work for 4N blocks (or labels, lines, rows) must be about 4x the work for N: a search
+    # of a list by equality (the old block selection) made it grow as N**2 (16x here).
+    n = 500
+    small, large = _python_calls(_many_blocks(n, kind)), _python_calls(_many_blocks(4 * n, kind))
+    assert large <= 4.4 * small, (kind, small, large)

@@ -73,14 +73,6 @@ def test_is_study_config(example):
     assert not study.is_study_config({"study": "not a table"})
 
 
-def test_run_config_branch_needs_series(example, tmp_path, monkeypatch):
-    # Until kinetics.series provides run_config_to_table, a run config is a clear error.
-    monkeypatch.setitem(sys.modules, "kinetics.series", None)
-    _edit(example, 'table = "series_15c.csv"      #', 'config = "run15.toml"      #')
-    with pytest.raises(ConfigError, match="run_config_to_table"):
-        study.run_study(example, tmp_path / "out")
-
-
 @pytest.mark.parametrize("old, new, error, match", [
     ('model = "first"  ', 'model = "third"  ', ConfigError, "study.model"),
     ("temperature_c = 15.0 ", "temperature_c = 15.0\ntemperature_kelvin = 288.15 ", ConfigError, "exactly one"),

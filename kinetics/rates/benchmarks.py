@@ -1,4 +1,4 @@
-"""The "rates" section of ``kinetics bench`` (registered in :mod:`kinetics.bench`).
+"""The "rates" section of ``kinetics bench`` (registered in :mod:`kinetics.bench`; rows and timer from :mod:`kinetics.benchkit`).
 
 Every task has a floor beside it: a plain scipy script (``curve_fit`` / ``solve_ivp`` +
 ``least_squares``) doing the same job on the same invented data, so the ratio shows what the
@@ -10,6 +10,8 @@ from __future__ import annotations
 import numpy as np
 from scipy import optimize
 from scipy.integrate import solve_ivp
+
+from kinetics.benchkit import BenchRow, time_runs
 
 MECHANISM = "A -> B : k1; B -> C : k2; 2 C -> D : k3"
 TRUTH = {"k1": 0.02, "k2": 0.01, "k3": 0.05}
@@ -89,7 +91,6 @@ def _floor_mechanism(t, y):
 
 
 def bench_rates(quick: bool):
-    from kinetics.bench import BenchRow, time_runs
     from kinetics.rates.fit import fit_law, fit_mechanism, refit
     from kinetics.rates.table import from_arrays
 

@@ -8,7 +8,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from kinetics.errors import ConfigError
+from kinetics.errors import ConfigError, KineticsError
+from kinetics.rates import diagnostics as dg
 from kinetics.rates.compare import DEFAULT_CANDIDATES, compare_models
 from kinetics.rates.fit import fit_model
 from kinetics.rates.laws import SPECIES, get_model
@@ -55,11 +56,15 @@ def _species_for(model_name, columns, observed, species):
 def fit_command(table, time_column, columns, *, model=None, mechanism=None, observed="reactant",
                 species=None, sigma_columns=None, compare=False, target_conversion=None,
                 bootstrap=0, seed=None, start=None, fixed=None, initial=None, profile=True,
-                absolute_sigma=False):
+                absolute_sigma=False, weighting="none", time_unit=None, concentration_unit=None):
     """Run ``kinetics fit``; returns ``(payload, text)``.
 
     ``payload`` is the JSON object (params keyed by name, aicc, bic, n_points, converged,
-    message, half_life_s / forecast where defined, comparison with ``compare``).
+    message, half_life_s / forecast where defined, comparison with ``compare``).  Its
+    ``warnings`` (plain language) and ``guardrails`` (``code``, ``severity``, ``message``,
+    ``details``) hold every guardrail of :mod:`kinetics.rates.diagnostics`, the forecast's
+    included.  Times are converted to s and concentrations to mol/L on reading
+    (``time_unit``, ``concentration_unit``), so every unit in the output is SI.
     """
     if (model is None) == (mechanism is None):
         raise ConfigError("--model/--mechanism", "give exactly one of them")
@@ -68,10 +73,16 @@ def fit_command(table, time_column, columns, *, model=None, mechanism=None, obse
                           "1000-2000 is plenty for 95 % percentile intervals (Efron & Tibshirani 1993)")
     if seed is not None and int(seed) < 0:
         raise ConfigError("--seed", f"{seed} is negative", hint="give a seed of 0 or more")
-    data = read_concentration_table(table, time_column, columns, sigma_columns)
+    if weighting not in ("none", "relative"):
+        raise ConfigError("--weighting", f"unknown weighting {weighting!r}", hint="use none or relative")
+    if weighting == "relative" and sigma_columns:
+        raise ConfigError("--weighting", "relative weighting and --sigma-column both set the weights",
+                          hint="give one of them")
+    data = read_concentration_table(table, time_column, columns, sigma_columns, time_unit=time_unit,
+                                    concentration_unit=concentration_unit)
     rng = np.random.default_rng(seed) if bootstrap else None
     options = dict(start=start or {}, fixed=fixed or {}, profile=profile, bootstrap=bootstrap,
-                   rng=rng, absolute_sigma=absolute_sigma)
+                   rng=rng, absolute_sigma=absolute_sigma, weighting=weighting)
     if mechanism is not None:
         parsed = parse_mechanism(mechanism)
         observed_species = tuple(species) if species else tuple(columns)
@@ -80,7 +91,14 @@ def fit_command(table, time_column, columns, *, model=None, mechanism=None, obse
         rate_model = get_model(model, _species_for(model, columns, observed, species))
     result = fit_model(data, rate_model, **options)
     payload = result.to_dict()
+    payload["input_units"] = {"time": time_unit or "s", "concentration": concentration_unit or "mol/L",
+                              "converted_to": {"time": "s", "concentration": "mol L^-1"}}
     text = [result.report()]
+    if time_unit not in (None, "s") or concentration_unit not in (None, "mol/L"):
+        text.append(f"units       read as {time_unit or 's'} and {concentration_unit or 'mol/L'}; "
+                    "every value above is in s and mol/L")
+    extra = []  # guardrails found after the fit (forecast)
+    comparison = None
     if mechanism is not None:
         payload["conservation"] = parsed.conservation_relations()
         text.append("conserved   " + "; ".join(payload["conservation"]))
@@ -88,24 +106,48 @@ def fit_command(table, time_column, columns, *, model=None, mechanism=None, obse
         if not result.converged:
             payload["forecast"] = None
         else:
-            forecast = result.time_to_conversion(float(target_conversion))
-            payload["forecast"] = {"target_conversion": float(target_conversion),
-                                   "time_s": forecast.to_dict()}
+            target = float(target_conversion)
+            forecast = result.time_to_conversion(target)
+            payload["forecast"] = {"target_conversion": target, "time_s": forecast.to_dict()}
             if forecast.ci95 is not None:
-                text.append(f"forecast    {float(target_conversion):.0%} conversion at {forecast.value:.5g} s "
+                text.append(f"forecast    {target:.0%} conversion at {forecast.value:.5g} s "
                             f"[{forecast.ci95[0]:.5g}, {forecast.ci95[1]:.5g}] ({forecast.method})")
             else:
                 text.append(f"forecast    {forecast.note or 'not available'}")
+            caveat = dg.forecast_caveat(result, forecast, target)
+            extra += caveat
+            if caveat and mechanism is None and model in DEFAULT_CANDIDATES and len(columns) == 1:
+                try:
+                    comparison = _comparison(data, model, columns, observed, species, absolute_sigma, weighting)
+                except KineticsError:
+                    comparison = None  # no candidate could be fitted: the caveat stands alone
+                averaged = None if comparison is None else dg.model_averaged_forecast(comparison, target, model)
+                if averaged is not None:
+                    payload["forecast"]["model_averaged_time_s"] = averaged.to_dict()
+                    if averaged.uncertain:
+                        text.append(f"            averaged over laws within delta AICc 4: {averaged.value:.5g} s "
+                                    f"[{averaged.ci95[0]:.5g}, {averaged.ci95[1]:.5g}]")
+                extra += dg.averaged_forecast_guardrail(averaged, target, model)
     if compare:
         if mechanism is not None:
             raise ConfigError("--compare", "compares rate laws; use it with --model")
-        candidates = list(DEFAULT_CANDIDATES)
-        if model not in candidates:
-            candidates.append(model)
-        comparison = compare_models(data, candidates, _species_for(model, columns, observed, species),
-                                    start={}, fixed={}, absolute_sigma=absolute_sigma)
+        if comparison is None:
+            comparison = _comparison(data, model, columns, observed, species, absolute_sigma, weighting)
         payload["comparison"] = comparison.to_dict()
         text.append("")
         text.append(comparison.table.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
         text.append(comparison.verdict)
+    for g in extra:
+        payload["warnings"].append(g.message)
+        payload["warning_codes"].append(g.code)
+        payload["guardrails"].append(g.to_dict())
+        text.append(f"warning     {g.message}  [{g.code}]")
     return payload, "\n".join(text)
+
+
+def _comparison(data, model, columns, observed, species, absolute_sigma, weighting):
+    candidates = list(DEFAULT_CANDIDATES)
+    if model not in candidates:
+        candidates.append(model)
+    return compare_models(data, candidates, _species_for(model, columns, observed, species),
+                          start={}, fixed={}, absolute_sigma=absolute_sigma, weighting=weighting)

@@ -32,8 +32,15 @@ class ModelComparison:
     def best(self) -> str:
         return str(self.table.iloc[0]["model"])
 
+    @property
+    def consistent_orders(self) -> list:
+        """Integer laws inside the free-order interval of ``n`` (see :func:`nested_orders`)."""
+        return nested_orders(self.results)[0]
+
     def to_dict(self) -> dict:
-        return {"table": self.table.to_dict(orient="records"), "verdict": self.verdict, "best": self.best}
+        consistent, interval = nested_orders(self.results)
+        return {"table": self.table.to_dict(orient="records"), "verdict": self.verdict, "best": self.best,
+                "consistent_with": consistent, "order_ci95": None if interval is None else list(interval)}
 
 
 def compare_models(data, candidates=DEFAULT_CANDIDATES, observed="reactant", **options) -> ModelComparison:
@@ -84,28 +91,65 @@ def compare_models(data, candidates=DEFAULT_CANDIDATES, observed="reactant", **o
     return ModelComparison(table, _verdict(table, results), results)
 
 
+_INTEGER_ORDER = {"zero": 0, "first": 1, "second": 2}
+
+
+def nested_orders(results: dict) -> tuple[list, tuple | None]:
+    """Integer laws whose order lies inside the free-order fit's 95 % interval of ``n``.
+
+    ``nth`` contains zero, first and second order as special cases (``n = 0, 1, 2``), so
+    it is always within about delta AICc 2 of the integer law that generated the data; its
+    interval of ``n`` says which integer laws the data are consistent with.
+    """
+    nth = results.get("nth")
+    if nth is None or not nth.converged:
+        return [], None
+    n = nth.param("n")
+    interval = n.ci95
+    if interval is None or not all(np.isfinite(interval)):
+        return [], None
+    consistent = [name for name, order in _INTEGER_ORDER.items()
+                  if name in results and results[name] is not None and interval[0] <= order <= interval[1]]
+    return consistent, (float(interval[0]), float(interval[1]))
+
+
 def _verdict(table: pd.DataFrame, results: dict) -> str:
     ranked = table[table["aicc"].notna()]
     best = ranked.iloc[0]
     text = f"best: {best['model']} (Akaike weight {best['akaike_weight']:.2f})"
     if len(ranked) == 1:
         return text + "; no other candidate could be fitted"
-    runner = ranked.iloc[1]
-    d = float(runner["delta_aicc"])
-    if d < 2:
-        judgement = (f"but {runner['model']} is practically as good (delta AICc {d:.1f} < 2): "
-                     "the data cannot tell these laws apart; collect more of the curve")
-    elif d < 4:
-        judgement = f"{runner['model']} has some support left (delta AICc {d:.1f})"
-    elif d <= 10:
-        judgement = f"{runner['model']} has considerably less support (delta AICc {d:.1f})"
-    else:
-        judgement = f"the others have essentially no support (next: {runner['model']}, delta AICc {d:.1f})"
-    text = f"{text}; {judgement}"
+    consistent, interval = nested_orders(results)
+    # The free order nests the integer laws: being as good as one of them is no evidence
+    # against it.  Judge the separable (non-nested) laws among themselves.
+    separable = ranked
+    if consistent:
+        separable = ranked[ranked["model"] != "nth"]
+    if len(separable) >= 2:
+        lead, runner = separable.iloc[0], separable.iloc[1]
+        d = float(runner["delta_aicc"] - lead["delta_aicc"])
+        if d < 2:
+            judgement = (f"{lead['model']} and {runner['model']} are practically as good (delta AICc {d:.1f} < 2): "
+                         "the data cannot tell these laws apart; collect more of the curve")
+        elif d < 4:
+            judgement = f"{runner['model']} has some support left (delta AICc {d:.1f} behind {lead['model']})"
+        elif d <= 10:
+            judgement = f"{runner['model']} has considerably less support (delta AICc {d:.1f} behind {lead['model']})"
+        else:
+            judgement = (f"the others have essentially no support (next: {runner['model']}, delta AICc {d:.1f} "
+                         f"behind {lead['model']})")
+        text = f"{text}; {judgement}"
     nth = results.get("nth")
     if nth is not None and nth.converged:
-        # nth contains zero, first and second order as special cases: its n says which is near.
         n = nth.param("n")
         spread = f" +- {n.stderr:.2f}" if n.stderr is not None else ""
         text += f"; the free-order fit gives n = {n.value:.2f}{spread}"
+        if interval is not None:
+            text += f" (95 % interval {interval[0]:.2f} to {interval[1]:.2f})"
+            if len(consistent) == 1:
+                text += f": the data are consistent with {consistent[0]} order"
+            elif consistent:
+                text += f": consistent with {' and '.join(consistent)} order, the data do not decide the order"
+            else:
+                text += ": no integer order fits; the order is fractional or the mechanism is more complex"
     return text

@@ -28,8 +28,9 @@ import numpy as np
 
 from kinetics.errors import FitError
 from kinetics.jsonio import parameter_dict
+from kinetics.rates import diagnostics as dg
 from kinetics.rates import intervals as iv
-from kinetics.rates.laws import ParamSpec, RateModel, get_model
+from kinetics.rates.laws import MODELS, ParamSpec, RateModel, get_model
 from kinetics.rates.table import ConcentrationData, from_arrays
 
 log = logging.getLogger(__name__)
@@ -108,7 +109,13 @@ class DerivedQuantity:
 
 @dataclass(frozen=True)
 class ResidualDiagnostics:
-    """Runs test and lag-1 autocorrelation of the weighted residuals."""
+    """Runs test and lag-1 autocorrelation of the weighted residuals.
+
+    ``runs_p`` is the exact one-sided probability of so few runs or fewer
+    (:func:`kinetics.rates.diagnostics.runs_test_exact`); ``runs_z`` is for reading only.
+    The lag-1 autocorrelation is reported, not tested: least-squares residuals of short
+    series are negatively correlated by construction.
+    """
 
     runs: int
     expected_runs: float
@@ -118,8 +125,8 @@ class ResidualDiagnostics:
 
     @property
     def systematic(self) -> bool:
-        """True when the residuals look structured (runs p < 0.01 or |lag-1| > 0.5)."""
-        return bool((np.isfinite(self.runs_p) and self.runs_p < 0.01) or abs(self.lag1_autocorrelation) > 0.5)
+        """True when the residuals change sign too rarely (exact runs test, p < 0.01)."""
+        return bool(np.isfinite(self.runs_p) and self.runs_p < dg.RUNS_P)
 
 
 @dataclass(frozen=True)
@@ -135,6 +142,8 @@ class FitOptions:
     tol: float = 1e-10
     max_nfev: int | None = None
     warm: bool = False
+    weighting: str = "none"
+    guardrails: bool = True
 
 
 @dataclass(frozen=True)
@@ -170,11 +179,12 @@ class FitResult:
     columns: tuple
     source: str
     n_evaluations: int  # residual evaluations of minimiser + polish (Jacobians included)
-    warnings: tuple = ()
+    warnings: tuple = ()  # plain-language messages: every guardrail's plus the fitter's own
     bootstrap_failed: int = 0
     model: RateModel | None = field(default=None, repr=False, compare=False)
     data: ConcentrationData | None = field(default=None, repr=False, compare=False)
     options: FitOptions = field(default_factory=FitOptions, repr=False, compare=False)
+    guardrails: tuple = ()  # kinetics.rates.diagnostics.Guardrail records (code, message, details)
 
     # ------------------------------------------------------------ access
     @property
@@ -283,7 +293,19 @@ class FitResult:
                                 lambda v: _time_to_reach(curve, v, conversion, span), "s", method=method)
         if not np.isfinite(quantity.value):
             return replace(quantity, note=f"conversion {conversion:g} is not reached by the fitted model")
+        caveat = dg.forecast_caveat(self, quantity, conversion)
+        if caveat:
+            return replace(quantity, note=caveat[0].message)
         return quantity
+
+    def forecast_guardrails(self, conversion: float) -> list:
+        """Guardrails of the forecast to ``conversion``: beyond the data or not."""
+        return dg.forecast_caveat(self, self.time_to_conversion(conversion), conversion) if self.converged else []
+
+    @property
+    def warning_codes(self) -> tuple:
+        """Machine codes of :attr:`guardrails`, in order (e.g. ``"outlier"``)."""
+        return tuple(g.code for g in self.guardrails)
 
     def extra_quantities(self) -> list[DerivedQuantity]:
         """Model-specific derived constants (``K`` of A <=> B, ``k2`` of pseudo-first order)."""
@@ -318,6 +340,9 @@ class FitResult:
             "converged": self.converged,
             "message": self.message,
             "warnings": list(self.warnings),
+            "warning_codes": list(self.warning_codes),
+            "guardrails": [g.to_dict() for g in self.guardrails],
+            "weighting": self.options.weighting,
             "residuals": {
                 "runs": self.diagnostics.runs,
                 "expected_runs": self.diagnostics.expected_runs,
@@ -354,7 +379,7 @@ class FitResult:
         lines.append(f"chi-square  {self.chi_square:.6g}   reduced {self.reduced_chi_square:.4g}   "
                      f"AICc {self.aicc:.4g}   BIC {self.bic:.4g}   dof {self.dof}")
         d = self.diagnostics
-        lines.append(f"residuals   runs {d.runs} (expected {d.expected_runs:.1f}, p = {d.runs_p:.3g}), "
+        lines.append(f"residuals   runs {d.runs} (expected {d.expected_runs:.1f}, P(fewer or equal) = {d.runs_p:.3g}), "
                      f"lag-1 autocorrelation {d.lag1_autocorrelation:.2f}"
                      + ("  -> systematic misfit?" if d.systematic else ""))
         if self.correlation is not None and len(self.varying) > 1:
@@ -367,8 +392,11 @@ class FitResult:
             for q in self.extra_quantities():
                 if q.ci95 is not None:
                     lines.append(f"{q.name:<12}{q.value:.5g}  [{q.ci95[0]:.5g}, {q.ci95[1]:.5g}] ({q.method})")
+        coded = {g.message: g for g in self.guardrails}
         for warning in self.warnings:
-            lines.append(f"warning     {warning}")
+            g = coded.get(warning)
+            label = {dg.REFUSE: "REFUSED", dg.NOTE: "note"}.get(g.severity, "warning") if g else "warning"
+            lines.append(f"{label:<11} {warning}" + (f"  [{g.code}]" if g else ""))
         return "\n".join(lines)
 
 
@@ -479,7 +507,7 @@ def _lmfit_minimise(problem: iv.Problem, theta0, options: FitOptions):
 
 def fit_model(data: ConcentrationData, model: RateModel, *, start=None, fixed=None, bounds=None,
               profile=True, bootstrap=0, rng=None, absolute_sigma=False, tol=1e-10,
-              max_nfev=None, warm=False) -> FitResult:
+              max_nfev=None, warm=False, weighting="none", guardrails=True) -> FitResult:
     """Fit ``model`` to all observed series of ``data`` at once (a global fit).
 
     Parameters
@@ -508,12 +536,19 @@ def fit_model(data: ConcentrationData, model: RateModel, *, start=None, fixed=No
         ``start`` is a previous optimum (see :func:`refit`): go straight to the final
         central-difference least-squares stage, falling back to the full lmfit path if
         that does not converge.
+    weighting : {"none", "relative"}
+        ``"relative"``: the noise is taken as proportional to the concentration; each point
+        is weighted by ``1/max(|f|, 0.01 max|f|)`` with ``f`` the fitted curve, iterated to a
+        fixed point (iteratively reweighted least squares; the 1 % floor keeps points near
+        zero from taking infinite weight).  Not with sigmas in ``data``.
+    guardrails : bool
+        Run the checks of :mod:`kinetics.rates.diagnostics` (default True).
 
     Returns
     -------
     FitResult
-        ``converged`` False (with ``message``) when the minimiser failed or the covariance
-        could not be estimated; the intervals are then absent.
+        ``converged`` False (with ``message``) when the minimiser failed, the covariance
+        could not be estimated or a guardrail refused the fit; the intervals are then absent.
     """
     if data.values.shape[0] != len(model.species):
         raise FitError(f"model {model.name!r} predicts {len(model.species)} series "
@@ -523,26 +558,78 @@ def fit_model(data: ConcentrationData, model: RateModel, *, start=None, fixed=No
         raise FitError(f"the number of bootstrap refits must be 0 or more, got {bootstrap}")
     if bootstrap and rng is None:
         raise FitError("a bootstrap needs rng=numpy.random.default_rng(seed)")
+    if weighting not in ("none", "relative"):
+        raise FitError(f"unknown weighting {weighting!r}: use 'none' or 'relative'")
     if not isinstance(profile, bool):
         profile = tuple(profile)
         unknown = [name for name in profile if name not in model.param_names]
         if unknown:
             raise FitError(f"cannot profile {unknown[0]!r}: not a parameter of {model.name!r}")
     options = FitOptions(dict(start or {}), dict(fixed or {}), dict(bounds or {}), profile,
-                         int(bootstrap), bool(absolute_sigma), float(tol), max_nfev, bool(warm))
+                         int(bootstrap), bool(absolute_sigma), float(tol), max_nfev, bool(warm),
+                         weighting, bool(guardrails))
     problem, theta0 = _build_problem(model, data, options)
     n = data.n_points
     p = len(problem.names)
     if n <= p:
         raise FitError(f"{data.source}: {n} points cannot determine {p} free parameters "
                        f"({', '.join(problem.names)})")
+    if weighting == "relative":
+        weighted, theta0, note = _relative_weights(model, data, problem, theta0, options)
+        problem, _ = _build_problem(model, weighted, options)
+        result = _finish(model, weighted, problem, theta0, options, rng, [note])
+        # The weights are the fit's, not the user's: the record keeps the data as given, so
+        # that refit(result, result.data.appended(...)) reweights again.
+        return replace(result, data=data)
     return _finish(model, data, problem, theta0, options, rng)
 
 
-def _finish(model, data, problem, theta0, options, rng) -> FitResult:
+def _relative_weights(model, data, problem, theta0, options):
+    """Iteratively reweighted fit for noise proportional to the concentration.
+
+    Returns ``(data with sigma = s_rel max(|f|, 0.01 max|f|), theta, note)``; ``s_rel`` is
+    the relative scatter estimated from the last iteration, so that the sigmas are
+    concentrations and the reduced chi-square is ~1.
+    """
+    if data.sigma is not None:
+        raise FitError("give either uncertainties (a sigma column) or relative weighting, not both")
+    if options.absolute_sigma:
+        raise FitError("relative weighting estimates the noise level from the fit: it cannot be absolute")
+    theta, _, _, _ = _lmfit_minimise(problem, theta0, options)
+    dof = max(data.n_points - len(problem.names), 1)
+    for _ in range(8):
+        f = problem.model(theta)
+        size = np.maximum(np.abs(f), 0.01 * np.max(np.abs(f), axis=1, keepdims=True))
+        size = np.where(size > 0, size, 1.0)
+        relative = float(np.sqrt(np.sum(((data.values - f) / size) ** 2) / dof)) or 1.0
+        problem.weight = 1.0 / (size * relative)
+        new, ok = iv.fit_theta(problem, theta, max_nfev=200 * (len(theta) + 1), tol=1e-12)
+        if not ok or not np.all(np.isfinite(new)):
+            break
+        change = np.max(np.abs(new - theta) / np.maximum(np.abs(theta), 1e-300))
+        theta = new
+        if change < 1e-7:
+            break
+    f = problem.model(theta)
+    size = np.maximum(np.abs(f), 0.01 * np.max(np.abs(f), axis=1, keepdims=True))
+    size = np.where(size > 0, size, 1.0)
+    relative = float(np.sqrt(np.sum(((data.values - f) / size) ** 2) / dof)) or 1.0
+    weighted = replace(data, sigma=size * relative)
+    note = dg.Guardrail("weighting_relative", f"weighted for noise proportional to the concentration: "
+                        f"relative scatter {100 * relative:.2g} % of the fitted value", dg.NOTE,
+                        {"relative_scatter": relative})
+    return weighted, theta, note
+
+
+def _finish(model, data, problem, theta0, options, rng, notes=(), depth=0) -> FitResult:
     n, p = data.n_points, len(problem.names)
     dof = n - p
-    messages, warnings = [], list(data.warnings)
+    messages = []
+    found = list(notes) + dg.from_messages(data.warnings, "data") + list(data.notes)
+    is_rate_model = model.name in MODELS or model.name == "mechanism"
+    if options.guardrails and is_rate_model:
+        found += dg.check_direction(model.name, model.species, data.columns, data.time_s, data.values)
+        found += dg.check_time_origin(data.time_s, data.source)
     warm = None
     if options.warm:
         # From a nearby optimum 1e-12 already lands within ~1e-9 relative of the cold fit;
@@ -550,6 +637,7 @@ def _finish(model, data, problem, theta0, options, rng) -> FitResult:
         warm = iv.fit_theta(problem, theta0, max_nfev=100 * (p + 1), tol=1e-12, jac="3-point", full=True)
         if not warm[1]:
             warm = None
+    jacobian = None
     if warm is not None:
         theta, _, jacobian = warm
         converged = True
@@ -588,6 +676,16 @@ def _finish(model, data, problem, theta0, options, rng) -> FitResult:
     n_evaluations = problem.calls  # minimiser + polish, before any interval work
     at_bound = [bool(np.isclose(v, lo, rtol=1e-9, atol=1e-300) or np.isclose(v, hi, rtol=1e-9))
                 for v, lo, hi in zip(theta, problem.lower, problem.upper)]
+    if options.guardrails and is_rate_model:
+        rates = [theta[i] for i in dg.rate_indices(problem, model)]
+        span = float(data.time_s[-1] - data.time_s[0])
+        found += dg.check_no_change(model.name, model.species, data.columns, data.time_s, data.values,
+                                    rates, span)
+    refusals = [g for g in found if g.severity == dg.REFUSE]
+    if refusals and converged:
+        converged = False
+        covariance = None
+        messages.append("refused: " + refusals[0].message.split(":")[0])
     if covariance is None and converged:
         converged = False
         stuck = [name for name, b in zip(problem.names, at_bound) if b]
@@ -598,9 +696,10 @@ def _finish(model, data, problem, theta0, options, rng) -> FitResult:
             messages.append("the covariance could not be estimated"
                             + (f" ({', '.join(stuck)} at a bound)" if stuck else
                                " (parameters not identifiable from these data?)"))
-    elif any(at_bound):
-        warnings.append("at a bound: " + ", ".join(n_ for n_, b in zip(problem.names, at_bound) if b)
-                        + "; its interval is one-sided or meaningless")
+    elif any(at_bound) and not refusals:
+        found.append(dg.Guardrail(
+            "at_bound", "at a bound: " + ", ".join(n_ for n_, b in zip(problem.names, at_bound) if b)
+            + "; its interval is one-sided or meaningless"))
     stderr = np.sqrt(np.diag(covariance)) if covariance is not None else np.full(p, np.nan)
     correlation = None
     if covariance is not None:
@@ -613,16 +712,23 @@ def _finish(model, data, problem, theta0, options, rng) -> FitResult:
             converged = False
             messages.append(f"parameters {', '.join(involved)} are not separately identifiable from "
                             "these data (correlation matrix singular); fix one of them or observe more species")
+    threshold = iv.profile_threshold(chi_square, dof, options.absolute_sigma) if dof > 0 else np.inf
+    if converged and options.guardrails and is_rate_model:
+        equivalent, better = dg.multistart(problem, theta, stderr, threshold, model)
+        if better is not None and depth < 3:
+            log.info("multi-start found a lower sum of squares; refitting from there")
+            return _finish(model, data, problem, better, replace(options, warm=False), rng, notes, depth + 1)
+        found += dg.multistart_guardrail(problem, theta, equivalent, data.columns, model)
     profiles = [None] * p
     if converged and options.profile and chi_square > 0:
-        threshold = iv.profile_threshold(chi_square, dof, options.absolute_sigma)
         wanted = problem.names if options.profile is True else list(options.profile)
         for i in (i for i, name in enumerate(problem.names) if name in wanted):
             profiles[i] = iv.profile_interval(problem, theta, i, stderr[i], threshold, s_min=chi_square,
                                               covariance=covariance)
             if not all(np.isfinite(profiles[i])):
-                warnings.append(f"profile of {problem.names[i]} does not close on one side: "
-                                "the data do not bound it")
+                found.append(dg.Guardrail(
+                    "profile_open", f"profile of {problem.names[i]} does not close on one side: "
+                    "the data do not bound it", dg.WARNING, {"parameter": problem.names[i]}))
     boots = [None] * p
     failed = 0
     if converged and options.bootstrap:
@@ -631,7 +737,8 @@ def _finish(model, data, problem, theta0, options, rng) -> FitResult:
             lo, hi = np.percentile(samples, [2.5, 97.5], axis=0)
             boots = [(float(a), float(b)) for a, b in zip(lo, hi)]
         if failed:
-            warnings.append(f"{failed} of {options.bootstrap} bootstrap refits failed")
+            found.append(dg.Guardrail("bootstrap_failed",
+                                      f"{failed} of {options.bootstrap} bootstrap refits failed"))
     estimates = []
     specs = {s.name: s for s in model.params}
     for spec in model.params:
@@ -652,18 +759,24 @@ def _finish(model, data, problem, theta0, options, rng) -> FitResult:
     aic = log_term + 2 * k_params
     aicc = aic + (2 * k_params * (k_params + 1) / (n - k_params - 1) if n - k_params - 1 > 0 else math.inf)
     bic = log_term + k_params * math.log(n)
-    runs, expected, z, runs_p = iv.runs_test(residual.ravel())
+    runs, expected, z, runs_p = dg.runs_test_exact(residual)
     diagnostics = ResidualDiagnostics(runs, expected, z, runs_p, iv.lag1_autocorrelation(residual))
-    if converged and diagnostics.systematic:
-        warnings.append("residuals are structured (runs test / autocorrelation): the model may be wrong")
+    fitted = problem.model(theta)
+    if converged and options.guardrails:
+        found += dg.check_runs(runs, expected, runs_p)
+        found += dg.check_noise(residual, fitted, jacobian, weighted=data.sigma is not None and not notes,
+                                weighting=options.weighting)
+        found += dg.check_outliers(residual, jacobian, dof, data.point_labels())
     message = "; ".join(m for m in messages if m)
     if not converged:
         log.warning("fit of %s did not converge: %s", model.name, message)
+    found = list({(g.code, g.message): g for g in found}.values())
     return FitResult(
         model.name, model.description, tuple(estimates), tuple(problem.names), covariance, correlation,
         chi_square, chi_square / dof if dof > 0 else math.nan, aic, aicc, bic, n, dof, bool(converged),
-        message, diagnostics, data.time_s, data.values, problem.model(theta), residual, model.species,
-        data.columns, data.source, n_evaluations, tuple(warnings), failed, model, data, options)
+        message, diagnostics, data.time_s, data.values, fitted, residual, model.species,
+        data.columns, data.source, n_evaluations, tuple(g.message for g in found), failed, model, data,
+        options, tuple(found))
 
 
 # ---------------------------------------------------------------- convenience entry points
@@ -730,7 +843,8 @@ def refit(previous: FitResult, data: ConcentrationData, *, profile=None) -> FitR
     opts = previous.options
     return fit_model(data, previous.model, start=start, fixed=opts.fixed, bounds=opts.bounds,
                      profile=opts.profile if profile is None else profile, bootstrap=0,
-                     absolute_sigma=opts.absolute_sigma, tol=opts.tol, max_nfev=opts.max_nfev, warm=True)
+                     absolute_sigma=opts.absolute_sigma, tol=opts.tol, max_nfev=opts.max_nfev, warm=True,
+                     weighting=opts.weighting, guardrails=opts.guardrails)
 
 
 def fit_arrays(time_s, values, model: RateModel | str, observed="reactant", sigma=None, **options) -> FitResult:

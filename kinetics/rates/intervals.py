@@ -354,26 +354,6 @@ def numeric_gradient(func, theta, stderr):
     return np.array(grads)
 
 
-def runs_test(residual):
-    """Wald-Wolfowitz runs test on residual signs (Wald & Wolfowitz 1940).
-
-    Returns ``(runs, expected_runs, z, two_sided_p)``; too few runs means a systematic
-    misfit (the model misses the curvature of the data).
-    """
-    r = np.asarray(residual, dtype=float)
-    signs = np.sign(r[r != 0])
-    n_pos, n_neg = int(np.sum(signs > 0)), int(np.sum(signs < 0))
-    n = n_pos + n_neg
-    if n_pos == 0 or n_neg == 0 or n < 3:
-        return (1 if n else 0), float("nan"), float("nan"), float("nan")
-    runs = 1 + int(np.sum(signs[1:] != signs[:-1]))
-    mean = 2.0 * n_pos * n_neg / n + 1.0
-    variance = (mean - 1.0) * (mean - 2.0) / (n - 1.0)
-    z = (runs - mean) / np.sqrt(variance) if variance > 0 else float("nan")
-    p = float(2.0 * stats.norm.sf(abs(z))) if np.isfinite(z) else float("nan")
-    return runs, float(mean), float(z), p
-
-
 def lag1_autocorrelation(residual_rows) -> float:
     """Lag-1 autocorrelation of residuals, pooled over the rows (each row a time series)."""
     numerator, denominator = 0.0, 0.0

@@ -38,6 +38,11 @@ class ConcentrationData:
         File name or ``"<arrays>"``.
     warnings : tuple of str
         Things worth knowing that do not stop a fit (e.g. negative concentrations).
+    row_labels : tuple of str
+        How messages name each time point (``"line 7"``, a spectrum's file name); empty:
+        ``"point i"`` (0-based).
+    notes : tuple of kinetics.rates.diagnostics.Guardrail
+        Coded findings about the table itself (mass balance, unit hints).
     """
 
     time_s: np.ndarray
@@ -46,10 +51,26 @@ class ConcentrationData:
     columns: tuple
     source: str = "<arrays>"
     warnings: tuple = field(default_factory=tuple)
+    row_labels: tuple = field(default_factory=tuple)
+    notes: tuple = field(default_factory=tuple)
 
     @property
     def n_points(self) -> int:
         return int(self.values.size)
+
+    def label(self, index: int) -> str:
+        """Name of time point ``index`` in messages, with its time."""
+        t = f"t = {self.time_s[index]:.4g} s"
+        if len(self.row_labels) == self.time_s.size:
+            return f"{self.row_labels[index]} ({t})"
+        return f"point {index} ({t})"
+
+    def point_labels(self) -> list:
+        """One label per value of ``values.ravel()`` (series name added when several)."""
+        labels = [self.label(i) for i in range(self.time_s.size)]
+        if len(self.columns) == 1:
+            return labels
+        return [f"{column!r} at {label}" for column in self.columns for label in labels]
 
     def appended(self, time_s, values, sigma=None) -> "ConcentrationData":
         """A new record with later points added (for live refits)."""
@@ -58,7 +79,11 @@ class ConcentrationData:
         s = None
         if self.sigma is not None:
             s = np.hstack([self.sigma, np.asarray(sigma, dtype=float).reshape(len(self.columns), -1)])
-        return from_arrays(t, v, s, self.columns, self.source)
+        labels = None
+        if self.row_labels and len(self.row_labels) == self.time_s.size:
+            labels = tuple(self.row_labels) + tuple(
+                f"point {i}" for i in range(self.time_s.size, t.size))
+        return from_arrays(t, v, s, self.columns, self.source, row_labels=labels)
 
 
 def _validate(time_s, values, sigma, columns, source, lines=None):
@@ -120,7 +145,8 @@ def _validate(time_s, values, sigma, columns, source, lines=None):
     return (message, early) if early else (message,)
 
 
-def from_arrays(time_s, values, sigma=None, columns=None, source="<arrays>") -> ConcentrationData:
+def from_arrays(time_s, values, sigma=None, columns=None, source="<arrays>", *,
+                row_labels=None, notes=()) -> ConcentrationData:
     """Validate arrays into :class:`ConcentrationData`.
 
     Parameters
@@ -130,6 +156,11 @@ def from_arrays(time_s, values, sigma=None, columns=None, source="<arrays>") -> 
     sigma : array like ``values``, optional
     columns : sequence of str, optional
         Names of the rows (default ``c0, c1, ...``).
+    row_labels : sequence of str, optional
+        How messages name each time point (e.g. the spectrum's file name).
+    notes : sequence of kinetics.rates.diagnostics.Guardrail, optional
+        Findings about the series to carry into the fit's warnings, e.g.
+        ``diagnostics.mass_balance_note(flags, files)`` from a run's table.
     """
     t = np.asarray(time_s, dtype=float).ravel()
     v = np.atleast_2d(np.asarray(values, dtype=float))
@@ -142,7 +173,10 @@ def from_arrays(time_s, values, sigma=None, columns=None, source="<arrays>") -> 
             raise FitError(f"{source}: sigma shape {s.shape} differs from values {v.shape}")
     columns = tuple(columns) if columns is not None else tuple(f"series{i}" for i in range(v.shape[0]))
     warnings = _validate(t, v, s, columns, source)
-    return ConcentrationData(t, v, s, columns, source, warnings)
+    labels = tuple(str(x) for x in row_labels) if row_labels is not None else ()
+    if labels and len(labels) != t.size:
+        raise FitError(f"{source}: {len(labels)} row labels for {t.size} time points")
+    return ConcentrationData(t, v, s, columns, source, warnings, labels, tuple(notes))
 
 
 def read_rows(path) -> tuple[list, list, list, int]:
@@ -191,18 +225,52 @@ def _number(cell, path, line, column):
                              hint="use a dot as decimal separator and no units in cells") from None
 
 
-def read_concentration_table(path, time_column, columns, sigma_columns=None) -> ConcentrationData:
+#: ``--time-unit`` choices and their length in seconds.
+TIME_UNITS = {"s": 1.0, "min": 60.0, "h": 3600.0}
+#: ``--concentration-unit`` choices and their size in mol/L.
+CONCENTRATION_UNITS = {"mol/L": 1.0, "mmol/L": 1e-3, "umol/L": 1e-6}
+
+_TIME_NAME_HINTS = (("min", ("min", "minute")), ("h", ("hour", "_h", "(h)", "[h]", " h")))
+_CONC_NAME_HINTS = (("mmol/L", ("mmol", "mm)", "_mm", "[mm]", "(mm)")), ("umol/L", ("umol", "µmol", "_um")))
+
+
+def _unit_hint(name: str, given, table, kind):
+    """A note when a column name suggests another unit than the one in force."""
+    lowered = name.lower()
+    for unit, marks in table:
+        if any(lowered.endswith(m) or m in lowered for m in marks):
+            if given is None:
+                from kinetics.rates.diagnostics import Guardrail
+
+                option = "--time-unit" if kind == "time" else "--concentration-unit"
+                default = "s" if kind == "time" else "mol/L"
+                return Guardrail(
+                    "unit_hint", f"column {name!r} looks like {unit}, but it was read as {default}: "
+                    f"if so, pass {option} {unit} (rate constants are otherwise off by a constant factor)",
+                    "warning", {"column": name, "suggested_unit": unit})
+    return None
+
+
+def read_concentration_table(path, time_column, columns, sigma_columns=None, *, time_unit=None,
+                             concentration_unit=None) -> ConcentrationData:
     """Read and validate a delimited concentration table.
 
     Parameters
     ----------
     path : str or Path
     time_column : str
-        Column with times in seconds from the reaction start.
+        Column with times from the reaction start (seconds unless ``time_unit``).
     columns : sequence of str
-        Concentration columns (mol L^-1), one per observed series.
+        Concentration columns (mol L^-1 unless ``concentration_unit``), one per observed series.
     sigma_columns : sequence of str, optional
-        Uncertainty columns, one per entry of ``columns`` (same order).
+        Uncertainty columns, one per entry of ``columns`` (same order, same unit).
+    time_unit : {"s", "min", "h"}, optional
+        Unit of the time column; converted to seconds.
+    concentration_unit : {"mol/L", "mmol/L", "umol/L"}, optional
+        Unit of the concentration and sigma columns; converted to mol/L.
+
+    A ``file`` column (as in a run's ``series.csv``) names the rows in messages; a
+    ``mass_balance_flag`` column is summarised into a ``mass_balance`` note.
 
     Raises
     ------
@@ -213,6 +281,11 @@ def read_concentration_table(path, time_column, columns, sigma_columns=None) -> 
         Fewer than 3 points or a constant column.
     """
     path = Path(path)
+    if time_unit is not None and time_unit not in TIME_UNITS:
+        raise InputFileError(path, f"unknown time unit {time_unit!r}", hint="use " + ", ".join(TIME_UNITS))
+    if concentration_unit is not None and concentration_unit not in CONCENTRATION_UNITS:
+        raise InputFileError(path, f"unknown concentration unit {concentration_unit!r}",
+                             hint="use " + ", ".join(CONCENTRATION_UNITS))
     header, rows, lines, header_line = _read_rows(path)
     columns = list(columns)
     sigma_columns = list(sigma_columns or [])
@@ -236,10 +309,26 @@ def read_concentration_table(path, time_column, columns, sigma_columns=None) -> 
     def column(name):
         return np.array([_number(row[index[name]], path, line, name) for row, line in zip(rows, lines)])
 
-    t = column(time_column)
-    v = np.vstack([column(name) for name in columns]) if columns else np.empty((0, len(rows)))
-    s = np.vstack([column(name) for name in sigma_columns]) if sigma_columns else None
+    t_factor = TIME_UNITS[time_unit or "s"]
+    c_factor = CONCENTRATION_UNITS[concentration_unit or "mol/L"]
+    t = column(time_column) * t_factor
+    v = np.vstack([column(name) for name in columns]) * c_factor if columns else np.empty((0, len(rows)))
+    s = np.vstack([column(name) for name in sigma_columns]) * c_factor if sigma_columns else None
     if not columns:
         raise InputFileError(path, "no concentration column given", hint="pass --column NAME")
     warnings = _validate(t, v, s, tuple(columns), str(path), lines)
-    return ConcentrationData(t, v, s, tuple(columns), str(path), warnings)
+    if "file" in index:
+        labels = tuple(f"{row[index['file']].strip()} (line {line})" for row, line in zip(rows, lines))
+    else:
+        labels = tuple(f"line {line}" for line in lines)
+    notes = [_unit_hint(time_column, time_unit, _TIME_NAME_HINTS, "time")]
+    notes += [_unit_hint(name, concentration_unit, _CONC_NAME_HINTS, "concentration") for name in columns]
+    if "mass_balance_flag" in index:
+        from kinetics.rates.diagnostics import mass_balance_note
+
+        flags = [row[index["mass_balance_flag"]].strip().lower() in ("true", "1", "yes") for row in rows]
+        deviation = column("mass_balance_deviation_sigma") if "mass_balance_deviation_sigma" in index else None
+        names = [row[index["file"]].strip() for row in rows] if "file" in index else [f"line {x}" for x in lines]
+        notes += mass_balance_note(flags, names, deviation)
+    return ConcentrationData(t, v, s, tuple(columns), str(path), warnings, labels,
+                             tuple(n for n in notes if n is not None))

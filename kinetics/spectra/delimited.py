@@ -40,9 +40,10 @@ from pathlib import Path
 
 import numpy as np
 
+from kinetics.atomic import write_atomic
 from kinetics.errors import InputFileError
-from kinetics.spectra.reader import MAX_POINTS, LoadedText, atomic_write_text
 from kinetics.spectra.spectrum import Spectrum
+from kinetics.spectra.text import MAX_POINTS, LoadedText, expect_format, load_text, parse_guarded
 
 log = logging.getLogger(__name__)
 
@@ -262,9 +263,9 @@ def _whole(path: str, meta: dict, value: float) -> int:
 
 def read_delimited(path: str | Path) -> Spectrum:
     """Read a delimited-text spectrum (refuses JCAMP-DX content; see ``reader.read``)."""
-    from kinetics.spectra.reader import load_text, parse_loaded
-
-    return parse_loaded(load_text(path), expected_format="delimited")
+    loaded = load_text(path)
+    expect_format(loaded, "delimited")
+    return parse_guarded(loaded, parse_delimited)
 
 
 def csv_text(spectrum: Spectrum) -> str:
@@ -290,7 +291,7 @@ def csv_text(spectrum: Spectrum) -> str:
 
 def write_csv(path: str | Path, spectrum: Spectrum) -> Path:
     """Write a spectrum as CSV with ``# key: value`` metadata, atomically (exact round trip)."""
-    atomic_write_text(path, csv_text(spectrum), encoding="utf-8")
+    write_atomic(path, csv_text(spectrum))
     return Path(path)
 
 

@@ -25,8 +25,8 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-from scipy.signal import find_peaks
 
+from kinetics.spectra.peaks import difference_sigma, pick_peaks as find_lines
 from kinetics.spectra.reader import detect_format, load_text, parse_loaded
 from kinetics.spectra.spectrum import Fid, Spectrum
 
@@ -40,7 +40,8 @@ MAX_PEAKS = 10
 
 
 def noise_sigma(values: np.ndarray) -> float:
-    """Robust noise standard deviation of a spectrum, from the MAD of its first difference.
+    """Robust noise standard deviation of a spectrum, from the MAD of its first difference
+    (:func:`kinetics.spectra.peaks.difference_sigma`).
 
     Parameters
     ----------
@@ -52,12 +53,7 @@ def noise_sigma(values: np.ndarray) -> float:
         Estimated standard deviation of the point-to-point noise (> 0 unless the data
         are constant).
     """
-    step = np.diff(np.asarray(values, dtype=float))
-    mad = np.median(np.abs(step - np.median(step)))
-    sigma = 1.4826 * mad / np.sqrt(2.0)
-    if sigma == 0.0:  # quantised or noiseless data: fall back on the mean deviation
-        sigma = float(np.mean(np.abs(step - np.mean(step)))) / np.sqrt(2.0)
-    return float(sigma)
+    return difference_sigma(np.asarray(values, dtype=float))
 
 
 def pick_peaks(spectrum: Spectrum, max_peaks: int = MAX_PEAKS,
@@ -74,29 +70,19 @@ def pick_peaks(spectrum: Spectrum, max_peaks: int = MAX_PEAKS,
     if sigma <= 0:
         return []
     level = float(np.median(real))
-    indices, _ = find_peaks(real, prominence=prominence_snr * sigma)
-    if indices.size == 0:
+    found = find_lines(real, prominence=prominence_snr * sigma)
+    if len(found) == 0:
         return []
-    order = np.argsort(real[indices])[::-1][:max_peaks]
+    ppm = spectrum.ppm
     peaks = []
-    for index in indices[order]:
+    for j in found.tallest(max_peaks):
+        index = int(found.index[j])  # a maximum is never an end point: both neighbours exist
         peaks.append({
-            "ppm": _refined_ppm(spectrum.ppm, real, int(index)),
+            "ppm": float(ppm[index] + found.offset_points[j] * (ppm[index + 1] - ppm[index - 1]) / 2.0),
             "height": float(real[index] - level),
             "snr": float((real[index] - level) / sigma),
         })
     return peaks
-
-
-def _refined_ppm(ppm: np.ndarray, real: np.ndarray, index: int) -> float:
-    if index == 0 or index == real.size - 1:
-        return float(ppm[index])
-    left, centre, right = real[index - 1: index + 2]
-    curvature = left - 2.0 * centre + right
-    if curvature >= 0:
-        return float(ppm[index])
-    offset = 0.5 * (left - right) / curvature  # vertex of the parabola, in points
-    return float(ppm[index] + offset * (ppm[index + 1] - ppm[index - 1]) / 2.0)
 
 
 def _magnitude_spectrum(fid: Fid) -> Spectrum:

@@ -1,0 +1,244 @@
+"""The whole job of ``kinetics run``: a run config or a study config, then the report.
+
+* :func:`run_single` - a finished folder through the run engine
+  (:func:`kinetics.run.engine.batch_run`: ledger, series table, fit), then the report;
+* :func:`run_study_config` - a temperature study (:func:`kinetics.study.run_study`; runs
+  given as run configs go through the same engine), then the report.
+
+The report pieces (:func:`run_sections`, :func:`study_sections`, ...) are shared with the
+demo (``watchers.workflow``, which follows the demo runs live).  Every function returns a
+plain record the CLI prints; none prints itself.
+"""
+
+from __future__ import annotations
+
+import logging
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from kinetics import report as rp
+from kinetics.errors import InputFileError, KineticsError
+
+log = logging.getLogger(__name__)
+
+#: how many spectra the stacked plot of a run shows
+STACKED_TRACES = 12
+
+
+@dataclass(frozen=True)
+class RunOutcome:
+    """One run through the pipeline: where it wrote, what it found."""
+
+    label: str
+    out_dir: Path
+    config_path: Path
+    table: pd.DataFrame
+    fit: Any  # kinetics.rates.fit.FitResult or None
+    counts: dict
+    stop_reason: str
+    temperature_c: float | None = None
+
+    def k(self) -> dict | None:
+        """The fitted rate constant as a parameter dict, or None."""
+        if self.fit is None:
+            return None
+        name = next((n for n in self.fit.varying if n.startswith("k")), None)
+        return None if name is None else self.fit.param(name).to_dict()
+
+
+@dataclass(frozen=True)
+class JobOutcome:
+    """What ``kinetics run`` or ``kinetics demo`` did, for the CLI to print."""
+
+    kind: str  # "run", "study" or "demo"
+    out_dir: Path
+    report_html: Path | None
+    report_pdf: Path | None
+    runs: tuple[RunOutcome, ...] = ()
+    study: Any = None  # kinetics.study.StudyResult
+    notes: tuple[str, ...] = ()
+    truth: dict = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        out = {
+            "kind": self.kind, "out_dir": str(self.out_dir),
+            "report_html": None if self.report_html is None else str(self.report_html),
+            "report_pdf": None if self.report_pdf is None else str(self.report_pdf),
+            "runs": [{"label": r.label, "temperature_c": r.temperature_c, "out_dir": str(r.out_dir),
+                      "n_spectra": int(len(r.table)), "counts": r.counts, "stop_reason": r.stop_reason,
+                      "k_per_s": r.k(), "converged": None if r.fit is None else bool(r.fit.converged),
+                      "message": None if r.fit is None else r.fit.message} for r in self.runs],
+            "notes": list(self.notes),
+        }
+        if self.study is not None:
+            out["study"] = self.study.to_dict()
+        if self.truth:
+            out["truth"] = self.truth
+        return out
+
+
+# ---------------------------------------------------------------- report pieces
+def _processed_spectra(config, files: list[Path]) -> list:
+    """A few of the run's spectra, processed as the run processed them, for the stacked plot."""
+    from kinetics.spectra import read
+
+    pipeline = config.pipeline
+    picks = np.unique(np.linspace(0, len(files) - 1, min(STACKED_TRACES, len(files))).round().astype(int))
+    out = []
+    for index in picks:
+        try:
+            out.append((int(index), pipeline(read(files[index])).spectrum))
+        except InputFileError as error:  # quarantined in the ledger already; skip in the plot
+            log.warning("stacked plot skips %s: %s", files[index], error)
+    return out
+
+
+def run_sections(run: RunOutcome, config, with_spectra: bool, comparison: bool) -> list:
+    from kinetics.rates.compare import compare_models
+
+    sections = []
+    folder = Path(config.folder)
+    files = [folder / name for name in run.table["file"]] if len(run.table) else []
+    if with_spectra and files:
+        picked = _processed_spectra(config, files)
+        if picked:
+            windows = [(sig.name, min(sig.window_ppm), max(sig.window_ppm)) for sig in config.signals]
+            times = run.table["time_s"].to_numpy(float)
+            sections.append(rp.spectra_section([s for _, s in picked], windows=windows,
+                                               time_s=[times[i] for i, _ in picked],
+                                               heading=f"Spectra through time: {run.label}"))
+    if run.fit is not None:
+        ranking = None
+        fit_section = dict(config.sections.get("fit", {}) or {})
+        if comparison and run.fit.data is not None and "mechanism" not in fit_section:
+            try:
+                ranking = compare_models(run.fit.data, observed=fit_section.get("observed", "reactant"))
+            except KineticsError as error:  # a comparison that cannot run must not lose the report
+                log.warning("model comparison skipped for %s: %s", run.label, error)
+        sections.append(rp.fit_section(run.fit, heading=f"Rate law: {run.label}", comparison=ranking,
+                                       name=f"fit_{_slug(run.label)}"))
+    return sections
+
+
+def _slug(text: str) -> str:
+    return "".join(c if c.isalnum() else "_" for c in text).strip("_").lower() or "run"
+
+
+def inputs_of(runs: list[RunOutcome]) -> pd.DataFrame:
+    rows = []
+    for run in runs:
+        for name, digest in zip(run.table.get("file", []), run.table.get("sha256", [])):
+            rows.append({"run": run.label, "file": name, "sha256": digest})
+    return pd.DataFrame(rows, columns=["run", "file", "sha256"])
+
+
+def summary_of(runs: list[RunOutcome], study=None) -> dict[str, str]:
+    summary = {}
+    for run in runs:
+        k = run.k()
+        if k and k.get("value") is not None and k.get("ci95"):
+            lo, hi = k["ci95"]
+            summary[f"k, {run.label}"] = f"{k['value']:.4g} {k['unit']} (95 %: {lo:.4g} to {hi:.4g})"
+    if study is not None and study.temperature is not None:
+        data = study.temperature.to_dict()
+        for key, label in (("ea_kj_per_mol", "Ea"), ("dh_kj_per_mol", "dH‡"), ("ds_j_per_mol_k", "dS‡")):
+            entry = data.get(key) or {}
+            if entry.get("value") is not None and entry.get("ci95"):
+                summary[label] = (f"{entry['value']:.4g} {entry['unit']} (95 %: {entry['ci95'][0]:.4g} "
+                                  f"to {entry['ci95'][1]:.4g})")
+    return summary
+
+
+def study_sections(study) -> list:
+    sections = []
+    if study.temperature is not None:
+        sections.append(rp.temperature_section(study.temperature, heading="Temperature dependence (two-step)"))
+    if study.global_result is not None:
+        blocks = []
+        try:
+            blocks.append(rp.TableBlock("Two-step and global estimates compared",
+                                        pd.DataFrame(study.global_result.comparison()),
+                                        name="two_step_vs_global",
+                                        caption="Global: every concentration of every run fitted at once with "
+                                                "k(T) = k_ref exp(-(Ea/R)(1/T - 1/T_ref))."))
+        except KineticsError as error:
+            log.warning("global-fit comparison table skipped: %s", error)
+        blocks.append(rp.TextBlock("Global fit report", (study.global_result.report(),), preformatted=True))
+        sections.append(rp.Section("Global fit across temperature", tuple(blocks)))
+    return sections
+
+
+# ---------------------------------------------------------------- single run
+def outcome_of(label: str, config_path: Path, out_dir: Path, summary, temperature_c=None) -> RunOutcome:
+    """A finished run (its :class:`~kinetics.run.engine.RunSummary`) as a RunOutcome."""
+    table = summary.table if summary.table is not None else pd.DataFrame()
+    outcome = summary.outcome
+    fit = None if outcome is None else outcome.state
+    return RunOutcome(label, out_dir, config_path, table, fit, dict(summary.counts), summary.stop_reason,
+                      temperature_c)
+
+
+def run_single(config_path: str | Path, out_dir: str | Path, report: bool = True) -> JobOutcome:
+    """A run config over its finished folder: ledger, series, fit (batch = live path), report."""
+    from kinetics.config import load_run_config
+    from kinetics.run.engine import batch_run, plan_from_config
+    from kinetics.run.files import check_folder
+
+    config_path = Path(config_path)
+    out_dir = Path(out_dir)
+    config = load_run_config(config_path)
+    check_folder(config.folder)  # a missing folder is named before anything else
+    summary = batch_run(plan_from_config(config, out_dir / "ledger.sqlite"), out_dir)
+    run = outcome_of(config_path.stem, config_path, out_dir, summary)
+    html = pdf = None
+    if report:
+        files = rp.write_report(
+            out_dir / "report", *run_sections(run, config, with_spectra=True, comparison=True),
+            title=f"Reaction kinetics: {config_path.stem}",
+            provenance=rp.Provenance(config_text=config_path.read_text(encoding="utf-8"),
+                                     input_files=inputs_of([run])),
+            summary=summary_of([run]))
+        html, pdf = files.html, files.pdf
+    return JobOutcome("run", out_dir, html, pdf, runs=(run,))
+
+
+# ---------------------------------------------------------------- study
+def run_study_config(config_path: str | Path, out_dir: str | Path, report: bool = True) -> JobOutcome:
+    """A temperature-study config: per-run fits, Arrhenius, Eyring, global fit, report."""
+    from kinetics.study import run_study
+
+    config_path = Path(config_path)
+    out_dir = Path(out_dir)
+    study = run_study(config_path, out_dir)
+    html = pdf = None
+    if report:
+        files = rp.write_report(
+            out_dir / "report", *study_sections(study), title=f"Temperature study: {study.name}",
+            provenance=rp.Provenance(config_text=config_path.read_text(encoding="utf-8")),
+            summary=summary_of([], study))
+        html, pdf = files.html, files.pdf
+    return JobOutcome("study", out_dir, html, pdf, study=study)
+
+
+def is_study_file(config_path: str | Path) -> bool:
+    """True when the TOML file is a temperature study (a top-level ``[study]`` table)."""
+    from kinetics.config import is_study_config
+
+    path = Path(config_path)
+    try:
+        with open(path, "rb") as handle:
+            raw = tomllib.load(handle)
+    except FileNotFoundError:
+        raise InputFileError(path, "config file not found", hint="check the path") from None
+    except IsADirectoryError:
+        raise InputFileError(path, "is a folder, not a config file", hint="give the .toml file") from None
+    except tomllib.TOMLDecodeError as error:
+        raise InputFileError(path, f"not valid TOML: {error}", hint="fix the syntax at the place named") from None
+    except UnicodeDecodeError:
+        raise InputFileError(path, "not a text file", hint="give the .toml config") from None
+    return is_study_config(raw)

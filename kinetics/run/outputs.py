@@ -1,0 +1,301 @@
+"""What a run writes: its ledger lock, the series table, the fit, the figure and the page.
+
+* ``fit.json`` (the fit as JSON, with the counts, the quarantined files and, at the end,
+  the stop reason) — rewritten after every turn;
+* ``series.csv`` (the table), ``series.png`` (:func:`render_png`) and ``index.html``
+  (:func:`render_html`: the status lines and the figure inline, self-refreshing while
+  the run is live) — rewritten at most once per refresh interval, and at the end;
+* ``ledger.sqlite`` (:mod:`kinetics.store`); :class:`RunLock` keeps a second writer out.
+
+Every file is written atomically (:func:`kinetics.atomic.write_atomic`), so a reader or a
+crash never sees half a file.
+"""
+
+from __future__ import annotations
+
+import base64
+import fcntl
+import html
+import io
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from kinetics.atomic import write_atomic
+from kinetics.jsonio import dumps
+from kinetics.store import OutputError, output_error, utc_now_iso
+
+LEDGER_NAME = "ledger.sqlite"
+OUTPUT_NAMES = ("series.csv", "fit.json", "series.png", "index.html")
+
+
+# ---------------------------------------------------------------- the output folder
+def prepare_out_dir(out_dir: Path) -> Path:
+    """Create the output folder and check it is writable (clear error otherwise)."""
+    out_dir = Path(out_dir)
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+        probe = out_dir / f".write-test.{os.getpid()}"
+        probe.write_bytes(b"")
+        probe.unlink()
+    except OSError as error:
+        raise output_error(out_dir, error) from error
+    return out_dir
+
+
+class RunLock:
+    """An exclusive lock on the output folder: one writer per ledger (freed on kill -9)."""
+
+    def __init__(self, out_dir: Path):
+        self.path = Path(out_dir) / ".run.lock"
+        self._handle = None
+
+    def __enter__(self) -> "RunLock":
+        try:
+            self._handle = open(self.path, "a")
+            fcntl.flock(self._handle, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError as error:
+            raise OutputError(self.path.parent, "another run is writing to this output folder",
+                              "stop it first, or choose another --out") from error
+        except OSError as error:
+            raise output_error(self.path, error) from error
+        return self
+
+    def __exit__(self, *exc) -> None:
+        if self._handle is not None:
+            self._handle.close()
+
+
+def remove_stale_temporaries(out_dir: Path) -> None:
+    """Delete temporaries a killed run left behind (the caller holds the run lock)."""
+    for name in OUTPUT_NAMES:
+        for stale in out_dir.glob(f".{name}.*.tmp"):
+            try:
+                stale.unlink()
+            except OSError:
+                pass
+
+
+# ---------------------------------------------------------------- status, figure and page
+@dataclass(frozen=True)
+class LiveStatus:
+    """Everything the views show, as plain values (built by the live loop).
+
+    ``k``, ``conversion`` and ``time_to_target_s`` are parameter dicts
+    (``{"value", "stderr", "ci95", "unit"}``) or None when not (yet) known.
+    ``concentrations`` maps signal -> (value, stderr or None) of the latest spectrum.
+    """
+
+    folder: str
+    started_utc: str
+    updated_utc: str
+    counts: dict[str, int]
+    latest_path: str | None = None
+    latest_acquired_utc: str | None = None
+    latest_time_s: float | None = None
+    concentrations: dict[str, tuple[float | None, float | None]] = field(default_factory=dict)
+    concentration_unit: str = "mol/L"
+    k: dict | None = None
+    k_name: str = "k"
+    conversion: dict | None = None
+    target_conversion: float | None = None
+    time_to_target_s: dict | None = None
+    fit_message: str = ""
+    quarantined: tuple[tuple[str, str], ...] = ()
+    pending: int = 0
+    stop_reason: str | None = None
+
+
+def _fmt(value: float | None, digits: int = 4) -> str:
+    return "–" if value is None else f"{value:.{digits}g}"
+
+
+def format_parameter(parameter: dict | None, digits: int = 4) -> str:
+    """``value [lo, hi] unit`` of a parameter dict, or a dash."""
+    if not parameter or parameter.get("value") is None:
+        return "–"
+    text = _fmt(parameter["value"], digits)
+    interval = parameter.get("ci95")
+    if interval and interval[0] is not None and interval[1] is not None:
+        text += f"  (95 %: {_fmt(interval[0], digits)} – {_fmt(interval[1], digits)})"
+    unit = parameter.get("unit")
+    return f"{text} {unit}" if unit else text
+
+
+def status_lines(status: LiveStatus) -> list[tuple[str, str]]:
+    """The view's content as (label, text) pairs, shared by the terminal and the page."""
+    counts = status.counts
+    lines = [
+        ("folder", status.folder),
+        ("latest spectrum", status.latest_path or "none yet"),
+        ("acquired", status.latest_acquired_utc or "–"),
+    ]
+    if status.latest_time_s is not None:
+        lines.append(("time from start", f"{status.latest_time_s:.1f} s"))
+    for name, (value, stderr) in status.concentrations.items():
+        text = _fmt(value)
+        if stderr is not None:
+            text += f" ± {_fmt(stderr, 2)}"
+        lines.append((name, f"{text} {status.concentration_unit}"))
+    lines.append((status.k_name, format_parameter(status.k)))
+    if status.conversion is not None:
+        lines.append(("conversion", format_parameter(status.conversion, 3)))
+    if status.target_conversion is not None:
+        lines.append((f"time to {status.target_conversion:.0%}",
+                      format_parameter(status.time_to_target_s)))
+    if status.fit_message:
+        lines.append(("fit", status.fit_message))
+    lines.append(("files", f"{counts.get('processed', 0)} processed, "
+                           f"{counts.get('duplicate', 0)} duplicate, "
+                           f"{counts.get('quarantined', 0)} quarantined, "
+                           f"{counts.get('replaced', 0)} replaced, {status.pending} waiting"))
+    for path, reason in status.quarantined[-5:]:
+        lines.append(("quarantined", f"{path}: {reason}"))
+    if status.stop_reason:
+        lines.append(("stopped", status.stop_reason))
+    lines.append(("updated", status.updated_utc))
+    return lines
+
+
+# ---------------------------------------------------------------- figure
+def render_png(table: pd.DataFrame, signals: list[str], curve: dict | None = None,
+               sigma_suffix: str = "_stderr", title: str = "") -> bytes:
+    """PNG of the series: one marker per spectrum and signal, the fitted curves as lines.
+
+    Parameters
+    ----------
+    table : DataFrame
+        Needs ``time_s`` and one column per name in ``signals`` (``<name><sigma_suffix>``
+        optional, drawn as error bars).
+    curve : dict, optional
+        ``{"time_s": [...], name: [...]}`` of the fitted model.
+    """
+    from matplotlib.figure import Figure  # no pyplot: no global state, no window
+
+    figure = Figure(figsize=(7.0, 4.0), dpi=90)
+    axes = figure.add_subplot()
+    if len(table):
+        for name in signals:
+            if name not in table:
+                continue
+            stderr = table.get(f"{name}{sigma_suffix}")
+            axes.errorbar(table["time_s"], table[name],
+                          yerr=None if stderr is None else stderr.to_numpy(dtype=float),
+                          fmt="o", markersize=3, capsize=0, label=name)
+    if curve:
+        time_s = np.asarray(curve.get("time_s", []), dtype=float)
+        for name, values in curve.items():
+            if name != "time_s" and len(values) == len(time_s):
+                axes.plot(time_s, values, "-", linewidth=1.2, label=f"{name} fit")
+    axes.set_xlabel("time from start / s")
+    axes.set_ylabel("concentration")
+    if title:
+        axes.set_title(title, fontsize=10)
+    if axes.get_legend_handles_labels()[0]:
+        axes.legend(fontsize=8)
+    figure.tight_layout()
+    buffer = io.BytesIO()
+    figure.savefig(buffer, format="png")
+    return buffer.getvalue()
+
+
+# ---------------------------------------------------------------- page
+def render_html(status: LiveStatus, png: bytes | None, refresh_s: float | None) -> str:
+    """The run page: a table of the status lines and the plot inline.
+
+    ``refresh_s`` None (the final page) leaves out the meta refresh.
+    """
+    refresh = "" if refresh_s is None else (
+        f'<meta http-equiv="refresh" content="{max(1, int(round(refresh_s)))}">')
+    rows = "\n".join(
+        f"<tr><th>{html.escape(label)}</th><td>{html.escape(text)}</td></tr>"
+        for label, text in status_lines(status))
+    image = ""
+    if png:
+        encoded = base64.b64encode(png).decode("ascii")
+        image = f'<img alt="concentrations against time" src="data:image/png;base64,{encoded}">'
+    state = "run ended" if status.stop_reason else "live"
+    return (
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+        f"{refresh}<title>kinetics — {state}</title>"
+        "<style>body{font-family:sans-serif;margin:1.5em}th{text-align:left;padding-right:1em;"
+        "font-weight:normal;color:#555}td{font-family:monospace}</style></head><body>"
+        f"<h1>kinetics — {state}</h1>{image}<table>{rows}</table></body></html>\n"
+    )
+
+
+def _float(value) -> float | None:
+    try:
+        value = float(value)
+    except (TypeError, ValueError):
+        return None
+    return value if value == value else None
+
+
+def run_status(state, pending: int = 0, stop_reason: str | None = None) -> LiveStatus:
+    """The status of a :class:`kinetics.run.engine.RunState` as the views show it."""
+    plan, outcome, table = state.plan, state.outcome, state.table
+    latest_path = latest_acquired = latest_time = None
+    concentrations: dict[str, tuple[float | None, float | None]] = {}
+    if table is not None and len(table):
+        last = table.iloc[-1]
+        latest_path = next((str(last[c]) for c in ("path", "file") if c in table), None)
+        latest_acquired = next((str(last[c]) for c in ("acquired_utc", "acquired_mid_utc")
+                                if c in table), None)
+        latest_time = float(last["time_s"])
+        for name in plan.signals:
+            if name in table:
+                stderr = last.get(f"{name}{plan.sigma_suffix}")
+                concentrations[name] = (_float(last[name]), _float(stderr))
+    return LiveStatus(
+        folder=str(plan.spec.folder), started_utc=state.started_utc,
+        updated_utc=utc_now_iso(), counts=state.ledger.counts(), latest_path=latest_path,
+        latest_acquired_utc=latest_acquired, latest_time_s=latest_time,
+        concentrations=concentrations,
+        k=outcome.k if outcome else None,
+        conversion=outcome.conversion if outcome else None,
+        target_conversion=plan.target_conversion,
+        time_to_target_s=outcome.time_to_target_s if outcome else None,
+        fit_message="" if outcome is None or outcome.succeeded else outcome.message,
+        quarantined=tuple(state.ledger.quarantined()), pending=pending,
+        stop_reason=stop_reason)
+
+
+def write_table_and_fit(state, table: pd.DataFrame, status: LiveStatus, stop_reason: str | None,
+                        final: bool) -> None:
+    """``series.csv`` (unless ``table`` is None) and ``fit.json`` of a run state, atomically."""
+    if table is not None:
+        write_atomic(state.out_dir / "series.csv", table.to_csv(index=False))
+    document = {
+        "final": final,
+        "stop_reason": stop_reason,
+        "counts": status.counts,
+        "n_points": int(len(state.table)) if state.table is not None else 0,
+        "k": status.k,
+        "conversion": status.conversion,
+        "target_conversion": state.plan.target_conversion,
+        "time_to_target_s": status.time_to_target_s,
+        "quarantined": [{"path": p, "reason": r} for p, r in status.quarantined],
+        "fit": state.outcome.fit if state.outcome else None,
+    }
+    write_atomic(state.out_dir / "fit.json", dumps(document) + "\n")
+
+
+def figure_png(state, table: pd.DataFrame) -> bytes:
+    """The run's figure (concentrations and the fitted curve) as PNG bytes."""
+    return render_png(table, list(state.plan.signals), state.outcome.curve if state.outcome else None,
+                      state.plan.sigma_suffix)
+
+
+def write_page(state, status: LiveStatus, png: bytes, final: bool) -> None:
+    """``series.png`` and ``index.html`` of a run state, atomically."""
+    write_atomic(state.out_dir / "series.png", png)
+    write_atomic(state.out_dir / "index.html", render_html(status, png, None if final else state.refresh_s))
+
+
+__all__ = ["LEDGER_NAME", "LiveStatus", "OUTPUT_NAMES", "RunLock", "format_parameter", "prepare_out_dir",
+           "remove_stale_temporaries", "render_html", "render_png", "run_status", "status_lines",
+           "write_atomic"]
