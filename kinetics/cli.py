@@ -185,7 +185,8 @@ def _add_init(sub) -> None:
                    help="config to write (default: <folder name>.toml beside the folder)")
     p.add_argument("--force", action="store_true", help="replace an existing config")
     p.add_argument("--coupling-hz", type=float, default=8.0,
-                   help="largest J between adjacent lines of one multiplet, Hz (default 8; the two halves of a trans-alkene dd are joined without it)")
+                   help="largest spacing (x 1.6) of a bare doublet or an unexplained cluster, Hz (default 8); "
+                        "named patterns (dd, dt, dq ...) reach 20 Hz without it")
     p.set_defaults(func=_cmd_init)
 
 

@@ -21,7 +21,7 @@ from __future__ import annotations
 import math
 import re
 import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import datetime, timezone
 from pathlib import Path
 from types import MappingProxyType
@@ -236,6 +236,8 @@ class RunConfig:
         The processing pipeline of ``[processing]``, built once at load.
     unnamed : tuple of str
         Keys a draft still has to set before a rate can be fitted (empty when ready).
+    text : str or None
+        The file's text as read (the ledger keeps it), when loaded from a file.
     """
 
     path: Path | None
@@ -252,6 +254,7 @@ class RunConfig:
     live: LiveConfig = field(default_factory=LiveConfig)
     pipeline: Any = field(default=None, repr=False, compare=False)
     unnamed: tuple[str, ...] = ()
+    text: str | None = field(default=None, repr=False, compare=False)
 
     @property
     def processing(self) -> Mapping[str, Any]:
@@ -725,7 +728,7 @@ def load_run_config(path: str | Path) -> RunConfig:
     except tomllib.TOMLDecodeError as error:
         raise ConfigError("<syntax>", f"not valid TOML: {error}", source=path) from error
     try:
-        return run_config_from_dict(raw, path)
+        return replace(run_config_from_dict(raw, path), text=text)
     except ConfigError as error:
         if error.source is None:
             raise ConfigError(error.key, error.problem, error.hint, source=path) from None

@@ -104,6 +104,8 @@ PATTERN_NAMES = {"s": "singlet", "d": "doublet", "t": "triplet", "q": "quartet",
                  "dt": "doublet of triplets", "td": "triplet of doublets", "dq": "doublet of quartets",
                  "qd": "quartet of doublets", "tt": "triplet of triplets",
                  "ddd": "doublet of doublets of doublets", "m": "multiplet"}
+#: Most lines a named pattern can show (a tt has 9).
+_MAX_PATTERN_LINES = 9
 #: Patterns the deconvolution line shape can model (n lines, one J).
 _SIMPLE = {"s": 1, "d": 2, "t": 3, "q": 4, "quint": 5, "sext": 6, "sept": 7}
 
@@ -170,6 +172,12 @@ class ProposedWindow:
         Deconvolution group shared with a too-close neighbour ("" for a region integral).
     reference_candidate : bool
         The sharpest isolated unchanging singlet: proposed as reference and standard.
+    expected_ppm : float or None
+        Tabulated shift of a residual solvent singlet (a reference proposal when no TMS).
+    crowded : bool
+        The window stops short of its full margin at a neighbour.
+    neighbour_ppm : float
+        Distance from its lines to the nearest line of another multiplet (ppm).
     """
 
     name: str
@@ -187,6 +195,9 @@ class ProposedWindow:
     species: str = ""
     fit_group: str = ""
     reference_candidate: bool = False
+    expected_ppm: float | None = None
+    crowded: bool = False
+    neighbour_ppm: float = math.inf
 
     @property
     def centre_ppm(self) -> float:
@@ -560,20 +571,22 @@ def _partition(run: list[Peak], observe_mhz: float, resolution_hz: float, j_max_
                max_gap_hz: float) -> list[tuple[list[Peak], Pattern]]:
     n = len(run)
     x = np.array([p.shift_ppm * observe_mhz for p in run])
+    gaps = -np.diff(x)
     best: list[tuple[float, list] | None] = [(0.0, [])] + [None] * n
     for end in range(1, n + 1):
-        for start in range(max(0, end - 16), end):
+        for start in range(end - 1, -1, -1):
+            if start < end - 1 and gaps[start] > max_gap_hz and end - start > _MAX_PATTERN_LINES:
+                break  # neither a pattern nor an "m" can reach further back
             if best[start] is None:
                 continue
             segment = run[start:end]
-            seg_x = x[start:end]
-            if seg_x[0] - seg_x[-1] > 4.0 * j_max_hz:
-                continue
-            pattern = match_pattern(seg_x, [p.height for p in segment], [p.width_hz for p in segment],
-                                    _tolerance_hz(segment, resolution_hz), j_max_hz, d_max_hz=max_gap_hz)
+            pattern = None
+            if end - start <= _MAX_PATTERN_LINES:
+                pattern = match_pattern(x[start:end], [p.height for p in segment], [p.width_hz for p in segment],
+                                        _tolerance_hz(segment, resolution_hz), j_max_hz, d_max_hz=max_gap_hz)
             cost = 1.0
             if pattern is None:
-                if np.all(-np.diff(seg_x) <= max_gap_hz):
+                if np.all(gaps[start:end - 1] <= max_gap_hz):
                     pattern, cost = Pattern("m"), _M_COST
                 else:
                     continue
@@ -638,11 +651,11 @@ def _tail_reach_ppm(peak: Peak, noise: float, observe_mhz: float, cap_ppm: float
     return min(cap_ppm, max(reach_hz / observe_mhz, 0.1))
 
 
-def solvent_label(shift_ppm: float, dominant: bool, solvent: str | None = None) -> str | None:
-    """Name of the common solvent line nearest ``shift_ppm`` within its tolerance
-    (:data:`SOLVENT_LINES`, from memory), only among the lines of ``solvent`` when it is
-    known (e.g. the JCAMP-DX ``.SOLVENT NAME``); water lines also match a dominant line
-    with twice their tolerance."""
+def solvent_match(shift_ppm: float, dominant: bool, solvent: str | None = None) -> tuple[str, float] | None:
+    """The common solvent line nearest ``shift_ppm`` within its tolerance
+    (:data:`SOLVENT_LINES`, from memory): (label, tabulated ppm), or None.  Only the lines
+    of ``solvent`` count when it is known (e.g. the JCAMP-DX ``.SOLVENT NAME``); water
+    lines also match a dominant line with twice their tolerance."""
     best = None
     for label, where, tolerance, system in SOLVENT_LINES:
         if solvent and _solvent_key(system) != _solvent_key(solvent) and not (dominant and system == "H2O"):
@@ -650,8 +663,14 @@ def solvent_label(shift_ppm: float, dominant: bool, solvent: str | None = None) 
         reach = tolerance * (2.0 if dominant and ("water" in label or "HDO" in label) else 1.0)
         distance = abs(shift_ppm - where)
         if distance <= reach and (best is None or distance / reach < best[0]):
-            best = (distance / reach, label, where, system)
-    return None if best is None else f"{best[1]} ({best[2]:.2f} ppm, from memory)"
+            best = (distance / reach, label, where)
+    return None if best is None else (best[1], best[2])
+
+
+def solvent_label(shift_ppm: float, dominant: bool, solvent: str | None = None) -> str | None:
+    """:func:`solvent_match` as text: ``"CHCl3 in CDCl3 (7.26 ppm, from memory)"``."""
+    match = solvent_match(shift_ppm, dominant, solvent)
+    return None if match is None else f"{match[0]} ({match[1]:.2f} ppm, from memory)"
 
 
 def _solvent_system(spectrum: Spectrum) -> str | None:
@@ -678,9 +697,10 @@ def _nuclei_unit(integrals: list[float]) -> float:
 
     Candidates are each integral divided by 1, 2 or 3 (a CH, CH2 or CH3 group); a
     candidate is allowed only when every signal gets 1 to 9 nuclei; the one with the
-    smallest worst deviation from whole numbers wins, the larger unit on near-ties.  The
-    ratios of different species also carry their concentrations, so this is a guess the
-    user must check.
+    smallest deviation from whole numbers wins (the worst deviation, or with three or more
+    signals the second worst, so one integral spoilt by a solvent tail does not decide),
+    the larger unit on near-ties.  The ratios of different species also carry their
+    concentrations, so this is a guess the user must check.
     """
     if not integrals:
         return 1.0
@@ -690,10 +710,15 @@ def _nuclei_unit(integrals: list[float]) -> float:
         counts = values / unit
         if np.round(counts).min() < 1 or np.round(counts).max() > 9:
             continue
-        score = float(np.max(np.abs(counts - np.round(counts))))
+        score = _whole_number_misfit(counts)
         if score < best_score - 0.05:
             best_unit, best_score = unit, score
     return best_unit
+
+
+def _whole_number_misfit(counts: np.ndarray) -> float:
+    deviations = np.sort(np.abs(counts - np.round(counts)))
+    return float(deviations[-2] if deviations.size >= 3 else deviations[-1])
 
 
 @dataclass
@@ -707,6 +732,7 @@ class _Group:
     change: float | None = None
     mixed: bool = False
     reference_candidate: bool = False
+    expected_ppm: float | None = None
 
     @property
     def top(self) -> float:
@@ -719,19 +745,22 @@ class _Group:
 
 def _series_offset_ppm(first: list[_Group], later: list[_Group], observe_mhz: float) -> float:
     """Shift of the later spectrum against the first (field drift): the offset, within
-    0.03 ppm, that lines up the most line height of the two spectra."""
-    a = [(p.shift_ppm, p.height) for g in first for p in g.lines]
-    b = [(p.shift_ppm, p.height) for g in later for p in g.lines]
+    0.03 ppm, that lines up the most line height of the two spectra (their 40 tallest lines)."""
+    def tallest(groups):
+        lines = sorted((p for g in groups for p in g.lines), key=lambda p: -p.height)[:40]
+        return np.array([p.shift_ppm for p in lines]), np.array([p.height for p in lines])
+
+    (xa, ha), (xb, hb) = tallest(first), tallest(later)
+    if xa.size == 0 or xb.size == 0:
+        return 0.0
+    differences = xb[None, :] - xa[:, None]
+    pair_height = np.minimum(ha[:, None], hb[None, :])
     tolerance = 0.5 / observe_mhz
     best, best_score = 0.0, 0.0
-    for pa, _ in a:
-        for pb, _ in b:
-            offset = pb - pa
-            if abs(offset) > 0.03:
-                continue
-            score = sum(min(ha, hb) for xa, ha in a for xb, hb in b if abs(xb - xa - offset) <= tolerance)
-            if score > best_score * 1.000001:
-                best, best_score = offset, score
+    for offset in differences[np.abs(differences) <= 0.03]:
+        score = float(pair_height[np.abs(differences - offset) <= tolerance].sum())
+        if score > best_score * 1.000001:
+            best, best_score = float(offset), score
     return best
 
 
@@ -762,14 +791,15 @@ def _near(peak: Peak, lines: list[Peak], observe_mhz: float) -> bool:
     return any(abs(peak.shift_ppm - p.shift_ppm) * observe_mhz <= 1.5 for p in lines)
 
 
-def _merge_series(first: list[_Group], later: list[_Group], first_spectrum: Spectrum, last: Spectrum,
-                  observe_mhz: float, resolution_hz: float) -> list[_Group]:
+def _merge_series(first: list[_Group], later: list[_Group], observe_mhz: float,
+                  resolution_hz: float) -> tuple[list[_Group], float]:
     """Multiplets of the first and the last spectrum as one list.
 
     A multiplet of the last spectrum that overlaps none of the first appeared during the
-    series (``change`` = inf); one that overlaps a multiplet of the first with the same
-    pattern and centre is the same signal (``change`` = height ratio); anything else means
-    the lines of two species overlap there (``mixed``: left out of the draft).
+    series (``change`` = inf); one whose lines all match lines of the one multiplet it
+    overlaps (or the other way round) is the same signal; anything else means the lines of
+    two species overlap there (``mixed``: left out of the draft).  Also returns the drift
+    offset of the last spectrum (ppm).
     """
     offset = _series_offset_ppm(first, later, observe_mhz)
     merged = [_Group(list(g.lines), g.pattern, g.role, g.label, change=1.0) for g in first]
@@ -837,10 +867,12 @@ def _residual_solvents(groups: list[_Group], integrals: list[float], cutoff: flo
             return
         solvent = min(scored)[1]
     for group in candidates:
-        name = solvent_label(group.centre_ppm, dominant=False, solvent=solvent)
-        if name:
+        match = solvent_match(group.centre_ppm, dominant=False, solvent=solvent)
+        if match:
             group.role = "solvent"
-            group.label = f"residual solvent: {name}"
+            group.label = f"residual solvent: {match[0]} ({match[1]:.2f} ppm, from memory)"
+            if group.pattern.code == "s" and "water" not in match[0] and "HDO" not in match[0]:
+                group.expected_ppm = match[1]  # a residual CHCl3-type singlet can set the scale
 
 
 def _pick_reference_candidate(groups: list[_Group], observe_mhz: float) -> None:
@@ -868,21 +900,30 @@ def _pick_reference_candidate(groups: list[_Group], observe_mhz: float) -> None:
                         + ": a reference or internal standard?")
 
 
+def _fall_alike(a: float, b: float) -> bool:
+    return abs(a - b) <= 0.05 + 0.15 * max(a, b)
+
+
 def _placeholder_species(windows: list[dict]) -> None:
-    """Placeholder species by behaviour: falling signals whose heights fall alike share one."""
+    """Placeholder species by behaviour: falling signals whose heights fall alike share one
+    (not a crowded multiplet the line shapes cannot model: it keeps its own, so it cannot
+    bias the other signals, but its ``cluster`` still names the partners that share its
+    concentration, for the nuclei guess)."""
     counters = {"falls": 0, "rises": 0, "steady": 0, "species": 0}
     falling: list[tuple[float, str]] = []
+    deferred = []
     for window in windows:
         change = window["change"]
         if change is None:
             kind = "species"
         elif change < 0.8:
             kind = "falls"
-            for ratio, name in falling:
-                if abs(ratio - change) <= 0.05 + 0.15 * max(ratio, change):
-                    window["species"] = name
-                    break
-            if window.get("species"):
+            if window["crowded"] and window["group"].pattern.code not in _SIMPLE:
+                deferred.append(window)
+                continue
+            match = next((name for ratio, name in falling if _fall_alike(ratio, change)), None)
+            if match:
+                window["species"] = match
                 continue
         elif change > 1.25:
             kind = "rises"
@@ -892,6 +933,11 @@ def _placeholder_species(windows: list[dict]) -> None:
         window["species"] = f"{kind}_{counters[kind]}"
         if kind == "falls":
             falling.append((change, window["species"]))
+    for window in deferred:
+        counters["falls"] += 1
+        window["species"] = f"falls_{counters['falls']}"
+        window["cluster"] = next((name for ratio, name in falling if _fall_alike(ratio, window["change"])),
+                                 window["species"])
 
 
 def propose_windows(spectrum: Spectrum, *, later: Spectrum | None = None, snr_threshold: float = 8.0,
@@ -936,12 +982,11 @@ def propose_windows(spectrum: Spectrum, *, later: Spectrum | None = None, snr_th
         later_groups = [_Group(lines, pattern) for lines, pattern in
                         group_peaks(later_peaks, later.observe_mhz, max_gap, large_coupling_hz,
                                     resolution_hz=later.spacing_hz)]
-        groups, offset = _merge_series(groups, later_groups, spectrum, later, mhz, spectrum.spacing_hz)
+        groups, offset = _merge_series(groups, later_groups, mhz, spectrum.spacing_hz)
     solvent = _solvent_system(spectrum)
     _assign_roles(groups, solvent)
     bounds, crowded = _window_bounds([g.lines for g in groups], mhz, margin_hz,
                                      (spectrum.ppm_range[0], spectrum.ppm_range[1]))
-    reference_spectrum = spectrum if later is None else later
     cleaned = spectrum
     for group in groups:
         if group.role == "solvent":
@@ -989,14 +1034,13 @@ def propose_windows(spectrum: Spectrum, *, later: Spectrum | None = None, snr_th
     by_species: dict[str, list[float]] = {}
     for record in signal_records:
         if record["integral"] >= cutoff and not (record["group"].change or 0.0) > 4.0:
-            by_species.setdefault(record["species"], []).append(record["integral"])
+            by_species.setdefault(record.get("cluster") or record["species"], []).append(record["integral"])
     largest = max(by_species.values(), key=len, default=[])
     unit = _nuclei_unit([i for i, g in zip(integrals, groups)
                          if g.role == "signal" and not g.mixed and i >= cutoff and not (g.change or 0.0) > 4.0])
     if len(largest) >= 2:
         own = _nuclei_unit(largest)
-        counts = np.asarray(largest) / own
-        if np.max(np.abs(counts - np.round(counts))) <= 0.15:
+        if _whole_number_misfit(np.asarray(largest) / own) <= 0.15:
             unit = own
     _fit_groups(records, mhz, margin_hz, spectrum.ppm_range)
     windows = []
@@ -1015,8 +1059,14 @@ def propose_windows(spectrum: Spectrum, *, later: Spectrum | None = None, snr_th
         windows.append(ProposedWindow(
             name, tuple(float(v) for v in record["bounds"]), tuple(group.lines), group.role, integral, nuclei,
             float(j[0]) if j else None, minor, group.pattern, group.label, group.change, group.mixed,
-            record["species"], record.get("fit_group", ""), group.reference_candidate))
+            record["species"], record.get("fit_group", ""), group.reference_candidate, group.expected_ppm,
+            record["crowded"], _neighbour_ppm(group, groups)))
     return peaks, noise, threshold, windows
+
+
+def _neighbour_ppm(group: _Group, groups: list[_Group]) -> float:
+    return min((abs(p.shift_ppm - q.shift_ppm) for g in groups if g is not group for p in g.lines
+                for q in group.lines), default=math.inf)
 
 
 def _fit_groups(records: list[dict], observe_mhz: float, margin_hz: float, ppm_range) -> None:
@@ -1152,7 +1202,10 @@ def _pattern(files: list[Path], skipped: list[str]) -> str:
     return f"*{suffix}"
 
 
-def _signal_lines(window: ProposedWindow) -> list[str]:
+def _signal_lines(window: ProposedWindow, observe_mhz: float, fit_standard: bool = False) -> list[str]:
+    """One [[signals]] table with its comments.  ``fit_standard``: the standard candidate
+    is fitted too (a singlet line shape), so it is measured like the fitted analytes
+    (a region integral misses part of a Lorentzian's tails that a fit keeps)."""
     lo, hi = window.window_ppm
     notes = [_describe(window)]
     if window.mixed:
@@ -1160,6 +1213,9 @@ def _signal_lines(window: ProposedWindow) -> list[str]:
                      "left out (uncomment and give a fit group with two components to use it)")
     elif window.minor:
         notes.append("small signal: a solvent residue or an impurity? delete it if so")
+    elif window.crowded and window.pattern.code not in _SIMPLE:
+        notes.append("its window is cut short by a neighbour and a fit cannot model this pattern: "
+                     "the region integral carries the neighbour's tail; a species of its own")
     else:
         notes.append("nuclei guessed from the integral ratios: check it")
     behaviour = _behaviour(window)
@@ -1179,16 +1235,22 @@ def _signal_lines(window: ProposedWindow) -> list[str]:
         f"nuclei = {window.nuclei_guess}                      # nuclei under the signal, per molecule",
     ]
     width = float(np.median([p.width_hz for p in window.peaks]))
-    if window.fit_group and simple:
+    as_standard = fit_standard and window.reference_candidate and window.pattern.code == "s"
+    if (window.fit_group or as_standard) and simple:
         shape = f"multiplicity = {_q(window.multiplicity)}"
         if window.pattern.j_hz:
             shape += f", j_hz = {window.pattern.j_hz[0]:.2f}"
         shape += f", width_hz = {max(width, 0.1):.2f}"
-        body += ['method = "fit"                   # too close to its neighbour for a region integral',
-                 f"group = {_q(window.fit_group)}            # deconvolved together with its neighbour",
-                 f"lineshape = {{ {shape} }}",
-                 f"tolerance_ppm = {min(0.03, max(0.005, 0.5 * width / 60.0)):.3f}   "
-                 "# how far the fitted centre may move (ppm)"]
+        # drift left after alignment is a fraction of a hertz; a centre may move 1.5 Hz, but
+        # never 30 % of the way to another multiplet's line (components must not swap)
+        tolerance = min(0.03, max(0.005, 1.5 / observe_mhz), 0.3 * window.neighbour_ppm)
+        if window.fit_group:
+            body += ['method = "fit"                   # too close to its neighbour for a region integral',
+                     f"group = {_q(window.fit_group)}            # deconvolved together with its neighbour"]
+        else:
+            body += ['method = "fit"                   # fitted like the analytes it is compared with']
+        body += [f"lineshape = {{ {shape} }}",
+                 f"tolerance_ppm = {tolerance:.3f}   # how far the fitted centre may move (ppm)"]
     else:
         body += ['method = "integral"             # or "fit": deconvolution, needs lineshape = '
                  '{multiplicity, j_hz, width_hz}',
@@ -1221,6 +1283,7 @@ def render_config(spectrum: Spectrum, windows: list[ProposedWindow], folder: Pat
     tms = next((w for w in windows if w.role == "reference"), None)
     candidate = next((w for w in windows if w.reference_candidate), None)
     solvents = [w for w in windows if w.role == "solvent"]
+    residual = next((w for w in solvents if w.expected_ppm is not None), None)
     signals = [w for w in windows if w.role == "signal"]
     usable = [w for w in signals if not w.mixed]
     timed = spectrum.acquired_utc is not None
@@ -1276,6 +1339,11 @@ def render_config(spectrum: Spectrum, windows: list[ProposedWindow], folder: Pat
         line = max(tms.peaks, key=lambda p: p.height).shift_ppm
         out.append(f"reference = {{ ppm = 0.0, window_ppm = {_reference_window(tms, windows):.2f} }}"
                    f"   # TMS-like line found at {line:.3f} ppm")
+    elif residual is not None:
+        line = residual.peaks[0].shift_ppm
+        out.append(f"# reference = {{ ppm = {line:.3f}, window_ppm = {_reference_window(residual, windows):.2f}, "
+                   f"target_ppm = {residual.expected_ppm:.2f} }}   # PROPOSAL: {_comment(residual.label)}; "
+                   "confirm it")
     elif candidate is not None:
         line = candidate.peaks[0].shift_ppm
         out.append(f"# reference = {{ ppm = {line:.2f}, window_ppm = {_reference_window(candidate, windows):.2f} }}"
@@ -1310,6 +1378,10 @@ def render_config(spectrum: Spectrum, windows: list[ProposedWindow], folder: Pat
                + "          # EDIT: the species fitted" + (f" (falling: {', '.join(falling)})" if falling else ""))
     out.append("# product = " + _q(rising[0] if rising else "SPECIES")
                + "           # EDIT: the species formed" + (f" (rising: {', '.join(rising)})" if rising else ""))
+    if len(rising) >= 2:
+        weights = ", ".join(f"{name} = {1 if n == 0 else 0}" for n, name in enumerate(rising))
+        out.append(f"# stoichiometry = {{ {weights} }}   # EDIT when products form together from one "
+                   "reactant: count them once in the mass balance")
     out += ["", "[fit]", '# model = "first"               # rate law (default first order); it fits [quantify] reactant']
     for window in solvents:
         lo, hi = window.window_ppm
@@ -1321,7 +1393,7 @@ def render_config(spectrum: Spectrum, windows: list[ProposedWindow], folder: Pat
         out += ["", "# No line rose above the noise threshold: write [[signals]] tables by hand, e.g.",
                 "# [[signals]]", '# name = "ester"', "# window_ppm = [4.0, 4.3]", "# nuclei = 2"]
     for window in signals:
-        out += _signal_lines(window)
+        out += _signal_lines(window, spectrum.observe_mhz, fit_standard=any(w.fit_group for w in usable))
     return "\n".join(out) + "\n"
 
 
@@ -1388,4 +1460,4 @@ def draft_config(folder: str | Path, out: str | Path | None = None, *, force: bo
 
 __all__ = ["Peak", "Pattern", "ProposedWindow", "Draft", "SPECTRUM_SUFFIXES", "SOLVENT_LINES", "spectrum_files",
            "first_spectrum", "series_ends", "pick_peaks", "match_pattern", "group_peaks", "propose_windows",
-           "solvent_label", "render_config", "draft_config"]
+           "solvent_match", "solvent_label", "render_config", "draft_config"]

@@ -378,12 +378,13 @@ def _warnings(base: KEstimate, family_sd, u_eff: float, outcomes) -> list[str]:
                     key=lambda o: abs(o.delta))
         words = {"baseline_order": "the fit baseline order", "window": "the window of",
                  "grouping": "fitting together or apart"}[choice]
-        subject = f"{words} {target}" if choice != "baseline_order" else f"{words} ({target})"
+        subject = f"{words} {target}" if choice != "baseline_order" else words
         pct = 100.0 * moved.delta / base.value if base.value else float("nan")
-        out.append(f"{base.name} depends on processing choices more than on noise: {subject} "
-                   f"({moved.setting}) moves it by {pct:+.2f} %, beyond the statistical 95 % interval "
-                   f"(+-{100.0 * half / abs(base.value):.2f} %); the quoted interval includes this spread. "
-                   f"Check that signal's window and baseline against the spectrum.")
+        scale = 100.0 / abs(base.value) if base.value else float("nan")
+        out.append(f"{base.name} depends on processing choices more than on noise: they add +-"
+                   f"{scale * base.quantile * u_eff:.2f} % (95 %) beside the statistical +-{scale * half:.2f} %; "
+                   f"most of it from {subject} ({moved.setting}: {pct:+.2f} %). The quoted interval includes "
+                   f"this spread; check that signal's window, baseline and neighbours against the spectrum.")
     failed = [o for o in outcomes if o.error]
     if failed:
         out.append(f"{len(failed)} of {len(outcomes)} processing variants could not be measured "
@@ -403,12 +404,16 @@ def fitter_for(config) -> Callable:
     from kinetics.rates.fit import fit_law
     from kinetics.rates.table import from_arrays
 
-    section = dict(config.sections.get("fit", {}) or {})
-    if section.get("mechanism"):
+    resolved = getattr(config, "fit", None)
+    if resolved is not None and hasattr(resolved, "model"):  # the validated [fit] record
+        mechanism, model, observed, species = resolved.mechanism, resolved.model, resolved.observed, resolved.species
+    else:
+        section = dict(config.sections.get("fit", {}) or {})
+        mechanism, model = section.get("mechanism"), str(section.get("model", "first"))
+        observed, species = str(section.get("observed", "reactant")), section.get("species")
+    if mechanism:
         raise KineticsError("sensitivity.fitter_for: pass a fitter for mechanism fits")
-    model = str(section.get("model", "first"))
-    observed = str(section.get("observed", "reactant"))
-    species = section.get("species") or config.quantify.reactant or config.species[0]
+    species = species or config.quantify.reactant or config.species[0]
     column = f"{species}_concentration"
 
     def fit(table) -> KEstimate:
@@ -483,30 +488,10 @@ class SpectraQuantifier:
 
 
 def reference_from_spectrum(spectrum, config):
-    """The series' :class:`~kinetics.series.Reference` built from a processed spectrum.
-
-    Same content as ``kinetics.series.make_reference`` (which reads and processes a path).
-    """
+    """The series' ``Reference`` (alignment target, centroids, fit-window sizes) of a processed spectrum."""
     from kinetics import series as se
-    from kinetics import signals as sg
 
-    noise = se._noise(spectrum, config)
-    centroids = {}
-    for sig in config.signals:
-        if sig.method != "integral":
-            continue
-        region = sg.integrate_region(spectrum, sig.window_ppm, noise, baseline=config.integration.baseline,
-                                     edge_fraction=config.integration.edge_fraction)
-        strong = region.sigma > 0 and region.integral / region.sigma >= se.REFERENCE_SNR
-        centroids[sig.name] = (sg.centroid_ppm(spectrum, sig.window_ppm, se.CENTROID_SIGMAS * noise.sigma)
-                               if strong else sig.center_ppm)
-    groups: dict[str, list] = {}
-    for sig in config.signals:
-        if sig.method == "fit":
-            groups.setdefault(sig.fit_group, []).append(sig)
-    points = {g: int(sg.window_data(spectrum, sg.fit_window(m))[0].size) for g, m in groups.items()}
-    return se.Reference(spectrum=spectrum, centroids_ppm=MappingProxyType(centroids),
-                        fit_points=MappingProxyType(points), path=spectrum.source_path or "")
+    return se.reference_from_spectrum(spectrum, spectrum.source_path or "", config)
 
 
 def processed_run(config, records=None, paths=None):

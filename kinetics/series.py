@@ -1,16 +1,19 @@
 """A folder of spectra + a run config -> a tidy time-series table (one row per spectrum).
 
-Two entry points give identical rows:
+The measuring and tabulating functions of the run engine (:mod:`kinetics.run`, which
+takes folders, keeps the ledger and the in-memory state):
 
-* batch: :func:`run_series` (or :func:`run_config_to_table`) over a finished folder;
-* live, one file at a time: ``reference = make_reference(first_path, config)``, then
-  ``measure_file(path, config, reference)`` for each file (a frozen
-  :class:`FileMeasurement`, safe to store), and ``table_from_measurements(ms, config)``
-  whenever a table is wanted.  The batch path is exactly these calls in a loop.
+* per file: ``reference, m = measure_first(path, config)`` for the run's first file (read
+  once), then ``measure_file(path, config, reference)`` for each later one (a frozen
+  :class:`FileMeasurement`, safe to store);
+* per table: :func:`series_table` (``table_from_measurements``) whenever a table is
+  wanted, warm-started from the previous table's global fits during a live run;
+* :func:`run_series` is a whole batch run through the engine, kept in memory.
 
-Per file: read -> process (``[processing]``) -> align to the reference spectrum
-(``[alignment]``) -> noise estimate -> region integrals with drift tracking and
-per-spectrum deconvolution of ``fit`` groups.  Across the series (in
+Per file: read -> process (``[processing]``, the pipeline built once at config load) ->
+align to the reference spectrum (``[alignment]``) -> noise estimate -> region integrals
+with drift tracking; ``fit`` groups keep their window data (and are deconvolved per
+spectrum only when ``integration.global_fit`` is off).  Across the series (in
 :func:`table_from_measurements`): global deconvolution of the ``fit`` groups (shared
 positions, widths and J, areas per spectrum), saturation correction, concentrations,
 conversion, yield and the mass balance.
@@ -40,8 +43,8 @@ from typing import Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from kinetics import quantify, signals as sg
-from kinetics.config import RunConfig, load_run_config
+from kinetics import lineshapes, quantify, signals as sg
+from kinetics.config import IntegrationConfig, RunConfig, load_run_config
 from kinetics.errors import ConfigError, FitError, InputFileError
 from kinetics.spectra.spectrum import Spectrum, sha256_of_file
 
@@ -245,10 +248,10 @@ def _read_processed(path, config: RunConfig):
 
 
 def _noise(spectrum: Spectrum, config: RunConfig) -> sg.NoiseEstimate:
-    integ = config.integration
+    integ, signals = config.integration, config.signals
     order = 1 if integ.baseline == "edges" else 0
     region = None if integ.noise_region_ppm is None else list(integ.noise_region_ppm)
-    return sg.estimate_noise(spectrum, region, exclude_ppm=[s.window_ppm for s in config.signals],
+    return sg.estimate_noise(spectrum, region, exclude_ppm=[s.window_ppm for s in signals],
                              detrend_order=order)
 
 
@@ -286,20 +289,20 @@ def reference_from_spectrum(spectrum: Spectrum, path: str | Path, config: RunCon
 
 
 def _align(spectrum: Spectrum, reference: Reference, config: RunConfig) -> tuple[Spectrum, float]:
-    window = config.alignment.window_ppm
+    alignment = config.alignment
+    window = alignment.window_ppm
     if window is None:
         return spectrum, 0.0
     from kinetics.processing import align_series
 
     try:
-        result = align_series([reference.spectrum, spectrum], window, 0, config.alignment.max_shift_ppm)
+        result = align_series([reference.spectrum, spectrum], window, 0, alignment.max_shift_ppm)
     except ValueError as error:
         raise ConfigError("alignment.window_ppm", str(error)) from error
     return result.spectra[1], float(result.shifts_ppm[1])
 
 
-def _measure_integral(spectrum, sig, noise, reference: Reference, config: RunConfig) -> SignalResult:
-    integ = config.integration
+def _measure_integral(spectrum, sig, noise, reference: Reference, integ: IntegrationConfig) -> SignalResult:
     kwargs = dict(name=sig.name, nuclei=sig.nuclei, baseline=integ.baseline, edge_fraction=integ.edge_fraction,
                   lineshape=sig.lineshape, correct_truncation=sig.correct_truncation)
     flags = []
@@ -325,13 +328,24 @@ def _measure_integral(spectrum, sig, noise, reference: Reference, config: RunCon
                         tuple(window), region.truncation_loss, tuple(flags))
 
 
-def _measure_group(spectrum, members, reference: Reference, config: RunConfig):
+def solvent_lines_ppm(config: RunConfig) -> tuple[float, ...]:
+    """Centres of the declared solvent lines (``[processing] phase_exclude_ppm`` ranges).
+
+    Their far tails are modelled in every fit window they reach
+    (:func:`kinetics.signals.deconvolution.solvent_tails`), not left to the local baseline.
+    """
+    ranges = config.processing.get("phase_exclude_ppm") or ()
+    return tuple(0.5 * (float(a) + float(b)) for a, b in ranges)
+
+
+def _measure_group(spectrum, members, reference: Reference, integ: IntegrationConfig, solvent_ppm=()):
     window = sg.fit_window(members)
     ppm, values = sg.window_data(spectrum, window, reference.fit_points.get(members[0].fit_group))
     comps = sg.components_for(members)
     results = []
     try:
-        fit = sg.deconvolve(ppm, values, comps, spectrum.observe_mhz, config.integration.fit_baseline_order)
+        fit = sg.deconvolve(ppm, values, comps, spectrum.observe_mhz, integ.fit_baseline_order,
+                            solvent_ppm=solvent_ppm)
         for k, sig in enumerate(members):
             flags = () if fit.success else ("fit_failed",)
             results.append(SignalResult(sig.name, sig.species, "fit", float(fit.areas[0, k]),
@@ -364,10 +378,11 @@ def measure_spectrum(spectrum: Spectrum, config: RunConfig, reference: Reference
     results = {}
     for sig in config.signals:
         if sig.method == "integral":
-            results[sig.name] = _measure_integral(spectrum, sig, noise, reference, config)
+            results[sig.name] = _measure_integral(spectrum, sig, noise, reference, config.integration)
     windows = []
     measure_group = _pending_group if config.integration.global_fit else (
-        lambda spectrum, members, reference: _measure_group(spectrum, members, reference, config))
+        lambda spectrum, members, reference: _measure_group(spectrum, members, reference, config.integration,
+                                                            solvent_lines_ppm(config)))
     for members in _fit_groups(config).values():
         group_results, data = measure_group(spectrum, members, reference)
         windows.append(data)
@@ -455,6 +470,68 @@ def _warm_components(members, previous) -> list:
     return components
 
 
+def _held_design(ppm: np.ndarray, fit, members, observe_mhz: float, baseline_order: int) -> np.ndarray:
+    """Design matrix (..., n, k + order + 1) of a fit group at a global fit's line shapes:
+    unit-area multiplets at the fitted centres, widths and J, then the polynomial baseline
+    (the same columns as the series-wide fit's linear step)."""
+    columns = []
+    for sig in members:
+        shape = sig.lineshape
+        coupling = fit.coupling_hz.get(sig.name, (0.0,))[0] if shape.n_lines > 1 else 0.0
+        gauss = fit.gauss_width_hz.get(sig.name, (0.0,))[0] if shape.profile == "voigt" else 0.0
+        columns.append(lineshapes.multiplet(
+            ppm, 1.0, fit.center_ppm[sig.name][0], shape.n_lines, coupling / observe_mhz, shape.profile,
+            fit.width_hz[sig.name][0] / observe_mhz, gauss / observe_mhz))
+    x = (ppm - ppm.mean(axis=-1, keepdims=True)) / max(np.ptp(ppm) / 2.0, 1e-12)
+    columns += [x ** order for order in range(baseline_order + 1)]
+    return np.stack(columns, axis=-1)
+
+
+def _apply_held_shapes(measurements, config: RunConfig, integral, sigma, shift, flags, notes, fits) -> None:
+    """Areas of every fit group at the line shapes of a previous global fit (in place).
+
+    A live turn between two refreshes: the shared centres, widths and J stay where the
+    last series-wide fit put them and only the linear part (areas and baselines) is
+    solved, for all spectra at once, so a turn costs about the same however long the run.
+    The area uncertainty is sigma^2 (A^T A)^-1 with the pooled residual variance; it leaves
+    out the line-shape uncertainty, which the next full fit (and the final one) includes.
+    Flag ``shapes_held``.
+    """
+    names = [s.name for s in config.signals]
+    order = config.integration.fit_baseline_order
+    for group, members in _fit_groups(config).items():
+        fit = fits[group]
+        data = [next(w for w in m.fit_windows if w.group == group) for m in measurements]
+        n = min(w.values.size for w in data)
+        ppm = np.array([w.ppm[:n] for w in data])
+        values = np.array([w.values[:n] for w in data])
+        mhz = measurements[0].observe_mhz
+        if np.allclose(ppm, ppm[0], rtol=0, atol=1e-12):
+            design = _held_design(ppm[0], fit, members, mhz, order)
+            normal = design.T @ design
+            coef = np.linalg.solve(normal, design.T @ values.T).T
+            residual = values - coef @ design.T
+            inverse = np.broadcast_to(np.linalg.inv(normal), (len(values),) + normal.shape)
+        else:
+            design = _held_design(ppm, fit, members, mhz, order)
+            normal = np.einsum("sni,snj->sij", design, design)
+            coef = np.linalg.solve(normal, np.einsum("sni,sn->si", design, values)[..., None])[..., 0]
+            residual = values - np.einsum("snm,sm->sn", design, coef)
+            inverse = np.linalg.inv(normal)
+        dof = max(values.size - coef.size, 1)
+        variance = float(np.sum(residual ** 2) / dof)
+        stderr = np.sqrt(np.clip(variance * np.diagonal(inverse, axis1=1, axis2=2), 0, None))
+        for k, sig in enumerate(members):
+            col = names.index(sig.name)
+            integral[col] = coef[:, k]
+            sigma[col] = stderr[:, k]
+            shift[col] = fit.center_ppm[sig.name][0] - sig.center_ppm
+            for row in range(len(measurements)):
+                flags[col][row] = [f for f in flags[col][row] if f not in ("fit_failed", "global_fit_pending")]
+                flags[col][row].append("shapes_held")
+        notes.append(f"{group}: areas at the line shapes of the last series-wide fit (live turn)")
+
+
 def _apply_global_fits(measurements, config: RunConfig, integral, sigma, shift, flags, notes,
                        start: Mapping | None = None) -> dict:
     """Series-wide deconvolution of every fit group (in place); returns group -> result.
@@ -475,7 +552,8 @@ def _apply_global_fits(measurements, config: RunConfig, integral, sigma, shift, 
         components = _warm_components(members, previous) if previous is not None else sg.components_for(members)
         try:
             fit = sg.deconvolve(ppm[0] if shared_axis else ppm, values, components,
-                                measurements[0].observe_mhz, config.integration.fit_baseline_order)
+                                measurements[0].observe_mhz, config.integration.fit_baseline_order,
+                                solvent_ppm=solvent_lines_ppm(config))
         except FitError as error:
             notes.append(f"global fit of {group} failed: {error}")
             for sig in members:
@@ -574,11 +652,13 @@ def table_from_measurements(measurements: Sequence[FileMeasurement], config: Run
 
 
 def series_table(measurements: Sequence[FileMeasurement], config: RunConfig,
-                 start: Mapping | None = None) -> tuple[pd.DataFrame, dict]:
+                 start: Mapping | None = None, hold: bool = False) -> tuple[pd.DataFrame, dict]:
     """:func:`table_from_measurements` plus the global fits (group -> DeconvolutionResult).
 
     ``start`` warm-starts the global deconvolution from a previous table's fits (a live
-    turn); None fits from scratch (a batch run, a live run's final pass).  With
+    turn); None fits from scratch (a batch run, a live run's final pass).  ``hold`` (with
+    a ``start`` covering every group) keeps the line shapes of ``start`` and solves only
+    the areas (:func:`_apply_held_shapes`; a live turn between two refreshes).  With
     ``integration.global_fit`` off, the per-spectrum deconvolutions stand.
     """
     if not measurements:
@@ -601,8 +681,13 @@ def series_table(measurements: Sequence[FileMeasurement], config: RunConfig,
     notes: list[str] = []
     warnings: list[str] = []
     fits: dict = {}
-    if config.integration.global_fit and _fit_groups(config):
-        fits = _apply_global_fits(ms, config, integral, sigma, shift, flags, notes, start)
+    groups = _fit_groups(config)
+    if config.integration.global_fit and groups:
+        if hold and start is not None and all(group in start for group in groups):
+            fits = dict(start)
+            _apply_held_shapes(ms, config, integral, sigma, shift, flags, notes, fits)
+        else:
+            fits = _apply_global_fits(ms, config, integral, sigma, shift, flags, notes, start)
     _saturation(config, integral, sigma, warnings)
     conc, csig, unit = _concentrations(config, integral, sigma)
 

@@ -390,6 +390,13 @@ class Ledger:
             "ORDER BY acquired_utc, path")
         return [(path, json.loads(text) if text else {}) for path, text in rows]
 
+    def first_record(self) -> dict | None:
+        """The record of the first counted file (acquisition order), or None."""
+        row = self._db.execute(
+            "SELECT record_json FROM files WHERE status = 'processed' AND replaced = 0 "
+            "ORDER BY acquired_utc, path LIMIT 1").fetchone()
+        return json.loads(row[0]) if row and row[0] else None
+
     def n_processed(self) -> int:
         return self._db.execute(
             "SELECT COUNT(*) FROM files WHERE status = 'processed' AND replaced = 0").fetchone()[0]

@@ -26,8 +26,8 @@ validated by :func:`kinetics.config.load_study_config` into a frozen
     ``temperature_c`` (°C) or ``temperature_kelvin`` (K) — exactly one.
     ``table`` (path, relative to the config file) — a CSV series table with a time column
     and concentration column(s); or ``config`` (path) — a single-run config, taken through
-    the run engine (:func:`kinetics.run.engine.batch_run`; its ledger and outputs go to
-    ``runs/<label>/`` in the output folder).  Exactly one of the two.
+    the run engine (:func:`kinetics.run.engine.batch_run`; its ledger, ``series.csv`` and
+    ``fit.json`` go to ``runs/<label>/`` in the output folder).  Exactly one of the two.
     ``folder`` (path, with ``config`` only) — run that config on this folder instead of its
     own ``[run] folder``, so one run config serves every temperature.
     ``time_column`` (str, default ``"time_s"``) and ``time_unit`` (``"s"``, ``"min"`` or
@@ -135,7 +135,7 @@ def _read_series_table(run: StudyRunConfig, runs_dir: Path | None = None):
         from kinetics.run.engine import batch_run, plan_from_config
 
         plan = plan_from_config(load_run_config(run.config), folder=run.folder, require_named=False)
-        summary = batch_run(plan, (runs_dir or run.config.parent) / _slug(run.label))
+        summary = batch_run(plan, (runs_dir or run.config.parent) / _slug(run.label), figures=False)
         return summary.table, run.config
     path = run.table
     if not path.exists():

@@ -100,6 +100,31 @@ def test_each_file_read_once_pipeline_built_once_no_overwritten_fits(tmp_path, m
     assert len(fits) == len(config.fit_groups)  # one series-wide fit per group, none per spectrum
 
 
+def test_live_turns_hold_line_shapes_between_refreshes_and_the_final_pass_is_exact(tmp_path):
+    import numpy as np
+
+    from kinetics.run import RunState, ready_files
+
+    config = load_run_config(ROOT / "configs" / "demo_run.toml")
+    plan = plan_from_config(config)
+    state = RunState(plan, None)  # ledger in memory, no output files
+    ready = ready_files(plan.spec)
+    state.take(ready[:24])
+    state.source.table(refresh=True)  # a series-wide fit (from scratch: no previous one)
+    state.take(ready[24:])
+    held = state.source.table(refresh=False).copy()  # a live turn between two refreshes
+    final = state.source.table(final=True)
+    state.close()
+    batch = batch_run(plan_from_config(config), tmp_path / "batch", outputs=False).table
+    pd.testing.assert_frame_equal(final, batch, check_exact=True)
+    assert held["ester_OCH2_flags"].str.contains("shapes_held").all()
+    assert final["ester_OCH2_flags"].str.contains("global_fit").all()
+    for name in ("ester_OCH2", "alcohol_CH2OH", "ester_acetyl", "acid_acetyl", "standard"):
+        # areas at the held shapes agree with the full fit's within its 95 % band (1.96 sigma)
+        gap = np.abs(held[f"{name}_integral"] - final[f"{name}_integral"])
+        assert np.all(gap <= 1.96 * final[f"{name}_sigma"]), name
+
+
 def _draft(tmp_path, **sections) -> Path:
     raw = ('[run]\nfolder = "."\n[[signals]]\nname = "A"\nwindow_ppm = [1.0, 1.2]\nnuclei = 3\n'
            '[[signals]]\nname = "S"\nwindow_ppm = [0.0, 0.2]\nnuclei = 9\n')

@@ -341,15 +341,31 @@ def test_demo_draft_names_solvent_reference_multiplets_and_runs_after_three_edit
     assert config.quantify.reactant is None and config.quantify.standard is None  # nothing guessed
     assert not any(s.is_standard for s in config.signals)
     edited, edits = _edit(draft.text, 0.05, ester_acetyl.species, holder(3.58).species)
-    assert edits == 3
-    (tmp_path / "edited.toml").write_text(edited)
+    assert edits == 3  # enough for k (first order: the standard's nuclei and the mass balance do not enter)
+    # two more for right concentrations and a clean mass balance: the standard's 6 protons
+    # (no spectrum can tell them) and the acid counted once with the alcohol
+    assert reference.nuclei_guess != 6
+    lines = edited.splitlines()
+    standard_line = next(n for n, line in enumerate(lines) if line.startswith("concentration_mol_per_l = 0.05"))
+    nuclei_line = max(n for n in range(standard_line) if lines[n].startswith("nuclei = "))
+    lines[nuclei_line] = "nuclei = 6"
+    stoichiometry = next(n for n, line in enumerate(lines) if line.startswith("# stoichiometry = {"))
+    lines[stoichiometry] = lines[stoichiometry][2:]
+    assert sum(a != b for a, b in zip(draft.text.splitlines(), lines)) == 5
+    (tmp_path / "edited.toml").write_text("\n".join(lines) + "\n")
     import json
+
+    import pandas as pd
 
     capsys.readouterr()
     assert main(["run", str(tmp_path / "edited.toml"), "--out", str(tmp_path / "out"), "--json"]) == 0
     summary = json.loads(capsys.readouterr().out)
     k = summary["runs"][0]["k_per_s"]["value"]
-    assert k == pytest.approx(demo.K_REF_PER_S, rel=0.02)  # the generator's k at 25 C
+    assert k == pytest.approx(demo.K_REF_PER_S, rel=0.015)  # the generator's k at 25 C
+    first = pd.read_csv(tmp_path / "out" / "series.csv").iloc[0]
+    # the demo's first spectrum is 60 s after mixing (demo_series/README.md); the draft keeps t = 0 there
+    truth = demo.ESTER_INITIAL_MOL_PER_L * math.exp(-demo.K_REF_PER_S * (first["time_s"] + 60.0))
+    assert first[f"{ester_acetyl.species}_concentration"] == pytest.approx(truth, rel=0.03)
 
 
 @pytest.mark.parametrize("name, expected", [
@@ -389,10 +405,14 @@ def test_real_spectra_multiplet_names_solvent_and_reference(tmp_path, name, expe
     if name.startswith("butyl"):
         assert draft.reference.role == "reference" and abs(draft.reference.peaks[0].shift_ppm) < 0.01  # TMS
         assert config.processing["reference"]["ppm"] == 0.0
+    else:  # no TMS: the residual CHCl3 singlet is proposed (commented) as the reference
+        assert "reference" not in config.processing
+        assert re.search(r"^# reference = \{ ppm = 7\.2\d\d, .*target_ppm = 7\.26 \}", draft.text, re.M)
 
 
 # ---------------------------------------------------------------- an invented 60 MHz stress series
-def _stress_spectrum(reactant_mol_per_l: float, product_mol_per_l: float, rng, minutes: float) -> Spectrum:
+def _stress_spectrum(reactant_mol_per_l: float, product_mol_per_l: float, rng, minutes: float,
+                     mhz: float = 60.0, phase_deg: float = 0.0, drift_ppm: float = 0.0) -> Spectrum:
     """This test's own generator (not kinetics.simulate): Lorentzian lines on a 60 MHz
     axis, first-order multiplets built here, Gaussian noise.
 
@@ -400,10 +420,12 @@ def _stress_spectrum(reactant_mol_per_l: float, product_mol_per_l: float, rng, m
     singlet 2.10 ppm and a vinyl dd at 6.90 ppm (J 15.6, 6.9 Hz); product: acetyl singlet
     1.98 ppm (0.12 ppm from the reactant's) and a CH2 triplet at 3.60 ppm (J 6.5 Hz);
     standard: 6-proton singlet at 6.20 ppm, 0.05 mol/L; water at 4.80 ppm, 45 times the
-    quartet's tallest line."""
-    mhz, width_hz = 60.0, 1.0
+    quartet's tallest line.  A zero-order phase error mixes in the dispersion
+    (absorption A / (1 + u^2), dispersion A u / (1 + u^2)); a drift moves every line."""
+    width_hz = 1.0
     ppm = np.linspace(11.0, -1.0, 8192)
     real = np.zeros_like(ppm)
+    imag = np.zeros_like(ppm)
 
     def multiplet(centre_ppm, nuclei, couplings):
         # first-order rule: each coupling (J, n partners) splits every line into n + 1 binomial lines
@@ -413,7 +435,9 @@ def _stress_spectrum(reactant_mol_per_l: float, product_mol_per_l: float, rng, m
             lines = [(x + (m - partners / 2) * j_hz, a * w) for x, a in lines for m, w in enumerate(weights)]
         for offset_hz, area in lines:
             hw = 0.5 * width_hz / mhz
-            real[:] += area / (math.pi * hw) / (1 + ((ppm - centre_ppm - offset_hz / mhz) / hw) ** 2) / 1000
+            u = (ppm - centre_ppm - drift_ppm - offset_hz / mhz) / hw
+            real[:] += area / (math.pi * hw) / (1 + u ** 2) / 1000
+            imag[:] += area / (math.pi * hw) * u / (1 + u ** 2) / 1000
 
     multiplet(4.10, 2 * reactant_mol_per_l, [(7.1, 3)])
     multiplet(1.25, 3 * reactant_mol_per_l, [(7.1, 2)])
@@ -424,12 +448,13 @@ def _stress_spectrum(reactant_mol_per_l: float, product_mol_per_l: float, rng, m
     multiplet(6.20, 6 * 0.05, [])
     quartet_top = 2 * 0.45 * 3 / 8 / (math.pi * 0.5 * width_hz / mhz) / 1000
     multiplet(4.80, 45 * quartet_top * math.pi * 0.5 * width_hz / mhz * 1000, [])
-    real += rng.normal(0.0, 2e-3 * quartet_top, ppm.size)
+    rotated = (real + 1j * imag) * np.exp(1j * math.radians(phase_deg))
+    noise = rng.normal(0.0, 2e-3 * quartet_top, (2, ppm.size))
     start = datetime(2026, 3, 1, 9, 0, 0, tzinfo=timezone.utc)
     from datetime import timedelta
 
-    return Spectrum(ppm=ppm, real=real, observe_mhz=mhz, acquired_utc=start + timedelta(minutes=minutes),
-                    duration_s=16.0)
+    return Spectrum(ppm=ppm, real=rotated.real + noise[0], imag=rotated.imag + noise[1], observe_mhz=mhz,
+                    acquired_utc=start + timedelta(minutes=minutes), duration_s=16.0)
 
 
 def quartet_nuclei(draft):
@@ -437,17 +462,22 @@ def quartet_nuclei(draft):
     return quartet.nuclei_guess
 
 
-def test_stress_series_water_close_singlets_and_dd(tmp_path):
+@pytest.mark.parametrize("mhz", [60.0, 40.0])
+def test_stress_series_water_close_singlets_and_dd(tmp_path, capsys, mhz):
+    # 12 spectra over 33 min, random zero-order phase errors (+-30 deg) and a 0.01 ppm drift
+    import json
+
     from kinetics.spectra.jcampdx import write_spectrum
 
     rng = np.random.default_rng(45)
     folder = tmp_path / "stress_40C"
     folder.mkdir()
-    k_per_min = 0.08
-    for number, minutes in enumerate((0.0, 10.0, 30.0), start=1):
+    k_per_min = 0.08  # the truth set here: reactant 0.45 exp(-k t), product 0.01 + what reacted
+    for number, minutes in enumerate(np.arange(12) * 3.0, start=1):
         reactant = 0.45 * math.exp(-k_per_min * minutes)
         write_spectrum(folder / f"spectrum_{number:04d}.jdx",
-                       _stress_spectrum(reactant, 0.01 + 0.45 - reactant, rng, minutes))
+                       _stress_spectrum(reactant, 0.01 + 0.45 - reactant, rng, minutes, mhz=mhz,
+                                        phase_deg=rng.uniform(-30.0, 30.0), drift_ppm=0.01 * minutes / 33.0))
     out = tmp_path / "stress.toml"
     draft = draft_config(folder, out)
     (water,) = draft.solvents
@@ -475,6 +505,12 @@ def test_stress_series_water_close_singlets_and_dd(tmp_path):
     (tmp_path / "edited.toml").write_text(edited)
     edited_config = load_run_config(tmp_path / "edited.toml")
     assert edited_config.quantify.mode == "standard" and edited_config.quantify.reactant == quartet.species
+    assert 'phase = "auto"' in draft.text  # the phase errors were seen
+    if mhz == 60.0:
+        capsys.readouterr()
+        assert main(["run", str(tmp_path / "edited.toml"), "--out", str(tmp_path / "out"), "--json"]) == 0
+        k = json.loads(capsys.readouterr().out)["runs"][0]["k_per_s"]["value"]
+        assert k == pytest.approx(k_per_min / 60.0, rel=0.02)
 
 
 def test_file_names_cannot_inject_keys(tmp_path):
@@ -492,3 +528,50 @@ def test_file_names_cannot_inject_keys(tmp_path):
     assert config.folder.resolve() == folder.resolve()
     assert config.quantify.mode == "relative"  # the loader's default, not the injected "none"
     assert all(not line.startswith("mode") for line in out.read_text().splitlines())
+
+
+def _first_order_lines(couplings, width_hz=1.0, mhz=60.0):
+    """Line positions (Hz, high first) and peak heights of a first-order multiplet with
+    Lorentzian lines (textbook rule: n equivalent partners split a line into n + 1
+    lines of binomial intensity); heights include the neighbours' overlap."""
+    sticks = [(0.0, 1.0)]
+    for j_hz, partners in couplings:
+        sticks = [(x + (m - partners / 2) * j_hz, a * math.comb(partners, m))
+                  for x, a in sticks for m in range(partners + 1)]
+    positions = sorted({round(x, 6) for x, _ in sticks}, reverse=True)
+    half = width_hz / 2
+    heights = [sum(a / (1 + ((p - x) / half) ** 2) for x, a in sticks) for p in positions]
+    return np.array(positions) + 500.0, np.array(heights), np.full(len(positions), width_hz)
+
+
+@pytest.mark.parametrize("couplings, code, j_hz", [
+    ([(7.0, 1)], "d", (7.0,)),
+    ([(7.0, 2)], "t", (7.0,)),
+    ([(7.0, 3)], "q", (7.0,)),
+    ([(14.0, 1), (7.0, 1)], "dd", (14.0, 7.0)),   # equal spacings, 1:1:1:1: not a quartet
+    ([(10.4, 1), (6.9, 1)], "dd", (10.4, 6.9)),
+    ([(15.6, 1), (6.9, 2)], "dt", (15.6, 6.9)),
+    ([(7.5, 2), (2.1, 1)], "td", (7.5, 2.1)),
+    ([(15.5, 1), (6.9, 3)], "dq", (15.5, 6.9)),
+])
+def test_first_order_patterns_are_named_with_their_couplings(couplings, code, j_hz):
+    from kinetics.init import match_pattern
+
+    x, h, w = _first_order_lines(couplings)
+    pattern = match_pattern(x, h, w, tol_hz=0.3)
+    assert pattern is not None and pattern.code == code
+    assert pattern.j_hz == pytest.approx(j_hz, abs=0.1)
+
+
+def test_unequal_or_unlike_lines_are_not_a_doublet():
+    # 45:1 at 7.2 Hz (two species' singlets 0.12 ppm apart at 60 MHz), and two lines of
+    # equal height but widths 1 and 4 Hz: no first-order doublet looks like either.
+    from kinetics.init import group_peaks, match_pattern, Peak
+
+    assert match_pattern([507.2, 500.0], [45.0, 1.0], [1.0, 1.0], tol_hz=0.3) is None
+    assert match_pattern([507.2, 500.0], [1.0, 1.0], [1.0, 4.0], tol_hz=0.3) is None
+    lines = [Peak(2.10, 45.0, 1.0, 900.0), Peak(1.98, 1.0, 1.0, 20.0)]
+    assert [pattern.code for _, pattern in group_peaks(lines, 60.0, 12.8)] == ["s", "s"]
+    # the same pair 0.12 ppm apart at 500 MHz is 60 Hz: never one multiplet
+    even = [Peak(2.10, 1.0, 1.0, 900.0), Peak(1.98, 1.0, 1.0, 900.0)]
+    assert len(group_peaks(even, 500.0, 12.8)) == 2 and len(group_peaks(even, 60.0, 12.8)) == 1

@@ -69,13 +69,12 @@ def _live_run(source: Path, run_dir: Path, config_text: str, label: str, interva
         replayer.join(timeout=10)
     if replayer.error is not None:
         raise InputFileError(source, f"the replay failed: {replayer.error}")
-    return outcome_of(label, config_path, live_dir, summary, temperature_c)
+    return outcome_of(label, config_path, live_dir, summary, temperature_c, pipeline.config)
 
 
 def run_demo(out_dir: str | Path, data_dir: str | Path | None = None, interval_s: float = 0.02) -> JobOutcome:
     """The whole job on the bundled demo: live runs, temperature study, one report."""
     from kinetics import demo
-    from kinetics.config import load_run_config
 
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
@@ -102,9 +101,9 @@ def run_demo(out_dir: str | Path, data_dir: str | Path | None = None, interval_s
     study = study_from_runs(study_config, kinetic_runs, out_dir / "study", warnings)
     sections = []
     first = runs[0]
-    sections += run_sections(first, load_run_config(first.config_path), with_spectra=True, comparison=True)
+    sections += run_sections(first, first.config, with_spectra=True, comparison=True)
     for run in runs[1:]:
-        sections += run_sections(run, load_run_config(run.config_path), with_spectra=False, comparison=False)
+        sections += run_sections(run, run.config, with_spectra=False, comparison=False)
     sections = study_sections(study) + sections
     truth = {"ea_kj_per_mol": demo.EA_KJ_PER_MOL, "k_ref_per_s": demo.K_REF_PER_S,
              "t_ref_kelvin": demo.T_REF_KELVIN,

@@ -387,14 +387,17 @@ def _remove_solvent_tails(z, inside, regions, centres, width_points):
     for centre in centres:
         u = (index - centre) / width_points
         u[np.abs(u) < 1e-6] = 1e-6
-        columns += [u ** -1, u ** -2, u ** -3]
+        inverse = 1.0 / u
+        columns += [inverse, inverse * inverse, inverse * inverse * inverse]
     t = 2.0 * index / (n - 1) - 1.0
-    columns += [np.ones(n), t, t * t, t ** 3]
+    columns += [np.ones(n), t, t * t, t * t * t]
     design = np.stack(columns, 1)
     # real normal equations: a complex SVD-based lstsq cost ~50 ms here (see kinetics.linalg)
     coefficients = complex_lstsq(design[free], z[free])
+    # the real design times the real and imaginary coefficients (no complex copy of it);
     # only where it is valid: inside the excluded ranges the expansion diverges
-    return np.where(inside, z - design @ coefficients, z)
+    tails = design @ coefficients.real + 1j * (design @ coefficients.imag)
+    return np.where(inside, z - tails, z)
 
 
 def _region_integral(segment: np.ndarray, anchor: int, sigma: float):

@@ -16,7 +16,9 @@ Steps of a turn (:meth:`RunState.take` then :meth:`RunState.refit` and
    files after the first (the reference spectrum) are measured in parallel worker
    processes when there are cores; the ledger is written by this process alone, in order.
 2. the series table is extended with the new measurements (kept in memory,
-   :class:`kinetics.run.state.SeriesState`) and refitted from the previous fit;
+   :class:`kinetics.run.state.SeriesState`; fit groups at the last series-wide fit's line
+   shapes, that fit itself redone from its previous optimum at most once per refresh
+   interval) and the rate law refitted from the previous fit;
 3. the outputs — ``fit.json`` every turn; ``series.csv``, ``series.png`` and
    ``index.html`` at most once per refresh interval (the rate fit's guardrail checks run
    at the same pace) — are written atomically.
@@ -54,7 +56,7 @@ from kinetics.store import FileMeasurement, FileRow, Ledger, utc_now_iso
 log = logging.getLogger(__name__)
 
 #: a batch run measures in worker processes from this many new files on
-PARALLEL_MIN_FILES = 8
+PARALLEL_MIN_FILES = 64
 
 
 # ---------------------------------------------------------------- the plan of a run
@@ -71,7 +73,7 @@ class TableSource(Protocol):
 
     def take(self, taken: list[tuple[FileRow, FileMeasurement | None]]) -> None: ...
 
-    def table(self, final: bool = False) -> pd.DataFrame: ...
+    def table(self, final: bool = False, refresh: bool = True) -> pd.DataFrame: ...
 
 
 class LedgerTable:
@@ -87,7 +89,7 @@ class LedgerTable:
     def take(self, taken) -> None:
         pass
 
-    def table(self, final: bool = False) -> pd.DataFrame:
+    def table(self, final: bool = False, refresh: bool = True) -> pd.DataFrame:
         return self.build(self.ledger)
 
 
@@ -162,10 +164,11 @@ def plan_from_config(config: RunConfig | str | Path, ledger_path: Path | None = 
     reference = None
     if ledger_path is not None and str(ledger_path) != ":memory:" and Path(ledger_path).exists():
         with Ledger(ledger_path) as ledger:
-            records = ledger.records()
-        reference = records[0][1].get("reference") if records else None
+            record = ledger.first_record()
+        reference = record.get("reference") if record else None
     resolved = folder.resolve() if folder.exists() else folder
-    text = config.path.read_text(encoding="utf-8") if config.path is not None else repr(config)
+    text = config.text if config.text is not None else (
+        config.path.read_text(encoding="utf-8") if config.path is not None else repr(config))
     return RunPlan(
         spec=spec, measure=SeriesMeasurer(config, resolved, reference), build_table=None,
         refit=refitter_from_config(config.fit, live.target_conversion),
@@ -409,7 +412,7 @@ class RunState:
         # A table or fit that cannot be made yet (too few points, a numerical failure) is
         # shown as such; it must not end a live run that later spectra may rescue.
         try:
-            self.table = self.source.table(final=from_scratch)
+            self.table = self.source.table(final=from_scratch, refresh=self._due(from_scratch))
         except (KineticsError, ValueError, ArithmeticError) as error:
             self.table = None
             self.outcome = FitOutcome(False, f"series table: {error}",
@@ -438,14 +441,16 @@ class RunState:
         """Whether this turn redraws (and rechecks): final, first, or a refresh interval on."""
         return final or self._drawn_at is None or self._clock() - self._drawn_at >= self.refresh_s
 
-    def write_outputs(self, pending: int = 0, stop_reason: str | None = None, final: bool = False):
+    def write_outputs(self, pending: int = 0, stop_reason: str | None = None, final: bool = False,
+                      figures: bool = True):
         """fit.json every call; series.csv, series.png and index.html when the refresh
-        interval has passed (always when ``final``).  Each file atomically."""
+        interval has passed (always when ``final``; the figure and page only with
+        ``figures``).  Each file atomically."""
         status = self.status(pending, stop_reason)
         table = self.table if self.table is not None else pd.DataFrame({"time_s": []})
         due = self._due(final)
         write_table_and_fit(self, table if due else None, status, stop_reason, final)
-        if due:
+        if due and figures:
             self._png = figure_png(self, table)
             write_page(self, status, self._png, final)
             self._drawn_at = self._clock()
@@ -474,7 +479,7 @@ def ready_files(spec: WatchSpec) -> list[ReadyFile]:
 
 
 def batch_run(plan: RunPlan | RunConfig | str | Path, out_dir: Path, *, parallel: bool = True,
-              outputs: bool = True) -> RunSummary:
+              outputs: bool = True, figures: bool = True) -> RunSummary:
     """A finished folder through the engine: ledger, table and fit from scratch, outputs.
 
     Parameters
@@ -487,6 +492,8 @@ def batch_run(plan: RunPlan | RunConfig | str | Path, out_dir: Path, *, parallel
         and in the same order; the ledger is written by this process alone).
     outputs : bool
         Write the output files (the ledger is always written).
+    figures : bool
+        Also draw ``series.png`` and ``index.html`` (a study's runs leave them out).
     """
     if not isinstance(plan, RunPlan):
         plan = plan_from_config(plan, Path(out_dir) / LEDGER_NAME)
@@ -499,7 +506,7 @@ def batch_run(plan: RunPlan | RunConfig | str | Path, out_dir: Path, *, parallel
             state.take(ready_files(plan.spec), parallel=parallel)
             outcome = state.refit(from_scratch=True)
             if outputs:
-                state.write_outputs(stop_reason="batch run finished", final=True)
+                state.write_outputs(stop_reason="batch run finished", final=True, figures=figures)
             return RunSummary("batch run finished", state.ledger.counts(), outcome, out_dir, state.table)
         finally:
             state.close()

@@ -42,6 +42,7 @@ class RunOutcome:
     counts: dict
     stop_reason: str
     temperature_c: float | None = None
+    config: Any = field(default=None, repr=False, compare=False)  # the validated RunConfig
 
     def k(self) -> dict | None:
         """The fitted rate constant as a parameter dict, or None."""
@@ -114,10 +115,9 @@ def run_sections(run: RunOutcome, config, with_spectra: bool, comparison: bool) 
                                                heading=f"Spectra through time: {run.label}"))
     if run.fit is not None:
         ranking = None
-        fit_section = dict(config.sections.get("fit", {}) or {})
-        if comparison and run.fit.data is not None and "mechanism" not in fit_section:
+        if comparison and run.fit.data is not None and not config.fit.mechanism:
             try:
-                ranking = compare_models(run.fit.data, observed=fit_section.get("observed", "reactant"))
+                ranking = compare_models(run.fit.data, observed=config.fit.observed)
             except KineticsError as error:  # a comparison that cannot run must not lose the report
                 log.warning("model comparison skipped for %s: %s", run.label, error)
         sections.append(rp.fit_section(run.fit, heading=f"Rate law: {run.label}", comparison=ranking,
@@ -174,13 +174,14 @@ def study_sections(study) -> list:
 
 
 # ---------------------------------------------------------------- single run
-def outcome_of(label: str, config_path: Path, out_dir: Path, summary, temperature_c=None) -> RunOutcome:
+def outcome_of(label: str, config_path: Path, out_dir: Path, summary, temperature_c=None,
+               config=None) -> RunOutcome:
     """A finished run (its :class:`~kinetics.run.engine.RunSummary`) as a RunOutcome."""
     table = summary.table if summary.table is not None else pd.DataFrame()
     outcome = summary.outcome
     fit = None if outcome is None else outcome.state
     return RunOutcome(label, out_dir, config_path, table, fit, dict(summary.counts), summary.stop_reason,
-                      temperature_c)
+                      temperature_c, config)
 
 
 def run_single(config_path: str | Path, out_dir: str | Path, report: bool = True) -> JobOutcome:
@@ -194,7 +195,7 @@ def run_single(config_path: str | Path, out_dir: str | Path, report: bool = True
     config = load_run_config(config_path)
     check_folder(config.folder)  # a missing folder is named before anything else
     summary = batch_run(plan_from_config(config, out_dir / "ledger.sqlite"), out_dir)
-    run = outcome_of(config_path.stem, config_path, out_dir, summary)
+    run = outcome_of(config_path.stem, config_path, out_dir, summary, config=config)
     html = pdf = None
     if report:
         files = rp.write_report(

@@ -87,20 +87,21 @@ class SeriesMeasurer:
 
     def __init__(self, config: RunConfig, folder: Path, reference_path: str | None = None):
         self.config = config
-        self.folder = Path(folder).resolve()
+        self.folder = Path(folder)  # resolved at each file: a watched folder may appear later
         self.reference: series.Reference | None = None
         self.reference_path = reference_path
 
     def __call__(self, path: Path) -> FileMeasurement:
         path = Path(path).resolve()
+        folder = self.folder.resolve()
         first = self.reference is None
         try:
             if self.reference is None and self.reference_path is None:
                 self.reference, measurement = series.measure_first(path, self.config)
-                self.reference_path = path.relative_to(self.folder).as_posix()
+                self.reference_path = path.relative_to(folder).as_posix()
             else:
                 if self.reference is None:
-                    self.reference = series.make_reference(self.folder / self.reference_path, self.config)
+                    self.reference = series.make_reference(folder / self.reference_path, self.config)
                 measurement = series.measure_file(path, self.config, self.reference)
         except InputFileError:
             raise
@@ -116,7 +117,7 @@ class SeriesMeasurer:
             "shift_ppm": item.shift_ppm, "flags": list(item.flags), "method": item.method})
             for item in measurement.signals)
         return FileMeasurement(measurement.mid_utc or measurement.start_utc, rows,
-                               record_of(measurement, self.folder, self.reference_path),
+                               record_of(measurement, folder, self.reference_path),
                                value=measurement)
 
 
@@ -138,6 +139,7 @@ class SeriesState:
         self._fits: dict = {}
         self._table: pd.DataFrame | None = None
         self._changed = True
+        self._held = False  # the table's fit groups are at held line shapes
 
     def __len__(self) -> int:
         return len(self._measurements)
@@ -163,17 +165,23 @@ class SeriesState:
                 self._measurements.pop(row.path, None)
             self._changed = True
 
-    def table(self, final: bool = False) -> pd.DataFrame:
-        """The series table: from memory, warm-started unless ``final`` (from scratch).
+    def table(self, final: bool = False, refresh: bool = True) -> pd.DataFrame:
+        """The series table from memory.
 
-        Between two turns without new files the previous table is returned as it is.
+        ``final``: from scratch (the batch run's table).  Otherwise the fit groups'
+        series-wide deconvolution starts from the previous turn's shapes when ``refresh``
+        (at most once per refresh interval), and between refreshes keeps those shapes and
+        solves only the areas.  Between two turns without new files the previous table is
+        returned as it is.
         """
         if not self._measurements:
             return pd.DataFrame({"time_s": []})
-        if self._changed or final:
+        if self._changed or final or (refresh and self._held):
             start = None if final else self._fits
-            self._table, fits = series.series_table(list(self._measurements.values()), self.config, start)
+            hold = not final and not refresh
+            self._table, fits = series.series_table(list(self._measurements.values()), self.config, start, hold)
             self._fits = fits if fits else self._fits
+            self._held = hold and bool(self._fits)
             self._changed = False
         return self._table
 

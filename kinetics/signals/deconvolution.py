@@ -153,8 +153,10 @@ def _levenberg_marquardt(residual, params: dict[str, _Bounded]) -> tuple[dict[st
     return dict(zip(names, external(best).tolist())), ier in (1, 2, 3, 4), message, int(info["nfev"])
 
 
-def _basis(ppm: np.ndarray, values: dict, components, observe_mhz: float, baseline_order: int) -> np.ndarray:
-    """Design matrix, shape (..., n, k + baseline_order + 1): unit-area multiplets then baseline."""
+def _basis(ppm: np.ndarray, values: dict, components, observe_mhz: float, baseline_order: int,
+           tails=None) -> np.ndarray:
+    """Design matrix, shape (..., n, k + baseline_order + 1 [+ t]): unit-area multiplets, baseline
+    [, solvent tails (fixed columns, see :func:`solvent_tails`)]."""
     columns = []
     for k, comp in enumerate(components):
         shape = comp.lineshape
@@ -165,6 +167,38 @@ def _basis(ppm: np.ndarray, values: dict, components, observe_mhz: float, baseli
     x = (ppm - ppm.mean(axis=-1, keepdims=True)) / max(np.ptp(ppm) / 2.0, 1e-12)
     for order in range(baseline_order + 1):
         columns.append(x ** order)
+    design = np.stack(columns, axis=-1)
+    if tails is None or tails.shape[-1] == 0:
+        return design
+    return np.concatenate([design, np.broadcast_to(tails, design.shape[:-1] + tails.shape[-1:])], axis=-1)
+
+
+def solvent_tails(ppm: np.ndarray, solvent_ppm, baseline_order: int) -> np.ndarray:
+    """Columns for the far tails of large solvent lines outside a fit window, shape (..., n, t).
+
+    A Lorentzian line of HWHM g at x_s is g/pi / ((x - x_s)^2 + g^2), which far from x_s
+    (|x - x_s| >> g) is proportional to 1/(x - x_s)^2: one column per solvent line, its
+    amplitude fitted per spectrum like the baseline.  This models the tail's curvature,
+    which a low-order local baseline cannot follow and which otherwise leaks into the
+    areas.  A line inside the window (or within 0.02 ppm of it) gets no column (its
+    tail model would be wrong there), nor does one whose tail the polynomial baseline
+    already follows to 0.1 % (a far line: the column would only make the fit singular).
+    """
+    axis = ppm if ppm.ndim == 1 else ppm.mean(axis=0)
+    x = (axis - axis.mean()) / max(np.ptp(axis) / 2.0, 1e-12)
+    poly = np.stack([x ** order for order in range(baseline_order + 1)], axis=-1)
+    columns = []
+    for centre in solvent_ppm:
+        if np.min(axis) - 0.02 <= centre <= np.max(axis) + 0.02:
+            continue
+        column = 1.0 / (ppm - centre) ** 2
+        column = column / np.max(np.abs(column))
+        flat = column if column.ndim == 1 else column.mean(axis=0)
+        rest = flat - poly @ np.linalg.lstsq(poly, flat, rcond=None)[0]
+        if np.linalg.norm(rest) > 1e-3 * np.linalg.norm(flat):
+            columns.append(column)
+    if not columns:
+        return np.zeros(ppm.shape + (0,))
     return np.stack(columns, axis=-1)
 
 
@@ -191,7 +225,7 @@ def _predict(design: np.ndarray, coef: np.ndarray) -> np.ndarray:
 
 
 def deconvolve(ppm: np.ndarray, data: np.ndarray, components, observe_mhz: float,
-               baseline_order: int = 1) -> DeconvolutionResult:
+               baseline_order: int = 1, solvent_ppm=()) -> DeconvolutionResult:
     """Fit multiplets to one or many spectra sharing positions, widths and J.
 
     Variable projection (Golub and Pereyra 1973): the nonlinear parameters (centre offsets,
@@ -213,19 +247,24 @@ def deconvolve(ppm: np.ndarray, data: np.ndarray, components, observe_mhz: float
         Converts Hz (widths, J) to ppm.
     baseline_order : int
         Polynomial baseline per spectrum (0 constant, 1 straight line, ...).
+    solvent_ppm : sequence of float
+        Large solvent lines outside the window whose tails reach it: each adds a tail
+        column (:func:`solvent_tails`) beside the baseline, fitted per spectrum.
     """
     with small_linear_algebra():
-        return _deconvolve(ppm, data, components, observe_mhz, baseline_order)
+        return _deconvolve(ppm, data, components, observe_mhz, baseline_order, tuple(solvent_ppm))
 
 
-def _deconvolve(ppm, data, components, observe_mhz: float, baseline_order: int) -> DeconvolutionResult:
+def _deconvolve(ppm, data, components, observe_mhz: float, baseline_order: int,
+                solvent_ppm=()) -> DeconvolutionResult:
     data = np.atleast_2d(np.asarray(data, dtype=float))
     ppm = np.asarray(ppm, dtype=float)
     if ppm.shape[-1] != data.shape[-1]:
         raise FitError(f"axis has {ppm.shape[-1]} points but the data {data.shape[-1]}")
     n_spectra, n_points = data.shape
     k = len(components)
-    n_linear = k + baseline_order + 1
+    tails = solvent_tails(ppm, solvent_ppm, baseline_order) if solvent_ppm else None
+    n_linear = k + baseline_order + 1 + (0 if tails is None else tails.shape[-1])
     if n_points <= n_linear + 4:
         raise FitError(f"fit window of {n_points} points is too small for {k} multiplets")
     if not (np.all(np.isfinite(data)) and np.all(np.isfinite(ppm))):
@@ -233,13 +272,13 @@ def _deconvolve(ppm, data, components, observe_mhz: float, baseline_order: int) 
     params = _nonlinear_params(components, observe_mhz)
 
     def residual(values):
-        design = _basis(ppm, values, components, observe_mhz, baseline_order)
+        design = _basis(ppm, values, components, observe_mhz, baseline_order, tails)
         coef = _solve_linear(design, data)
         return (data - _predict(design, coef)).ravel()
 
-    _coarse_start(params, ppm, data, components, observe_mhz, baseline_order)
+    _coarse_start(params, ppm, data, components, observe_mhz, baseline_order, tails)
     values, converged, message, evaluations = _levenberg_marquardt(residual, params)
-    design = _basis(ppm, values, components, observe_mhz, baseline_order)
+    design = _basis(ppm, values, components, observe_mhz, baseline_order, tails)
     coef = _solve_linear(design, data)
     resid = data - _predict(design, coef)
     free = list(values)
@@ -249,7 +288,7 @@ def _deconvolve(ppm, data, components, observe_mhz: float, baseline_order: int) 
     sigma2 = float(np.sum(resid ** 2) / dof)
     at_bound = [name for name in free if _at_bound(values[name], params[name])]
     cov_theta, cov_coef = _full_covariance(ppm, values, free, components, observe_mhz, baseline_order,
-                                           design, coef, sigma2)
+                                           design, coef, sigma2, tails)
     theta_err = dict(zip(free, np.sqrt(np.clip(np.diag(cov_theta), 0, None))))
     area_err = np.sqrt(np.clip(np.diagonal(cov_coef, axis1=1, axis2=2)[:, :k], 0, None))
     success = converged and not at_bound
@@ -272,7 +311,7 @@ def _deconvolve(ppm, data, components, observe_mhz: float, baseline_order: int) 
 
 
 def _coarse_start(params: dict[str, _Bounded], ppm: np.ndarray, data: np.ndarray, components,
-                  observe_mhz: float, baseline_order: int) -> None:
+                  observe_mhz: float, baseline_order: int, tails=None) -> None:
     """Move the starting centres to the best point of a grid search (in place).
 
     Narrow overlapped multiplets give a least-squares surface with local minima about a
@@ -297,6 +336,9 @@ def _coarse_start(params: dict[str, _Bounded], ppm: np.ndarray, data: np.ndarray
         grids.append(grid)
     x = (axis - axis.mean()) / max(np.ptp(axis) / 2.0, 1e-12)
     baseline = np.array([x ** order for order in range(baseline_order + 1)])
+    if tails is not None and tails.shape[-1]:
+        flat = tails if tails.ndim == 2 else tails.mean(axis=0)
+        baseline = np.vstack([baseline, flat.T])
     best = [int(np.argmin(np.abs(g))) for g in grids]
     if len(components) <= 2:
         rss = _rss_grid(columns, baseline, data)
@@ -363,7 +405,8 @@ def _at_bound(value: float, par: _Bounded) -> bool:
     return bool(np.isfinite(span) and min(value - par.min, par.max - value) < 1e-6 * span)
 
 
-def _full_covariance(ppm, values, free, components, observe_mhz, baseline_order, design, coef, sigma2):
+def _full_covariance(ppm, values, free, components, observe_mhz, baseline_order, design, coef, sigma2,
+                     tails=None):
     """Covariance of the shared parameters and of each spectrum's amplitudes (blockwise).
 
     With G_s = dA/dtheta c_s (n x p), the normal matrix of all parameters is
@@ -379,8 +422,8 @@ def _full_covariance(ppm, values, free, components, observe_mhz, baseline_order,
         up, down = dict(values), dict(values)
         up[name] += step
         down[name] -= step
-        d_design = (_basis(ppm, up, components, observe_mhz, baseline_order)
-                    - _basis(ppm, down, components, observe_mhz, baseline_order)) / (2 * step)
+        d_design = (_basis(ppm, up, components, observe_mhz, baseline_order, tails)
+                    - _basis(ppm, down, components, observe_mhz, baseline_order, tails)) / (2 * step)
         d_design = np.broadcast_to(d_design, design_s.shape)
         grads.append(np.einsum("snm,sm->sn", d_design, coef))
     gram = np.einsum("sni,snj->sij", design_s, design_s)
