@@ -14,11 +14,13 @@ greyscale.  Every axis label names its unit ("chemical shift / ppm", "time / min
 
 from __future__ import annotations
 
+import functools
 import io
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Mapping, Sequence
 
+import matplotlib
 import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
@@ -33,9 +35,64 @@ __all__ = [
     "concentration_figure",
     "arrhenius_figure",
     "eyring_figure",
+    "global_fit_figure",
     "png_bytes",
+    "svg_bytes",
+    "pdf_bytes",
     "save_png",
+    "save_figure",
+    "SINGLE_COLUMN_CM",
+    "DOUBLE_COLUMN_CM",
+    "figure_width_in",
 ]
+
+SINGLE_COLUMN_CM = 8.5   # one journal column (common practice: 8.3-8.9 cm)
+DOUBLE_COLUMN_CM = 17.5  # full page width (common practice: 17-18 cm)
+
+
+def figure_width_in(width: str | float) -> float:
+    """Figure width in inches: ``"single"`` (8.5 cm), ``"double"`` (17.5 cm) or a number of cm."""
+    if width == "single":
+        return SINGLE_COLUMN_CM / 2.54
+    if width == "double":
+        return DOUBLE_COLUMN_CM / 2.54
+    return float(width) / 2.54
+
+
+# Print sizes: 8 pt text, 7 pt ticks and legends, thin rules; no TeX (user text is drawn as
+# written) and TrueType (Type 42) fonts in PDF, so no Type 3 fonts reach a journal.
+_STYLE = {
+    "text.usetex": False,
+    "font.family": "DejaVu Sans",
+    "font.size": 8.0,
+    "axes.labelsize": 8.0,
+    "axes.titlesize": 8.5,
+    "xtick.labelsize": 7.0,
+    "ytick.labelsize": 7.0,
+    "legend.fontsize": 7.0,
+    "axes.linewidth": 0.6,
+    "xtick.major.width": 0.6,
+    "ytick.major.width": 0.6,
+    "lines.linewidth": 1.2,
+    "lines.markersize": 4.0,
+    "axes.formatter.use_mathtext": True,
+    "axes.formatter.limits": (-3, 4),
+    "pdf.fonttype": 42,
+    "ps.fonttype": 42,
+    "svg.fonttype": "path",
+    "figure.constrained_layout.h_pad": 0.03,
+    "figure.constrained_layout.w_pad": 0.03,
+}
+
+
+def _styled(function):
+    """Build the figure inside this module's style (rcParams restored afterwards)."""
+    @functools.wraps(function)
+    def wrapper(*args, **kwargs):
+        with matplotlib.rc_context(_STYLE):
+            return function(*args, **kwargs)
+    return wrapper
+
 
 
 @dataclass(frozen=True)
@@ -131,6 +188,7 @@ def _pick_traces(n_spectra: int, max_traces: int) -> np.ndarray:
     return np.unique(np.round(np.linspace(0, n_spectra - 1, max_traces)).astype(int))
 
 
+@_styled
 def stacked_spectra_figure(
     spectra: Sequence,
     *,
@@ -139,6 +197,7 @@ def stacked_spectra_figure(
     ppm_limits: tuple[float, float] | None = None,
     max_traces: int = 12,
     title: str | None = None,
+    width: str | float = "double",
 ) -> Figure:
     """Spectra through time, stacked bottom (first) to top (last), tracked windows shaded.
 
@@ -158,6 +217,8 @@ def stacked_spectra_figure(
         At most this many spectra are drawn, evenly spaced through the series (first and
         last always included).
     title : str, optional
+    width : "single", "double" or float (cm)
+        Print width (8.5 cm, 17.5 cm or the given centimetres).
 
     Returns
     -------
@@ -184,14 +245,15 @@ def stacked_spectra_figure(
     step = 0.35 * reference_height if not window_list else 0.8 * reference_height
     clip_height = None if not window_list else 1.6 * reference_height
 
-    figure = _new_figure(7.5, 2.2 + 0.32 * len(chosen))
+    width_in = figure_width_in(width)
+    figure = _new_figure(width_in, min(1.6 + 0.22 * len(chosen), 1.1 * width_in))
     ax = figure.add_subplot(1, 1, 1)
     for number, (name, lo, hi) in enumerate(window_list):
         ax.axvspan(lo, hi, facecolor=_WINDOW_FILL, edgecolor="#8c7a4a", alpha=0.55,
                    hatch=_WINDOW_HATCHES[number % len(_WINDOW_HATCHES)], linewidth=0.6, zorder=0)
         # labels of neighbouring windows alternate in height so they do not overprint
-        ax.text(0.5 * (lo + hi), 1.0 + 0.045 * (number % 3), _plain(name), transform=ax.get_xaxis_transform(),
-                ha="center", va="bottom", fontsize=8, color="#4a3f22", rotation=0, clip_on=False)
+        ax.text(0.5 * (lo + hi), 1.01 + 0.05 * (number % 3), _plain(name), transform=ax.get_xaxis_transform(),
+                ha="center", va="bottom", fontsize=7, color="#4a3f22", rotation=0, clip_on=False)
 
     scale, unit = _time_scale(max(time_s) if time_s is not None and len(time_s) else 0.0)
     for rank, index in enumerate(chosen):
@@ -203,7 +265,7 @@ def stacked_spectra_figure(
         shown = intensity[inside] if clip_height is None else np.minimum(intensity[inside], clip_height)
         ax.plot(ppm[inside], shown + offset, color=colour, linewidth=0.8)
         if time_s is not None:
-            ax.text(low, offset, f" {time_s[index] / scale:.3g} {unit}", fontsize=7,
+            ax.text(low, offset, f" {time_s[index] / scale:.3g} {unit}", fontsize=6.5,
                     va="bottom", ha="left", color=colour, clip_on=False)
     ax.set_xlim(high, low)  # chemical shift increases to the left, as spectra are drawn
     ax.set_xlabel("chemical shift / ppm")
@@ -213,7 +275,7 @@ def stacked_spectra_figure(
     ax.grid(False)
     ax.spines["left"].set_visible(False)
     if title:
-        figure.suptitle(_plain(title), fontsize=11)
+        figure.suptitle(_plain(title), fontsize=9)
     return figure
 
 
@@ -224,6 +286,7 @@ def _as_array_map(values) -> dict[str, np.ndarray]:
     return {str(name): np.asarray(array, float) for name, array in values.items()}
 
 
+@_styled
 def concentration_figure(
     time_s,
     observed: Mapping[str, Sequence[float]],
@@ -235,6 +298,8 @@ def concentration_figure(
     fitted: Mapping[str, Sequence[float]] | None = None,
     concentration_unit: str = "mol L⁻¹",
     title: str | None = None,
+    width: str | float = "double",
+    start_label: str | None = None,
 ) -> Figure:
     """Concentration time courses with fitted curves, 95 % bands and a residual panel.
 
@@ -258,6 +323,13 @@ def concentration_figure(
     concentration_unit : str
         Unit written on the concentration axes (e.g. ``"mol L⁻¹"`` or ``"fraction"``).
     title : str, optional
+    width : "single", "double" or float (cm)
+    start_label : str, optional
+        What time zero is (e.g. "from 08:30"), added to the time axis label.
+
+    Every species gets its own marker, line style and colour; put products, the standard
+    and a mass balance (sum of reactant and products) in ``observed`` under their own
+    names to show them: each is drawn with its band and residuals where a curve is given.
 
     Returns
     -------
@@ -275,7 +347,9 @@ def concentration_figure(
     scale, unit = _time_scale(float(np.nanmax(np.concatenate(all_times))) if time_s.size else 0.0)
     with_residuals = bool(curve) and curve_t is not None
 
-    figure = _new_figure(7.5, 6.0 if with_residuals else 4.2)
+    width_in = figure_width_in(width)
+    height_in = (0.78 if with_residuals else 0.6) * width_in if width_in < 5 else (4.3 if with_residuals else 3.2)
+    figure = _new_figure(width_in, height_in)
     if with_residuals:
         grid = figure.add_gridspec(2, 1, height_ratios=(3, 1.2))
         ax = figure.add_subplot(grid[0])
@@ -302,60 +376,91 @@ def concentration_figure(
                             marker=style.marker, markersize=3.5, markerfacecolor="white",
                             markeredgecolor=style.colour, ecolor=style.colour, elinewidth=0.6)
     ax.set_ylabel(f"concentration / {_plain(concentration_unit)}")
-    ax.legend(fontsize=7, frameon=False, ncols=2 if len(observed) > 1 else 1)
+    # the legend sits above the panel, never over the data
+    handles, labels = ax.get_legend_handles_labels()
+    n_cols = min(len(labels), 3 if width_in > 5 else 2)
+    ax.legend(handles, labels, fontsize=6.5, frameon=False, ncols=max(n_cols, 1), loc="lower left",
+              bbox_to_anchor=(0.0, 1.01), borderaxespad=0.0, handlelength=2.4, columnspacing=1.0)
     _style_axes(ax)
+    time_label = f"time / {unit}" if not start_label else f"time {_plain(start_label)} / {unit}"
     if ax_res is not None:
         ax_res.axhline(0.0, color="#444444", linewidth=0.8)
         ax_res.set_ylabel(f"residual / {_plain(concentration_unit)}")
-        ax_res.set_xlabel(f"time / {unit}")
+        ax_res.set_xlabel(time_label)
         _style_axes(ax_res)
         ax.tick_params(labelbottom=False)
     else:
-        ax.set_xlabel(f"time / {unit}")
+        ax.set_xlabel(time_label)
     if title:
-        figure.suptitle(_plain(title), fontsize=11)
+        figure.suptitle(_plain(title), fontsize=9)
     return figure
 
 
 # ---------------------------------------------------------------- temperature
+def _is_temperature_result(item) -> bool:
+    return hasattr(item, "arrhenius") and hasattr(item, "eyring") and hasattr(item, "temperature_kelvin")
+
+
+def _result_line(result, which: str, n_line: int = 100) -> dict:
+    """The weighted line of a TemperatureResult with its 95 % band, on a temperature grid."""
+    from kinetics.temperature import quantile95
+
+    t = np.asarray(result.temperature_kelvin, float)
+    x = 1.0 / t
+    pad = 0.06 * np.ptp(x) if np.ptp(x) > 0 else 0.02 * x.mean()
+    grid_x = np.linspace(x.min() - pad, x.max() + pad, n_line)
+    line_fit = getattr(result, which)
+    value, stderr = line_fit.predict(grid_x, result.basis)
+    q = quantile95(result.basis, line_fit.dof)
+    return {"temperature_kelvin": 1.0 / grid_x, "value": value, "low": value - q * stderr, "high": value + q * stderr}
+
+
 def _temperature_figure(
     temperature_kelvin, y, y_sigma, *, line, ylabel: str, annotation: str | None,
-    labels: Sequence[str] | None, title: str | None,
+    labels: Sequence[str] | None, title: str | None, width="single", global_line=None,
 ) -> Figure:
     temperature_kelvin = np.asarray(temperature_kelvin, float)
     x = 1000.0 / temperature_kelvin
-    figure = _new_figure(6.0, 4.4)
+    width_in = figure_width_in(width)
+    figure = _new_figure(width_in, 0.92 * width_in if width_in < 5 else 0.6 * width_in)
     ax = figure.add_subplot(1, 1, 1)
-    style = series_style(0)
+    style, line_style, global_style = series_style(0), series_style(1), series_style(3)
     if line is not None:
         line_x = 1000.0 / np.asarray(line["temperature_kelvin"], float)
         order = np.argsort(line_x)
         if line.get("low") is not None and line.get("high") is not None:
             ax.fill_between(line_x[order], np.asarray(line["low"], float)[order],
-                            np.asarray(line["high"], float)[order], color=series_style(1).colour,
+                            np.asarray(line["high"], float)[order], color=line_style.colour,
                             alpha=_BAND_ALPHA, linewidth=0, label="95 % band")
-        ax.plot(line_x[order], np.asarray(line["value"], float)[order], color=series_style(1).colour,
-                linestyle=series_style(1).linestyle, linewidth=1.5, label="weighted fit")
-    ax.errorbar(x, y, yerr=y_sigma, linestyle="none", marker=style.marker, markersize=5,
+        ax.plot(line_x[order], np.asarray(line["value"], float)[order], color=line_style.colour,
+                linestyle="-", linewidth=1.3, label="weighted line (two-step)")
+    if global_line is not None:
+        gx = 1000.0 / np.asarray(global_line["temperature_kelvin"], float)
+        order = np.argsort(gx)
+        ax.plot(gx[order], np.asarray(global_line["value"], float)[order], color=global_style.colour,
+                linestyle="--", linewidth=1.3, label="global fit")
+    ax.errorbar(x, y, yerr=y_sigma, linestyle="none", marker=style.marker, markersize=4.5,
                 markerfacecolor="white", markeredgecolor=style.colour, ecolor=style.colour,
-                capsize=2.5, elinewidth=0.9, label="runs (±1 σ)")
+                capsize=2.0, elinewidth=0.8, label="runs (± u)", zorder=3)
     if labels is not None:
         for xi, yi, text in zip(x, y, labels):
-            ax.annotate(_plain(text), (xi, yi), textcoords="offset points", xytext=(5, 4), fontsize=7)
+            ax.annotate(_plain(text), (xi, yi), textcoords="offset points", xytext=(4, -9), fontsize=6.5)
     ax.set_xlabel("1000/T / K⁻¹")
     ax.set_ylabel(ylabel)
-    top = ax.secondary_xaxis("top", functions=(lambda v: 1000.0 / np.asarray(v) - 273.15,
-                                               lambda c: 1000.0 / (np.asarray(c) + 273.15)))
-    top.set_xlabel("temperature / °C", fontsize=8)
-    top.tick_params(labelsize=7)
+    # ticks a little beyond the data on both sides keep the end labels inside the figure
+    span = np.ptp(x) if np.ptp(x) > 0 else 0.05 * x.mean()
+    ax.set_xlim(x.min() - 0.1 * span, x.max() + 0.1 * span)
+    top = ax.secondary_xaxis("top", functions=(lambda v: 1000.0 / np.asarray(v, float) - 273.15,
+                                               lambda c: 1000.0 / (np.asarray(c, float) + 273.15)))
+    top.set_xlabel("temperature / °C")
     if annotation:
-        ax.text(0.98, 0.96, _plain(annotation), transform=ax.transAxes, ha="right", va="top", fontsize=8,
-                bbox={"boxstyle": "round,pad=0.3", "facecolor": "white", "edgecolor": "#999999"})
-    ax.legend(fontsize=7, frameon=False, loc="lower left")
+        ax.text(0.97, 0.96, _plain(annotation), transform=ax.transAxes, ha="right", va="top", fontsize=7,
+                bbox={"boxstyle": "round,pad=0.3", "facecolor": "white", "edgecolor": "#999999", "linewidth": 0.5})
+    ax.legend(fontsize=6.5, frameon=False, loc="lower left", handlelength=2.4)
     _style_axes(ax)
     ax.spines["top"].set_visible(True)
     if title:
-        figure.suptitle(_plain(title), fontsize=11)
+        figure.suptitle(_plain(title), fontsize=9)
     return figure
 
 
@@ -365,17 +470,44 @@ def _relative_sigma(k, k_stderr) -> np.ndarray | None:
     return np.asarray(k_stderr, float) / np.asarray(k, float)
 
 
+def _temperature_inputs(first, k_per_s, k_stderr_per_s, line, which):
+    """(T, k, u(k), line, k unit) from a TemperatureResult or from plain arrays."""
+    if _is_temperature_result(first):
+        stderr = None if first.k_stderr is None else np.asarray(first.k_stderr, float)
+        return (np.asarray(first.temperature_kelvin, float), np.asarray(first.k, float), stderr,
+                line if line is not None else _result_line(first, which), getattr(first, "k_unit", "s^-1"))
+    if k_per_s is None:
+        raise ValueError("give a TemperatureResult, or temperatures and rate constants")
+    return np.asarray(first, float), np.asarray(k_per_s, float), k_stderr_per_s, line, "s^-1"
+
+
+def _global_ln_k(global_result, grid_kelvin) -> np.ndarray | None:
+    if global_result is None or not getattr(global_result, "success", True):
+        return None
+    return np.log(np.asarray(global_result.k_at(grid_kelvin), float))
+
+
+@_styled
 def arrhenius_figure(
     temperature_kelvin,
-    k_per_s,
+    k_per_s=None,
     k_stderr_per_s=None,
     *,
+    global_result=None,
     line: Mapping[str, Sequence[float]] | None = None,
     annotation: str | None = None,
     labels: Sequence[str] | None = None,
     title: str | None = None,
+    width: str | float = "single",
 ) -> Figure:
-    """Arrhenius plot: ln(k / s⁻¹) against 1000/T, with the fit line and its 95 % band.
+    """Arrhenius plot: ln(k / s⁻¹) against 1000/T, the weighted line, its 95 % band, a °C top axis.
+
+    ``ln k = ln A - Ea / (R T)``: a straight line of slope -Ea/(1000 R) on this axis.
+
+    Either ``arrhenius_figure(result, global_result=None)`` with a
+    :class:`kinetics.temperature.TemperatureResult` (line, band, labels and the Ea
+    annotation are taken from it; with a :class:`~kinetics.temperature.GlobalFitResult`
+    its line is drawn dashed), or the plain-array form below.
 
     Parameters
     ----------
@@ -383,51 +515,194 @@ def arrhenius_figure(
         One point per run.
     k_stderr_per_s : array, shape (r,), optional
         Standard error of k; drawn as σ(ln k) = σ(k)/k.
+    global_result : GlobalFitResult, optional
+        Its ln k(T) is drawn as a dashed line.
     line : mapping, optional
         ``temperature_kelvin`` (shape (m,)), ``value`` (ln k on it) and optionally ``low``
         and ``high`` (the 95 % band of ln k).
     annotation : str, optional
-        Text placed in a box (e.g. "Ea = 75.2 ± 1.1 kJ/mol").
+        Text placed in a box (e.g. "Ea = 75.2 ± 1.1 kJ mol⁻¹").
     labels : sequence of str, optional
         Text beside each point (e.g. run names).
     title : str, optional
+    width : "single" (default), "double" or float (cm)
     """
-    y = np.log(np.asarray(k_per_s, float))
-    return _temperature_figure(temperature_kelvin, y, _relative_sigma(k_per_s, k_stderr_per_s),
-                               line=line, ylabel="ln(k / s⁻¹)", annotation=annotation,
-                               labels=labels, title=title)
+    result = temperature_kelvin if _is_temperature_result(temperature_kelvin) else None
+    t, k, k_u, line, k_unit = _temperature_inputs(temperature_kelvin, k_per_s, k_stderr_per_s, line, "arrhenius")
+    if result is not None:
+        from kinetics.numbers import format_uncertain
+
+        ea = result.ea()
+        annotation = annotation or f"Ea = {format_uncertain(ea.value, ea.stderr, 'kJ/mol')}"
+        labels = labels if labels is not None else list(result.labels)
+    global_line = None
+    if global_result is not None:
+        grid = np.asarray(line["temperature_kelvin"], float) if line is not None else np.linspace(t.min(), t.max(), 50)
+        values = _global_ln_k(global_result, grid)
+        global_line = None if values is None else {"temperature_kelvin": grid, "value": values}
+    from kinetics.numbers import unit_text
+
+    return _temperature_figure(t, np.log(k), _relative_sigma(k, k_u), line=line,
+                               ylabel=f"ln(k / {unit_text(k_unit)})", annotation=annotation,
+                               labels=labels, title=title, width=width, global_line=global_line)
 
 
+@_styled
 def eyring_figure(
     temperature_kelvin,
-    k_per_s,
+    k_per_s=None,
     k_stderr_per_s=None,
     *,
+    global_result=None,
     line: Mapping[str, Sequence[float]] | None = None,
     annotation: str | None = None,
     labels: Sequence[str] | None = None,
     title: str | None = None,
+    width: str | float = "single",
 ) -> Figure:
-    """Eyring plot: ln(k/T / s⁻¹ K⁻¹) against 1000/T, with the fit line and its 95 % band.
+    """Eyring plot: ln((k/T) / s⁻¹ K⁻¹) against 1000/T, with the line, its 95 % band, a °C top axis.
 
-    Parameters are as for :func:`arrhenius_figure`; ``line['value']`` (and ``low``/``high``)
-    are ln(k/T) on ``line['temperature_kelvin']``.
+    ``ln(k/T) = ln(κ k_B / h) + ΔS‡/R - ΔH‡/(R T)`` (transition-state theory, κ = 1).
+    Called as :func:`arrhenius_figure` (a TemperatureResult, or plain arrays with ``line``
+    holding ln(k/T)); from a result the annotation gives ΔH‡ and ΔS‡ rounded with their
+    uncertainties.  ``global_result`` draws the global fit's ln(k/T) dashed.
     """
-    temperature_kelvin = np.asarray(temperature_kelvin, float)
-    y = np.log(np.asarray(k_per_s, float) / temperature_kelvin)
-    return _temperature_figure(temperature_kelvin, y, _relative_sigma(k_per_s, k_stderr_per_s),
-                               line=line, ylabel="ln((k/T) / s⁻¹ K⁻¹)", annotation=annotation,
-                               labels=labels, title=title)
+    result = temperature_kelvin if _is_temperature_result(temperature_kelvin) else None
+    t, k, k_u, line, k_unit = _temperature_inputs(temperature_kelvin, k_per_s, k_stderr_per_s, line, "eyring")
+    if result is not None:
+        from kinetics.numbers import format_uncertain
+
+        dh, ds = result.dh(), result.ds()
+        annotation = annotation or (f"ΔH‡ = {format_uncertain(dh.value, dh.stderr, 'kJ/mol')}\n"
+                                    f"ΔS‡ = {format_uncertain(ds.value, ds.stderr, 'J/(mol K)')}")
+        labels = labels if labels is not None else list(result.labels)
+    global_line = None
+    if global_result is not None:
+        grid = np.asarray(line["temperature_kelvin"], float) if line is not None else np.linspace(t.min(), t.max(), 50)
+        values = _global_ln_k(global_result, grid)
+        global_line = None if values is None else {"temperature_kelvin": grid, "value": values - np.log(grid)}
+    from kinetics.numbers import unit_text
+
+    return _temperature_figure(t, np.log(k / t), _relative_sigma(k, k_u), line=line,
+                               ylabel=f"ln((k/T) / {unit_text(k_unit)} K⁻¹)", annotation=annotation,
+                               labels=labels, title=title, width=width, global_line=global_line)
+
+
+@_styled
+def global_fit_figure(
+    runs,
+    global_result,
+    model=None,
+    *,
+    concentration_unit: str = "mol L⁻¹",
+    width: str | float = "double",
+    max_columns: int = 4,
+    title: str | None = None,
+) -> Figure:
+    """Every run's data with the curve of the global fit, one panel per run, residuals below.
+
+    The global fit is ``k(T) = k_ref exp(-(Ea/R)(1/T - 1/T_ref))`` with one rate law over
+    all runs; each panel has its own time axis (s, min or h) so runs of very different
+    speed stay readable without a logarithmic time axis.
+
+    Parameters
+    ----------
+    runs : sequence of kinetics.temperature.KineticRun
+        ``label``, ``temperature_kelvin``, ``time_s``, ``concentration_mol_per_l`` and
+        optionally ``sigma_mol_per_l``.
+    global_result : kinetics.temperature.GlobalFitResult
+        ``k_at(T)`` and ``nuisance`` (per-run parameters, same order as ``runs``).
+    model : kinetics.temperature.GlobalModel, optional
+        ``model.function(t, k, **nuisance)``; without it only the data are drawn.
+    concentration_unit, width, title :
+        As for :func:`concentration_figure`.
+    max_columns : int
+        Panels per row.
+    """
+    runs = list(runs)
+    if not runs:
+        raise ValueError("global_fit_figure needs at least one run")
+    n_cols = min(len(runs), max_columns)
+    n_rows = int(np.ceil(len(runs) / n_cols))
+    width_in = figure_width_in(width)
+    panel_h = 0.95 * width_in / n_cols
+    figure = _new_figure(width_in, n_rows * panel_h * 1.45 + 0.3)
+    grid = figure.add_gridspec(2 * n_rows, n_cols, height_ratios=[3, 1.2] * n_rows)
+    nuisance = list(getattr(global_result, "nuisance", ())) if global_result is not None else []
+    shared = None
+    for i, run in enumerate(runs):
+        row, col = divmod(i, n_cols)
+        ax = figure.add_subplot(grid[2 * row, col], sharey=shared)
+        ax_res = figure.add_subplot(grid[2 * row + 1, col], sharex=ax)
+        shared = shared or ax
+        style = series_style(i)
+        time_s = np.asarray(run.time_s, float)
+        conc = np.asarray(run.concentration_mol_per_l, float)
+        sigma = getattr(run, "sigma_mol_per_l", None)
+        scale, unit = _time_scale(float(time_s.max()) if time_s.size else 0.0)
+        ax.errorbar(time_s / scale, conc, yerr=sigma, linestyle="none", marker=style.marker, markersize=3,
+                    markerfacecolor="white", markeredgecolor=style.colour, ecolor=style.colour,
+                    elinewidth=0.5, capsize=0, label="measured")
+        if model is not None and i < len(nuisance) and time_s.size:
+            k = float(global_result.k_at(run.temperature_kelvin))
+            curve_t = np.linspace(0.0, float(time_s.max()), 300)
+            ax.plot(curve_t / scale, model.function(curve_t, k, **nuisance[i]), color="#222222",
+                    linestyle=style.linestyle, linewidth=1.1, label="global fit")
+            residual = conc - model.function(time_s, k, **nuisance[i])
+            ax_res.errorbar(time_s / scale, residual, yerr=sigma, linestyle="none", marker=style.marker,
+                            markersize=2.5, markerfacecolor="white", markeredgecolor=style.colour,
+                            ecolor=style.colour, elinewidth=0.5, capsize=0)
+        ax_res.axhline(0.0, color="#444444", linewidth=0.7)
+        ax.set_title(f"{_plain(run.label)}, {run.temperature_kelvin - 273.15:.1f} °C", fontsize=7.5)
+        ax_res.set_xlabel(f"time / {unit}")
+        ax.tick_params(labelbottom=False)
+        if col == 0:
+            ax.set_ylabel(f"concentration / {_plain(concentration_unit)}")
+            ax_res.set_ylabel(f"residual / {_plain(concentration_unit)}")
+        else:
+            ax.tick_params(labelleft=True)
+        if i == 0:
+            ax.legend(fontsize=6, frameon=False, loc="upper right", handlelength=2.0)
+        _style_axes(ax)
+        _style_axes(ax_res)
+    if title:
+        figure.suptitle(_plain(title), fontsize=9)
+    return figure
 
 
 # ---------------------------------------------------------------- output
-def png_bytes(figure: Figure, dpi: int = 130) -> bytes:
-    """The figure as PNG bytes (no software banner in the metadata)."""
+def _save(figure: Figure, fmt: str, dpi: int) -> bytes:
     buffer = io.BytesIO()
-    figure.savefig(buffer, format="png", dpi=dpi, metadata=_PNG_METADATA, facecolor="white")
+    metadata = _PNG_METADATA if fmt == "png" else ({"Creator": None, "Producer": None} if fmt == "pdf" else {"Creator": None})
+    with matplotlib.rc_context({"pdf.fonttype": 42, "ps.fonttype": 42, "svg.fonttype": "path",
+                                "svg.hashsalt": "kinetics"}):
+        figure.savefig(buffer, format=fmt, dpi=dpi, metadata=metadata, facecolor="white")
     return buffer.getvalue()
 
 
-def save_png(figure: Figure, path: str | Path, dpi: int = 130) -> Path:
+def png_bytes(figure: Figure, dpi: int = 300) -> bytes:
+    """The figure as PNG bytes (no software banner in the metadata)."""
+    return _save(figure, "png", dpi)
+
+
+def svg_bytes(figure: Figure) -> bytes:
+    """The figure as SVG (text as paths, so it looks the same without our fonts)."""
+    return _save(figure, "svg", 72)
+
+
+def pdf_bytes(figure: Figure) -> bytes:
+    """The figure as a one-page vector PDF with embedded TrueType (Type 42) fonts, no Type 3."""
+    return _save(figure, "pdf", 300)
+
+
+def save_png(figure: Figure, path: str | Path, dpi: int = 300) -> Path:
     """Write the figure as a PNG file atomically (temporary file, then rename)."""
     return write_atomic(path, png_bytes(figure, dpi=dpi))
+
+
+def save_figure(figure: Figure, stem: str | Path, formats: Sequence[str] = ("svg", "png"),
+                dpi: int = 300) -> dict[str, Path]:
+    """Write ``stem.svg``, ``stem.png`` (``dpi``) and/or ``stem.pdf`` atomically; returns format -> path."""
+    stem = Path(stem)
+    makers = {"svg": lambda: svg_bytes(figure), "png": lambda: png_bytes(figure, dpi), "pdf": lambda: pdf_bytes(figure)}
+    return {fmt: write_atomic(stem.with_suffix(f".{fmt}"), makers[fmt]()) for fmt in formats}

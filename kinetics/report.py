@@ -30,7 +30,6 @@ import io
 import logging
 import platform
 import re
-import textwrap
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
@@ -41,7 +40,7 @@ import pandas as pd
 from matplotlib.backends.backend_pdf import PdfPages
 from matplotlib.figure import Figure
 
-from kinetics import plots
+from kinetics import numbers, plots
 from kinetics.atomic import write_atomic
 from kinetics.jsonio import dumps
 from kinetics.plots import png_bytes
@@ -62,6 +61,7 @@ __all__ = [
     "spectra_section",
     "fit_section",
     "temperature_section",
+    "global_section",
 ]
 
 logger = logging.getLogger(__name__)
@@ -102,13 +102,19 @@ class FigureBlock:
 
 @dataclass(frozen=True)
 class TableBlock:
-    """A table (written as CSV under ``name``) with a heading and a caption."""
+    """A table (written as CSV under ``name``) with a heading and a caption.
+
+    ``frame`` keeps machine column names and full precision (it is what the CSV holds).
+    People see ``display`` when given, else :func:`kinetics.numbers.human_frame` of
+    ``frame``: "quantity / unit" headings, value and uncertainty rounded together.
+    """
 
     heading: str
     frame: pd.DataFrame
     name: str = ""
     caption: str = ""
     digits: int = 5
+    display: pd.DataFrame | None = None
 
 
 @dataclass(frozen=True)
@@ -216,6 +222,13 @@ def _format_cell(value, digits: int) -> str:
     return str(value)
 
 
+def _display_frame(block: "TableBlock") -> pd.DataFrame:
+    """The table as people read it (headings with units, numbers rounded), all text."""
+    if block.display is not None:
+        return _plain_frame(block.display).astype(str)
+    return numbers.human_frame(_plain_frame(block.frame))
+
+
 def _input_frame(inputs) -> pd.DataFrame:
     if inputs is None:
         return pd.DataFrame({"file": pd.Series(dtype=str), "sha256": pd.Series(dtype=str)})
@@ -257,12 +270,18 @@ def comparison_frame(table) -> pd.DataFrame:
 
 # ---------------------------------------------------------------- ready-made sections
 def spectra_section(spectra, *, windows=None, time_s=None, heading: str = "Spectra through time",
-                    title: str | None = None, max_traces: int = 12) -> Section:
-    """Stacked spectra with the tracked windows (see :func:`kinetics.plots.stacked_spectra_figure`)."""
+                    title: str | None = None, max_traces: int = 12, total: int | None = None) -> Section:
+    """Stacked spectra with the tracked windows (see :func:`kinetics.plots.stacked_spectra_figure`).
+
+    ``total`` is the number of spectra in the run when ``spectra`` is already a selection
+    (the caption then says "12 of 36 spectra").
+    """
     figure = plots.stacked_spectra_figure(spectra, time_s=time_s, windows=windows, title=title,
                                           max_traces=max_traces)
     shown = min(len(spectra), max(2, max_traces))
-    caption = (f"{shown} of {len(spectra)} spectra, first at the bottom; shaded bands are the "
+    total = len(spectra) if total is None else max(int(total), shown)
+    count = f"{shown} of {total} spectra" if total != shown or total == len(spectra) else f"{shown} spectra"
+    caption = (f"{count}, first at the bottom; shaded bands are the "
                "tracked signal windows" + ("; traces are scaled to the tracked signals and taller lines "
                                            "(a solvent) are clipped." if windows else "."))
     return Section(heading, (FigureBlock("Stacked spectra", figure, caption, name=f"{heading}_spectra"),))
@@ -301,10 +320,20 @@ def fit_section(fit, *, heading: str = "Concentrations and fitted rate law", com
                           f"Model {summary.get('model')}: {summary.get('description', '')}. Shaded: 95 % "
                           "band of the fitted curve; lower panel: measured minus fitted.", name=f"{name}_courses"),
               TableBlock("Fitted parameters", parameters_frame(summary["params"]), name=f"{name}_parameters",
-                         caption=f"Fit {status}: {summary.get('message', '')}"),
+                         caption=f"Fit {status}: {summary.get('message', '')}. Value ± standard uncertainty; "
+                                 "95 % interval."),
               TableBlock("Fit statistics", pd.DataFrame([{key: summary.get(key) for key in (
                   "model", "n_points", "dof", "chi_square", "reduced_chi_square", "aicc", "bic", "converged")}]),
                   name=f"{name}_statistics")]
+    half = fit.half_life() if hasattr(fit, "half_life") and summary.get("converged") else None
+    if half is not None and np.isfinite(half.value):
+        u = getattr(half, "stderr", None)
+        text = numbers.format_duration(half.value, u if u is not None and np.isfinite(u) else None)
+        if half.ci95 is not None and all(np.isfinite(half.ci95)):
+            unit, scale = numbers.duration_unit(half.value)
+            text += f" (95 %: {numbers.format_interval(half.ci95[0] / scale, half.ci95[1] / scale, unit)})"
+        blocks[0] = FigureBlock(blocks[0].heading, blocks[0].figure, blocks[0].caption + f" Half-life {text}.",
+                                name=blocks[0].name)
     if comparison is not None:
         table = comparison.table if hasattr(comparison, "table") else comparison
         verdict = getattr(comparison, "verdict", "")
@@ -330,7 +359,7 @@ def _temperature_lines(result, n_line: int) -> tuple[dict, dict]:
 
 
 def temperature_section(result, *, heading: str = "Temperature dependence", n_line: int = 100,
-                        name: str = "temperature") -> Section:
+                        name: str = "temperature", global_result=None) -> Section:
     """Arrhenius and Eyring plots with their 95 % bands, per-run and parameter tables.
 
     ``result`` is a :class:`kinetics.temperature.TemperatureResult` (read through
@@ -339,30 +368,57 @@ def temperature_section(result, *, heading: str = "Temperature dependence", n_li
     """
     summary = result.to_dict()
     arrhenius_line, eyring_line = _temperature_lines(result, n_line)
-    ea, dh, ds = (summary[k] for k in ("ea_kj_per_mol", "dh_kj_per_mol", "ds_j_per_mol_k"))
-
-    def _pm(entry, unit):
-        return f"{entry['value']:.4g} ± {(entry['stderr'] or float('nan')):.2g} {unit}"
-
-    arrhenius = plots.arrhenius_figure(result.temperature_kelvin, result.k, result.k_stderr,
-                                       line=arrhenius_line, labels=result.labels,
-                                       annotation=f"Ea = {_pm(ea, 'kJ/mol')}")
-    eyring = plots.eyring_figure(result.temperature_kelvin, result.k, result.k_stderr, line=eyring_line,
-                                 labels=result.labels,
-                                 annotation=f"ΔH‡ = {_pm(dh, 'kJ/mol')}\nΔS‡ = {_pm(ds, 'J/(mol K)')}")
+    arrhenius = plots.arrhenius_figure(result, global_result=global_result, line=arrhenius_line)
+    eyring = plots.eyring_figure(result, global_result=global_result, line=eyring_line)
     keys = [k for k in ("ea_kj_per_mol", "ln_a", "a_per_s", "a", "dh_kj_per_mol", "ds_j_per_mol_k",
                         "dg_kj_per_mol") if isinstance(summary.get(k), Mapping)]
     parameters = parameters_frame({k: summary[k] for k in keys})
-    band_note = f"Band: 95 % interval of the line ({summary.get('interval_method', '')})."
+    band_note = (f"Points: ln k of each run ± standard uncertainty; shaded: 95 % band of the weighted line "
+                 f"({summary.get('interval_method', '')})" + ("; dashed: the global fit" if global_result is not None
+                                                             else "") + ".")
+    display = parameters.copy()
+    display["parameter"] = [numbers.column_heading(p).split(" / ")[0] for p in display["parameter"]]
+    t_ref = summary.get("t_ref_kelvin")
+    notes = [f"ΔG‡ at {t_ref:.2f} K." if isinstance(t_ref, (int, float)) else ""]
+    notes += [str(w) for w in summary.get("warnings", []) if str(w).strip()]
     blocks = (
         FigureBlock("Arrhenius plot", arrhenius, band_note, name=f"{name}_arrhenius"),
         FigureBlock("Eyring plot", eyring, band_note + " Transmission coefficient taken as 1.",
                     name=f"{name}_eyring"),
         TableBlock("Activation parameters", parameters, name=f"{name}_parameters",
-                   caption=f"dG‡ at {summary.get('t_ref_kelvin')} K; " + "; ".join(summary.get("warnings", []))),
-        TableBlock("Rate constant of each run", result.table(), name=f"{name}_runs"),
+                   caption=" ".join(n for n in notes if n) + " Value ± standard uncertainty; 95 % interval.",
+                   display=numbers.human_frame(display)),
+        TableBlock("Rate constant of each run", result.table(), name=f"{name}_runs",
+                   display=numbers.human_frame(result.table()[["label", "temperature_kelvin", "temperature_c", "k",
+                                                                "k_stderr", "ln_k", "ln_k_residual"]],
+                                               units={"k": result.k_unit})),
     )
     return Section(heading, blocks)
+
+
+def global_section(global_result, runs=None, model=None, *, heading: str = "Global fit across temperature",
+                   name: str = "global") -> Section:
+    """The global fit: every run's data with the globally fitted curves and residuals, and the
+    two-step versus global comparison table (see :func:`kinetics.plots.global_fit_figure`).
+
+    ``runs`` (the :class:`~kinetics.temperature.KineticRun` list) and ``model`` (the
+    :class:`~kinetics.temperature.GlobalModel`) are needed for the figure; without them
+    only the table and the text report are given.
+    """
+    blocks = []
+    if runs:
+        figure = plots.global_fit_figure(runs, global_result, model)
+        ea = global_result.ea
+        blocks.append(FigureBlock("Global fit", figure,
+                                  f"Every run fitted at once with k(T) = k_ref exp(−(Ea/R)(1/T − 1/T_ref)), "
+                                  f"Ea = {numbers.format_uncertain(ea.value, ea.stderr, 'kJ/mol')}; lower panels: "
+                                  "measured minus fitted.", name=f"{name}_fit"))
+    rows = global_result.comparison()
+    if rows:
+        blocks.append(TableBlock("Two-step and global estimates compared", pd.DataFrame(rows),
+                                 name="two_step_vs_global", caption="Value ± standard uncertainty; 95 % interval."))
+    blocks.append(TextBlock("Global fit report", (global_result.report(),), preformatted=True))
+    return Section(heading, tuple(blocks))
 
 
 # ---------------------------------------------------------------- HTML
@@ -408,7 +464,9 @@ def _e(text) -> str:
 def _html_table(frame: pd.DataFrame, digits: int) -> str:
     frame = _plain_frame(frame)
     head = "".join(f'<th scope="col">{_e(column)}</th>' for column in frame.columns)
-    text_columns = {c for c in frame.columns if not pd.api.types.is_numeric_dtype(frame[c])}
+    text_columns = {c for c in frame.columns
+                    if not pd.api.types.is_numeric_dtype(frame[c])
+                    and not frame[c].astype(str).str.match(r"^[\s\d.,±×⁰¹²³⁴⁵⁶⁷⁸⁹⁻()−–-]*(to)?[\s\d.,±×⁰¹²³⁴⁵⁶⁷⁸⁹⁻()−–-]*$").all()}
     body = []
     for row in frame.itertuples(index=False, name=None):
         cells = []
@@ -434,7 +492,7 @@ def _block_html(block, figure_png: Mapping[int, bytes], table_names: Mapping[int
                 f"alt=\"{_e(alt)}\">{caption}</figure>")
     if isinstance(block, TableBlock):
         caption = f'<p class="caption">{_e(block.caption)}</p>' if block.caption else ""
-        return (f"<h3>{_e(block.heading)}</h3>{caption}{_html_table(block.frame, block.digits)}"
+        return (f"<h3>{_e(block.heading)}</h3>{caption}{_html_table(_display_frame(block), block.digits)}"
                 f'<p class="csv">tables/{_e(table_names[id(block)])}.csv</p>')
     if isinstance(block, TextBlock):
         if block.preformatted:
@@ -443,7 +501,7 @@ def _block_html(block, figure_png: Mapping[int, bytes], table_names: Mapping[int
     raise TypeError(f"unknown report block {type(block).__name__}")
 
 
-def _html_page(title, run_utc, summary, sections, figure_png, table_names, provenance_html) -> str:
+def _html_page(title, run_utc, summary, sections, figure_png, table_names, provenance_html, warnings=()) -> str:
     toc = "".join(f'<li><a href="#part-{n}">{_e(s.heading)}</a></li>'
                   for n, s in enumerate(sections, start=1))
     toc += f'<li><a href="#safety">{_e(SAFETY_HEADING)}</a></li>'
@@ -452,6 +510,9 @@ def _html_page(title, run_utc, summary, sections, figure_png, table_names, prove
     if summary:
         items = "".join(f"<dt>{_e(k)}</dt><dd>{_e(v)}</dd>" for k, v in summary.items())
         summary_html = f'<section id="summary"><h2>Summary</h2><dl class="summary">{items}</dl></section>'
+    if warnings:
+        summary_html += ('<section id="warnings"><h2>Warnings</h2><ul>'
+                         + "".join(f"<li>{_e(w)}</li>" for w in warnings) + "</ul></section>")
     parts = []
     for number, section in enumerate(sections, start=1):
         intro = f"<p>{_e(section.intro)}</p>" if section.intro else ""
@@ -486,91 +547,291 @@ def _provenance_html(config_text, packages: Mapping[str, str], inputs: pd.DataFr
 
 
 # ---------------------------------------------------------------- PDF
-_PAGE_IN = (8.27, 11.69)  # A4 portrait
+# Typeset with reportlab (pure Python from the package index, no system library): the
+# text, tables and captions flow over A4 pages in DejaVu Sans (TrueType, embedded and
+# subset; the font matplotlib ships, so figures and text match).  Each figure is saved by
+# matplotlib as a one-page vector PDF (Type 42 fonts) and placed on its page with pypdf,
+# so figures stay vector and no Type 3 font enters the file.
+_PAGE_MARGIN_CM = 1.75       # A4 width 21 cm - 2 x 1.75 cm = 17.5 cm, the double-column width
+_FONT = "KineticsSans"
+_FONT_BOLD = "KineticsSans-Bold"
+_FONT_MONO = "KineticsMono"
 
 
-def _text_pages(pdf: PdfPages, heading: str, lines: Sequence[str]) -> None:
-    """Monospaced text pages; the font shrinks so the widest line fits the page width."""
-    lines = list(lines) or [""]
-    widest = max(len(line) for line in lines)
-    size = float(np.clip(530.0 / (0.68 * max(widest, 1)), 4.5, 9.0))  # pt; mono glyphs ~0.6 em plus spacing
-    per_page = int(760.0 / (size * 1.25 * 1.17))  # usable height / line pitch, both in pt
-    for start in range(0, len(lines), per_page):
-        page = Figure(figsize=_PAGE_IN)
-        # parse_math=False: user text with "$...$" is printed as written, not as mathtext.
-        page.text(0.06, 0.965, heading + ("" if start == 0 else " (continued)"), fontsize=13,
-                  weight="bold", va="top", color="#1f2f56", parse_math=False)
-        page.text(0.06, 0.935, "\n".join(lines[start:start + per_page]), family="DejaVu Sans Mono",
-                  fontsize=size, va="top", linespacing=1.25, parse_math=False)
-        pdf.savefig(page)
+def _register_fonts() -> None:
+    import matplotlib
+    from reportlab.pdfbase import pdfmetrics
+    from reportlab.pdfbase.ttfonts import TTFont
+
+    if _FONT in pdfmetrics.getRegisteredFontNames():
+        return
+    folder = Path(matplotlib.get_data_path()) / "fonts" / "ttf"
+    pdfmetrics.registerFont(TTFont(_FONT, str(folder / "DejaVuSans.ttf")))
+    pdfmetrics.registerFont(TTFont(_FONT_BOLD, str(folder / "DejaVuSans-Bold.ttf")))
+    pdfmetrics.registerFont(TTFont(_FONT_MONO, str(folder / "DejaVuSansMono.ttf")))
+    pdfmetrics.registerFontFamily(_FONT, normal=_FONT, bold=_FONT_BOLD, italic=_FONT, boldItalic=_FONT_BOLD)
 
 
-_PDF_TABLE_CHARS = 120  # widest table line on an A4 page at a readable size
+def _styles() -> dict:
+    from reportlab.lib import colors
+    from reportlab.lib.styles import ParagraphStyle
+
+    ink = colors.HexColor("#1f2f56")
+    base = ParagraphStyle("body", fontName=_FONT, fontSize=8.5, leading=11.0, spaceAfter=3, bulletFontName=_FONT)
+    return {
+        "title": ParagraphStyle("title", parent=base, fontName=_FONT_BOLD, fontSize=16, leading=20, textColor=ink,
+                                spaceAfter=4),
+        "h1": ParagraphStyle("h1", parent=base, fontName=_FONT_BOLD, fontSize=12, leading=15, textColor=ink,
+                             spaceBefore=10, spaceAfter=4),
+        "h2": ParagraphStyle("h2", parent=base, fontName=_FONT_BOLD, fontSize=9.5, leading=12, spaceBefore=6,
+                             spaceAfter=2),
+        "body": base,
+        "small": ParagraphStyle("small", parent=base, fontSize=7.5, leading=9.5, textColor=colors.HexColor("#333333")),
+        "caption": ParagraphStyle("caption", parent=base, fontSize=7.5, leading=9.5,
+                                  textColor=colors.HexColor("#333333"), spaceBefore=2, spaceAfter=6),
+        "cell": ParagraphStyle("cell", parent=base, fontSize=7.2, leading=8.8, spaceAfter=0),
+        "head": ParagraphStyle("head", parent=base, fontName=_FONT_BOLD, fontSize=7.2, leading=8.8, spaceAfter=0),
+        "mono": ParagraphStyle("mono", parent=base, fontName=_FONT_MONO, fontSize=6.3, leading=7.6, spaceAfter=4),
+        "caution": ParagraphStyle("caution", parent=base, fontSize=8, leading=10.2, leftIndent=8, bulletIndent=0),
+    }
 
 
-def _table_lines(frame: pd.DataFrame, digits: int) -> list[str]:
-    """The table as text; wide tables are cut into column blocks (first column repeated)."""
-    frame = _plain_frame(frame)
-    if not len(frame):
-        return ["(empty table)"]
-    shown = frame.apply(lambda column: column.map(lambda v: _format_cell(v, digits))).astype(str)
-    widths = [max(len(str(c)), int(shown[c].str.len().max())) + 2 for c in shown.columns]
-    blocks, current, used = [], [], widths[0]
-    for index in range(1, len(widths)):
-        if current and used + widths[index] > _PDF_TABLE_CHARS:
-            blocks.append(current)
-            current, used = [], widths[0]
-        current.append(index)
-        used += widths[index]
-    blocks.append(current)
-    lines: list[str] = []
-    for block in blocks:
-        columns = [shown.columns[0]] + [shown.columns[i] for i in block]
-        lines += shown[columns].to_string(index=False).splitlines() + [""]
-    return lines[:-1]
+def _x(text) -> str:
+    """User text for a reportlab Paragraph (its mini-markup escaped, so it prints as written)."""
+    return html.escape(str(text), quote=False)
 
 
-def _wrap(paragraphs: Sequence[str], width: int = 95) -> list[str]:
-    lines: list[str] = []
-    for paragraph in paragraphs:
-        lines.extend(textwrap.wrap(str(paragraph), width) or [""])
-        lines.append("")
-    return lines
+class _FigureSlot:
+    """Where a figure goes: a reportlab flowable that reserves the space and records its place."""
+
+    def __new__(cls, *args, **kwargs):  # built lazily so reportlab is imported only for the PDF
+        from reportlab.platypus import Flowable
+
+        class Slot(Flowable):
+            def __init__(self, key, width_pt, height_pt, places):
+                super().__init__()
+                self.key, self.width, self.height, self.places = key, width_pt, height_pt, places
+
+            def wrap(self, available_width, available_height):
+                return self.width, self.height
+
+            def draw(self):
+                x, y = self.canv.absolutePosition(0, 0)
+                self.places.append((self.key, self.canv.getPageNumber(), x, y, self.width, self.height))
+
+        return Slot(*args, **kwargs)
 
 
-def _pdf_bytes(title, run_utc, summary, sections, config_text, packages, inputs, extra) -> bytes:
+def _figure_size_pt(figure: Figure, max_width_pt: float) -> tuple[float, float]:
+    width_in, height_in = figure.get_size_inches()
+    width, height = width_in * 72.0, height_in * 72.0
+    if width > max_width_pt:
+        height, width = height * max_width_pt / width, max_width_pt
+    return width, height
+
+
+def _pdf_table(frame: pd.DataFrame, styles: dict, width_pt: float):
+    from reportlab.lib import colors
+    from reportlab.platypus import Paragraph, Table, TableStyle
+
+    if not len(frame.columns):
+        return Paragraph("(empty table)", styles["small"])
+    header = [Paragraph(_x(c), styles["head"]) for c in frame.columns]
+    rows = [[Paragraph(_x(v), styles["cell"]) for v in row] for row in frame.astype(str).itertuples(index=False)]
+    if not rows:
+        rows = [[Paragraph("(no rows)", styles["cell"])] + [""] * (len(header) - 1)]
+    # column widths from the longest cell (about 0.55 em per character), scaled to fit the page
+    lengths = [max([max(len(word) for word in str(c).split() or [""]) * 1.1, len(str(c)) * 0.55]
+                   + [len(str(v)) for v in frame[c].astype(str)]) for c in frame.columns]
+    natural = [min(max(4.0, n) * 4.6 + 10, 220) for n in lengths]
+    scale = min(1.0, width_pt / sum(natural))
+    table = Table([header] + rows, colWidths=[w * scale for w in natural], repeatRows=1, hAlign="LEFT")
+    table.setStyle(TableStyle([("FONT", (0, 0), (-1, -1), _FONT, 7.2),
+                       
+        ("LINEABOVE", (0, 0), (-1, 0), 0.8, colors.HexColor("#1f2f56")),
+        ("LINEBELOW", (0, 0), (-1, 0), 0.5, colors.HexColor("#1f2f56")),
+        ("LINEBELOW", (0, -1), (-1, -1), 0.8, colors.HexColor("#1f2f56")),
+        ("ROWBACKGROUNDS", (0, 1), (-1, -1), [colors.white, colors.HexColor("#f2f3f6")]),
+        ("VALIGN", (0, 0), (-1, -1), "TOP"),
+        ("TOPPADDING", (0, 0), (-1, -1), 1.2), ("BOTTOMPADDING", (0, 0), (-1, -1), 1.6),
+        ("LEFTPADDING", (0, 0), (-1, -1), 3), ("RIGHTPADDING", (0, 0), (-1, -1), 3),
+    ]))
+    return table
+
+
+def _pdf_story(title, run_utc, summary, sections, config_text, packages, inputs, extra, figure_pdf,
+               warnings, places, width_pt):
+    from reportlab.lib import colors
+    from reportlab.platypus import (CondPageBreak, KeepTogether, Paragraph, Preformatted, Spacer, Table,
+                                    TableStyle)
+
+    styles = _styles()
+    story = [Paragraph(_x(title), styles["title"]),
+             Paragraph(f"Report of {_x(run_utc)} (UTC)", styles["small"]), Spacer(1, 6)]
+    if summary:
+        story.append(Paragraph("Key results", styles["h1"]))
+        rows = [[Paragraph(_x(k), styles["head"]), Paragraph(_x(v), styles["cell"])] for k, v in summary.items()]
+        key_table = Table(rows, colWidths=[0.28 * width_pt, 0.72 * width_pt], hAlign="LEFT")
+        key_table.setStyle(TableStyle([("FONT", (0, 0), (-1, -1), _FONT, 7.2),
+                       ("LINEBELOW", (0, 0), (-1, -1), 0.3, colors.HexColor("#c9ccd4")),
+                                       ("VALIGN", (0, 0), (-1, -1), "TOP")]))
+        story.append(key_table)
+        story.append(Paragraph("Values are given as estimate ± standard uncertainty, rounded together "
+                               "(uncertainty to one or two significant digits); intervals are 95 %.",
+                               styles["caption"]))
+    if warnings:
+        story.append(Paragraph("Warnings", styles["h1"]))
+        story += [Paragraph("• " + _x(w), styles["body"]) for w in warnings]
+    cautions = [Paragraph(_x(text), styles["caution"], bulletText="•") for text in SAFETY_CAUTIONS]
+    box = Table([[Paragraph(_x(SAFETY_HEADING), styles["h2"])]] + [[c] for c in cautions],
+                colWidths=[width_pt], hAlign="LEFT")
+    box.setStyle(TableStyle([("FONT", (0, 0), (-1, -1), _FONT, 7.2),
+                       ("BOX", (0, 0), (-1, -1), 1.2, colors.HexColor("#8a5a12")),
+                             ("BACKGROUND", (0, 0), (-1, -1), colors.HexColor("#fff4e0")),
+                             ("TOPPADDING", (0, 0), (-1, -1), 1.5), ("BOTTOMPADDING", (0, 0), (-1, -1), 1.5)]))
+    story += [Spacer(1, 8), KeepTogether([box]), Spacer(1, 4)]
+
+    figure_number = table_number = 0
+    for section in sections:
+        # a section heading never ends a page: it needs room for a figure or table below it
+        story.append(CondPageBreak(300 if any(isinstance(b, FigureBlock) for b in section.blocks[:2]) else 150))
+        story.append(Paragraph(_x(section.heading), styles["h1"]))
+        if section.intro:
+            story.append(Paragraph(_x(section.intro), styles["body"]))
+        blocks = list(section.blocks)
+        index = 0
+        while index < len(blocks):
+            block = blocks[index]
+            if isinstance(block, FigureBlock):
+                # two narrow figures in a row share the line
+                group = [block]
+                if (index + 1 < len(blocks) and isinstance(blocks[index + 1], FigureBlock)
+                        and max(_figure_size_pt(b.figure, width_pt)[0] for b in (block, blocks[index + 1]))
+                        <= 0.5 * width_pt):
+                    group.append(blocks[index + 1])
+                cells = []
+                for item in group:
+                    figure_number += 1
+                    w, h = _figure_size_pt(item.figure, width_pt / len(group) - 4)
+                    caption = f"<b>Figure {figure_number}.</b> {_x(item.heading)}." + (
+                        f" {_x(item.caption)}" if item.caption else "")
+                    cells.append([_FigureSlot(id(item), w, h, places), Paragraph(caption, styles["caption"])])
+                if len(cells) == 1:
+                    story.append(KeepTogether(cells[0]))
+                else:
+                    row = Table([[c for c in cells]], colWidths=[width_pt / 2] * 2, hAlign="LEFT")
+                    row.setStyle(TableStyle([("FONT", (0, 0), (-1, -1), _FONT, 7.2),
+                       ("VALIGN", (0, 0), (-1, -1), "TOP"),
+                                             ("LEFTPADDING", (0, 0), (-1, -1), 0),
+                                             ("RIGHTPADDING", (0, 0), (-1, -1), 4)]))
+                    story.append(row)
+                index += len(group)
+                continue
+            if isinstance(block, TableBlock):
+                table_number += 1
+                caption = f"<b>Table {table_number}.</b> {_x(block.heading)}." + (
+                    f" {_x(block.caption)}" if block.caption else "")
+                shown = _display_frame(block)
+                parts = [Paragraph(caption, styles["caption"]), _pdf_table(shown, styles, width_pt)]
+                story.append(KeepTogether(parts) if len(shown) <= 25 else parts[0])
+                if len(shown) > 25:
+                    story.append(parts[1])
+                story.append(Spacer(1, 6))
+            elif isinstance(block, TextBlock):
+                story.append(Paragraph(_x(block.heading), styles["h2"]))
+                if block.preformatted:
+                    story.append(Preformatted("\n".join(block.paragraphs), styles["mono"], maxLineLength=150))
+                else:
+                    story += [Paragraph(_x(p), styles["body"]) for p in block.paragraphs if str(p).strip()]
+            index += 1
+
+    story.append(CondPageBreak(150))
+    story.append(Paragraph(_x(PROVENANCE_HEADING), styles["h1"]))
+    facts = {"report time (UTC)": run_utc} | dict(extra)
+    story += [Paragraph(f"<b>{_x(k)}:</b> {_x(v)}", styles["small"]) for k, v in facts.items()]
+    versions = ", ".join(f"{k} {v}" for k, v in packages.items())
+    story.append(Paragraph(f"<b>Software:</b> {_x(versions)}", styles["small"]))
+    n_files = len(inputs)
+    if n_files:
+        if "run" in inputs.columns:
+            per_run = "; ".join(f"{_x(run)}: {count}" for run, count in inputs.groupby("run", sort=False).size().items())
+            detail = f" ({per_run})"
+        else:
+            detail = ""
+        story.append(Paragraph(f"<b>Input files:</b> {n_files}{detail}. The SHA-256 of each file is listed in "
+                               "tables/provenance_inputs.csv and in report.html.", styles["small"]))
+    story.append(Paragraph("Configuration", styles["h2"]))
+    story.append(Preformatted(config_text or "(none recorded)", styles["mono"], maxLineLength=150))
+    return story
+
+
+def _drop_unused_fonts(page) -> None:
+    """Remove font resources this page's content does not use (reportlab lists Helvetica on
+    every page).  The resource dictionaries may be shared between pages, so the page gets
+    its own copies."""
+    from pypdf.generic import DictionaryObject, NameObject
+
+    resources = page.get("/Resources")
+    fonts = None if resources is None else resources.get_object().get("/Font")
+    if fonts is None:
+        return
+    contents = page.get_contents()
+    data = b"" if contents is None else contents.get_data()
+    used = DictionaryObject({name: value for name, value in fonts.get_object().items()
+                             if re.search(re.escape(name.encode()) + rb"[\s/\[<(]", data)})
+    own = DictionaryObject(resources.get_object())
+    own[NameObject("/Font")] = used
+    page[NameObject("/Resources")] = own
+
+
+def _pdf_bytes(title, run_utc, summary, sections, config_text, packages, inputs, extra,
+               figure_pdf: Mapping[int, bytes] | None = None, warnings: Sequence[str] = ()) -> bytes:
+    from pypdf import PdfReader, PdfWriter, Transformation
+    from reportlab.lib.pagesizes import A4
+    from reportlab.lib.units import cm
+    from reportlab.platypus import SimpleDocTemplate
+
+    _register_fonts()
+    if figure_pdf is None:
+        figure_pdf = {id(b): plots.pdf_bytes(b.figure) for s in sections for b in s.blocks
+                      if isinstance(b, FigureBlock)}
+    margin = _PAGE_MARGIN_CM * cm
+    width_pt = A4[0] - 2 * margin
+    places: list = []
+
+    def footer(canvas, doc):
+        canvas.saveState()
+        canvas.setFont(_FONT, 7)
+        canvas.setFillGray(0.35)
+        canvas.drawString(margin, 0.9 * cm, title[:110])
+        canvas.drawRightString(A4[0] - margin, 0.9 * cm, f"page {doc.page}")
+        canvas.restoreState()
+
     buffer = io.BytesIO()
-    metadata = {"Title": title, "Creator": "kinetics", "Producer": "kinetics"}
-    with PdfPages(buffer, metadata=metadata) as pdf:
-        front = [f"Run of {run_utc} (UTC)", ""]
-        front += [f"{k}: {v}" for k, v in (summary or {}).items()]
-        front += ["", SAFETY_HEADING, ""] + _wrap([f"* {text}" for text in SAFETY_CAUTIONS])
-        _text_pages(pdf, title, front)
-        for section in sections:
-            for block in section.blocks:
-                heading = f"{section.heading}: {block.heading}"
-                if isinstance(block, FigureBlock):
-                    # A page label for the PDF only; removed again so the caller's figure
-                    # is left as it was handed in.
-                    label = block.figure.text(0.005, 0.998, heading, fontsize=7, color="#5b6070",
-                                              ha="left", va="top", parse_math=False)
-                    try:
-                        pdf.savefig(block.figure)
-                    finally:
-                        label.remove()
-                elif isinstance(block, TableBlock):
-                    caption = _wrap([block.caption]) if block.caption else []
-                    _text_pages(pdf, heading, caption + _table_lines(block.frame, block.digits))
-                elif isinstance(block, TextBlock):
-                    lines = ("\n".join(block.paragraphs).splitlines() if block.preformatted
-                             else _wrap(block.paragraphs))
-                    _text_pages(pdf, heading, lines)
-        lines = [f"run time (UTC): {run_utc}"] + [f"{k}: {v}" for k, v in extra.items()]
-        lines += ["", "Software versions"] + [f"  {k} {v}" for k, v in packages.items()]
-        lines += ["", "Input files (SHA-256)"] + _table_lines(inputs, 6)
-        lines += ["", "Configuration", ""] + (config_text or "(none recorded)").splitlines()
-        _text_pages(pdf, PROVENANCE_HEADING, lines)
-    return buffer.getvalue()
+    doc = SimpleDocTemplate(buffer, pagesize=A4, leftMargin=margin, rightMargin=margin, topMargin=1.5 * cm,
+                            bottomMargin=1.6 * cm, title=title, author="", creator="kinetics", producer="kinetics",
+                            subject="Reaction kinetics report", invariant=True,
+                            initialFontName=_FONT, initialFontSize=8.5, initialLeading=11.0)
+    story = _pdf_story(title, run_utc, summary, sections, config_text, packages, inputs, extra, figure_pdf,
+                       warnings, places, width_pt)
+    doc.build(story, onFirstPage=footer, onLaterPages=footer)
+
+    reader = PdfReader(io.BytesIO(buffer.getvalue()))
+    writer = PdfWriter()
+    writer.append(reader)
+    for key, page_number, x, y, w, h in places:
+        figure_page = PdfReader(io.BytesIO(figure_pdf[key])).pages[0]
+        box = figure_page.mediabox
+        scale = min(w / float(box.width), h / float(box.height))
+        writer.pages[page_number - 1].merge_transformed_page(
+            figure_page, Transformation().scale(scale, scale).translate(x, y))
+    writer.add_metadata({"/Title": title, "/Creator": "kinetics", "/Producer": "kinetics"})
+    for page in writer.pages:
+        _drop_unused_fonts(page)
+        page.compress_content_streams()
+    out = io.BytesIO()
+    writer.write(out)
+    return out.getvalue()
 
 
 # ---------------------------------------------------------------- tables on disk
@@ -598,7 +859,8 @@ def write_report(
     title: str = "Reaction kinetics report",
     provenance: Provenance | None = None,
     summary: Mapping[str, str] | None = None,
-    dpi: int = 120,
+    dpi: int = 300,
+    warnings: Sequence[str] = (),
 ) -> ReportFiles:
     """Write the report folder (HTML, PDF, CSV/Parquet tables, PNG figures, provenance).
 
@@ -615,7 +877,10 @@ def write_report(
     summary : mapping str -> str, optional
         Key figures shown at the top (e.g. ``{"Ea": "75.1 ± 1.2 kJ/mol"}``).
     dpi : int
-        Resolution of the PNG figures.
+        Resolution of the PNG figures (each figure is also written as SVG; the PDF holds
+        vector figures).
+    warnings : sequence of str
+        Shown once, on the summary page and at the top of the HTML page.
 
     Returns
     -------
@@ -631,6 +896,7 @@ def write_report(
 
     names: set[str] = {"provenance_inputs", "provenance_packages"}
     figure_png: dict[int, bytes] = {}
+    figure_pdf: dict[int, bytes] = {}
     figure_paths: dict[str, Path] = {}
     table_names: dict[int, str] = {}
     csv: dict[str, Path] = {}
@@ -640,7 +906,9 @@ def write_report(
             if isinstance(block, FigureBlock):
                 name = _slug(block.name or f"{section.heading}_{block.heading}", names)
                 figure_png[id(block)] = png_bytes(block.figure, dpi=dpi)
+                figure_pdf[id(block)] = plots.pdf_bytes(block.figure)
                 figure_paths[name] = write_atomic(folder / "figures" / f"{name}.png", figure_png[id(block)])
+                write_atomic(folder / "figures" / f"{name}.svg", plots.svg_bytes(block.figure))
             elif isinstance(block, TableBlock):
                 name = _slug(block.name or f"{section.heading}_{block.heading}", names)
                 table_names[id(block)] = name
@@ -654,11 +922,13 @@ def write_report(
               "input_files": inputs.to_dict(orient="records"), "config_text": provenance.config_text}
     write_atomic(folder / "provenance.json", dumps(record))
 
+    warnings = tuple(dict.fromkeys(str(w) for w in warnings))  # each once, in order
     page = _html_page(title, run_utc, summary, sections, figure_png, table_names,
-                      _provenance_html(provenance.config_text, packages, inputs, extra, run_utc))
+                      _provenance_html(provenance.config_text, packages, inputs, extra, run_utc), warnings)
     html_path = write_atomic(folder / "report.html", page)
     pdf_path = write_atomic(folder / "report.pdf", _pdf_bytes(
-        title, run_utc, summary, sections, provenance.config_text, packages, inputs, extra))
+        title, run_utc, summary, sections, provenance.config_text, packages, inputs, extra,
+        figure_pdf=figure_pdf, warnings=warnings))
     logger.info("report written to %s", folder)
     return ReportFiles(folder=folder, html=html_path, pdf=pdf_path, figures=figure_paths,
                        csv=csv, parquet=parquet, run_utc=run_utc)

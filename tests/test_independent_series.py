@@ -114,14 +114,16 @@ def _run(config: Path, out: Path, capsys) -> dict:
     return json.loads(text)
 
 
-@pytest.mark.parametrize("baseline_order", [2, 3])
-def test_kinetics_run_recovers_k_at_60_mhz(tmp_path, capsys, baseline_order):
+@pytest.mark.parametrize("mhz, choice", [(60.0, dict(baseline_order=2)),
+                                         (60.0, dict(baseline_order=3, group_quartets=True)),
+                                         (40.0, dict(baseline_order=2))])
+def test_kinetics_run_recovers_k(tmp_path, capsys, mhz, choice):
     # issue 11: reasonable configs give k within 1.5 % of the truth, truth inside the 95 % interval
-    sc = gen.Scenario(nominal_mhz=60.0, n_spectra=16, interval_s=300.0)
+    sc = gen.Scenario(nominal_mhz=mhz, n_spectra=16, interval_s=300.0)
     folder = tmp_path / "series"
     gen.write_series(folder, sc, seed=21)
     config = tmp_path / "run.toml"
-    config.write_text(gen.config_text(folder, sc, baseline_order=baseline_order), encoding="utf-8")
+    config.write_text(gen.config_text(folder, sc, **choice), encoding="utf-8")
     k = _run(config, tmp_path / "out", capsys)["runs"][0]["k_per_s"]
     assert abs(k["value"] / sc.k - 1) < 0.015
     assert k["ci95"][0] <= sc.k <= k["ci95"][1]

@@ -86,14 +86,14 @@ def _install_signal_handlers(flag: _StopFlag) -> list:
     return previous
 
 
-def run_live(pipeline: RunPlan, options: LiveOptions, stop: _StopFlag | None = None,
+def run_live(plan: RunPlan, options: LiveOptions, stop: _StopFlag | None = None,
              replay_done: Callable[[], bool] | None = None,
              on_turn: Callable[[RunState], None] | None = None) -> RunSummary:
     """Follow the folder until a stop condition; end with the final report.
 
     Parameters
     ----------
-    pipeline : RunPlan
+    plan : RunPlan
     options : LiveOptions
     stop : _StopFlag, optional
         Lets a caller (a thread, a test) end the run; SIGTERM/SIGINT also set it.
@@ -109,7 +109,7 @@ def run_live(pipeline: RunPlan, options: LiveOptions, stop: _StopFlag | None = N
     OutputError
         The output folder is not writable or its disk is full (the ledger stays intact).
     """
-    spec = pipeline.spec
+    spec = plan.spec
     if options.quiet_period_s is not None:
         spec = replace(spec, quiet_period_s=options.quiet_period_s)
     if options.poll is not None:
@@ -121,12 +121,12 @@ def run_live(pipeline: RunPlan, options: LiveOptions, stop: _StopFlag | None = N
     view = TerminalView(enabled=options.view)
     server = plot = None
     try:
-        pipeline = replace(pipeline, spec=watcher.spec)
+        plan = replace(plan, spec=watcher.spec)
         out_dir = prepare_out_dir(options.out_dir)
         if options.handle_signals and threading.current_thread() is threading.main_thread():
             previous_handlers = _install_signal_handlers(stop)
         with RunLock(out_dir):
-            state = RunState(pipeline, out_dir, options.refresh_s)
+            state = RunState(plan, out_dir, options.refresh_s)
             try:
                 if options.serve_port is not None:
                     from watchers.views import PageServer
@@ -163,7 +163,7 @@ def _loop(state: RunState, watcher: FolderWatcher, options: LiveOptions, stop: _
         view.update(state.write_outputs(watcher.pending))
     else:
         state.write_outputs(watcher.pending)
-    target = state.pipeline.target_conversion
+    target = state.plan.target_conversion
     while True:
         ready = watcher.ready()
         if ready:
@@ -183,7 +183,7 @@ def _loop(state: RunState, watcher: FolderWatcher, options: LiveOptions, stop: _
                 status = state.write_outputs(watcher.pending)
                 view.update(status)
                 if plot is not None and state.table is not None:
-                    plot.update(state.table, list(state.pipeline.signals),
+                    plot.update(state.table, list(state.plan.signals),
                                 state.outcome.curve if state.outcome else None)
                 if on_turn is not None:
                     on_turn(state)
@@ -210,19 +210,19 @@ def _loop(state: RunState, watcher: FolderWatcher, options: LiveOptions, stop: _
 
 # ---------------------------------------------------------------- the command
 def watch_command(args) -> dict:
-    """``kinetics watch``: build the pipeline from the config, run live, return a summary."""
+    """``kinetics watch``: build the run plan from the config, run live, return a summary."""
     from kinetics.config import load_run_config
     from kinetics.errors import ConfigError
     from watchers.replay import ReplayThread
 
     out_dir = args.out or Path(args.config).with_suffix(".live")
     config = load_run_config(args.config)
-    pipeline = plan_from_config(config, Path(out_dir) / LEDGER_NAME)
+    plan = plan_from_config(config, Path(out_dir) / LEDGER_NAME)
     settings = config.live
     if args.target_conversion is not None:
         if not 0.0 < args.target_conversion < 1.0:
             raise ConfigError("--target-conversion", "must be a fraction between 0 and 1")
-        pipeline = replace(pipeline, target_conversion=args.target_conversion)
+        plan = replace(plan, target_conversion=args.target_conversion)
     idle_minutes = args.idle_minutes if args.idle_minutes is not None else settings.idle_minutes
     options = LiveOptions(
         out_dir=out_dir, quiet_period_s=args.quiet_period, poll=True if args.poll else None,
@@ -231,7 +231,7 @@ def watch_command(args) -> dict:
         refresh_s=settings.refresh_s, serve_port=args.serve, plot=args.plot)
     replayer = None
     if args.replay is not None:
-        folder = Path(pipeline.spec.folder)
+        folder = Path(plan.spec.folder)
         if Path(args.replay).resolve() == folder.resolve():
             raise ConfigError("--replay", "the replay source is the watched folder itself",
                               hint="replay a finished copy into the run's folder")
@@ -240,10 +240,10 @@ def watch_command(args) -> dict:
         except OSError as error:
             raise ConfigError("run.folder", f"cannot create the watched folder {folder}: {error.strerror or error}",
                               hint="point [run] folder at a writable place for --replay") from error
-        replayer = ReplayThread(args.replay, folder, args.interval, pipeline.spec.include)
+        replayer = ReplayThread(args.replay, folder, args.interval, plan.spec.include)
         replayer.start()
     try:
-        summary = run_live(pipeline, options,
+        summary = run_live(plan, options,
                            replay_done=None if replayer is None else replayer.finished.is_set)
     finally:
         if replayer is not None:

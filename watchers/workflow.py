@@ -57,11 +57,11 @@ def _live_run(source: Path, run_dir: Path, config_text: str, label: str, interva
     live_dir = run_dir / "live"
     if live_dir.exists():  # a demo starts afresh; a real run would resume from its ledger
         shutil.rmtree(live_dir)
-    pipeline = plan_from_config(config_path, live_dir / "ledger.sqlite")
-    replayer = ReplayThread(source, incoming, interval_s, pipeline.spec.include)
+    plan = plan_from_config(config_path, live_dir / "ledger.sqlite")
+    replayer = ReplayThread(source, incoming, interval_s, plan.spec.include)
     replayer.start()
     try:
-        summary = run_live(pipeline, LiveOptions(out_dir=live_dir, quiet_period_s=0.15, poll=True, view=False,
+        summary = run_live(plan, LiveOptions(out_dir=live_dir, quiet_period_s=0.15, poll=True, view=False,
                                                  handle_signals=False, tick_s=0.05),
                            replay_done=replayer.finished.is_set)
     finally:
@@ -69,7 +69,7 @@ def _live_run(source: Path, run_dir: Path, config_text: str, label: str, interva
         replayer.join(timeout=10)
     if replayer.error is not None:
         raise InputFileError(source, f"the replay failed: {replayer.error}")
-    return outcome_of(label, config_path, live_dir, summary, temperature_c, pipeline.config)
+    return outcome_of(label, config_path, live_dir, summary, temperature_c, plan.config)
 
 
 def run_demo(out_dir: str | Path, data_dir: str | Path | None = None, interval_s: float = 0.02) -> JobOutcome:

@@ -362,8 +362,11 @@ class FitResult:
 
     def report(self) -> str:
         """Plain-text report: status, parameters with intervals, statistics, diagnostics."""
+        from kinetics import numbers
+
+        where = "" if str(self.source).startswith("<") else f"{self.source}  "  # "<arrays>" says nothing
         lines = [f"model       {self.model_name}: {self.description}",
-                 f"data        {self.source}  ({', '.join(self.columns)}; {self.n_points} points)",
+                 f"data        {where}({', '.join(self.columns)}; {self.n_points} points)",
                  f"status      {'converged' if self.converged else 'NOT CONVERGED'}: {self.message}"]
         lines.append(f"{'parameter':<12}{'value':>14}{'stderr':>12}  {'95% interval':<28}{'unit'}")
         for p in self.params:
@@ -387,8 +390,11 @@ class FitResult:
             lines.append(f"correlation largest |r| between parameters = {worst:.3f}")
         if self.converged:
             half = self.half_life()
-            if half is not None and half.ci95 is not None:
-                lines.append(f"half-life   {half.value:.5g} s  [{half.ci95[0]:.5g}, {half.ci95[1]:.5g}] ({half.method})")
+            if half is not None and half.ci95 is not None and np.isfinite(half.value):
+                unit, scale = numbers.duration_unit(half.value)
+                lines.append(f"half-life   {numbers.format_duration(half.value, half.stderr)}  95 %: "
+                             f"{numbers.format_interval(half.ci95[0] / scale, half.ci95[1] / scale, unit)} "
+                             f"({half.method})")
             for q in self.extra_quantities():
                 if q.ci95 is not None:
                     lines.append(f"{q.name:<12}{q.value:.5g}  [{q.ci95[0]:.5g}, {q.ci95[1]:.5g}] ({q.method})")

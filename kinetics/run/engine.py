@@ -47,7 +47,7 @@ from kinetics.errors import ConfigError, InputFileError, KineticsError
 from kinetics.linalg import small_linear_algebra
 from kinetics.run.files import ReadyFile, WatchSpec, acquisition_sort_key, check_folder, list_wanted
 from kinetics.run.outputs import (LEDGER_NAME, RunLock, figure_png, prepare_out_dir, remove_stale_temporaries,
-                                  write_page, write_table_and_fit)
+                                  run_status, write_page, write_table_and_fit)
 from kinetics.run.refit import FitOutcome, RatesRefitter, Refitter, refitter_from_config
 from kinetics.run.state import SeriesMeasurer, SeriesState
 from kinetics.spectra.spectrum import sha256_of_file
@@ -392,10 +392,6 @@ class RunState:
         self._png: bytes | None = None
         self._drawn_at: float | None = None
 
-    @property
-    def pipeline(self) -> RunPlan:  # the name the live shell and older callers use
-        return self.plan
-
     def close(self) -> None:
         self.ledger.close()
 
@@ -433,8 +429,7 @@ class RunState:
         return self.outcome
 
     def status(self, pending: int = 0, stop_reason: str | None = None):
-        from kinetics.run.outputs import run_status
-
+        """What the views show (:class:`kinetics.run.outputs.LiveStatus`)."""
         return run_status(self, pending, stop_reason)
 
     def _due(self, final: bool) -> bool:
