@@ -335,6 +335,10 @@ def _job_text(job) -> str:
             status = "no fit" if run.fit is None else ("converged" if run.fit.converged else
                                                         f"NOT converged: {run.fit.message}")
             lines.append(f"{run.label:<{width}} {len(run.table):>7}  {_fmt(run.k()):<48} {status}")
+            if run.breakdown():
+                lines.append(f"{'':<{width}} {'':>7}  {run.breakdown()}")
+            for warning in run.warnings:
+                lines.append(f"{'':<{width}} {'':>7}  warning: {warning}")
             skipped = {k: v for k, v in run.counts.items() if k not in ("processed",) and v}
             if skipped:
                 lines.append(f"{'':<{width}} files: " + ", ".join(f"{k} {v}" for k, v in sorted(skipped.items())))

@@ -3,6 +3,9 @@
 * Larmor frequency: nu = (gamma / 2 pi) * B0.
 * Chemical shift: delta (ppm) = (nu - nu_ref) / nu_0 * 1e6, so 1 ppm is ``observe_mhz`` Hz.
 * The old tau scale: tau = 10 - delta (common practice).
+* The zero of each nucleus's shift scale (:data:`SCALE_REFERENCES`) and compounds commonly
+  added as internal references (:data:`INTERNAL_REFERENCES`); :func:`known_nucleus`
+  names a nucleus without raising, for data read from files.
 
 The 1H gyromagnetic ratio comes from CODATA through ``scipy.constants``.  Other nuclei
 are scaled from it with the frequency ratios Xi of the IUPAC 2001 NMR nomenclature
@@ -14,6 +17,8 @@ field.
 from __future__ import annotations
 
 import math
+
+from dataclasses import dataclass
 
 from scipy import constants
 
@@ -32,11 +37,17 @@ FREQUENCY_RATIO_PERCENT: dict[str, float] = {
 }
 
 
+def known_nucleus(nucleus: str | None) -> str | None:
+    """The table's spelling of ``nucleus`` ("^19F", "19f", " 31P" -> "19F", "31P"), or None
+    when the nucleus is not in :data:`FREQUENCY_RATIO_PERCENT`."""
+    name = str(nucleus or "").replace(" ", "").lstrip("^").upper()
+    return next((known for known in FREQUENCY_RATIO_PERCENT if known.upper() == name), None)
+
+
 def _normalise(nucleus: str) -> str:
-    name = nucleus.strip().lstrip("^").upper()
-    for known in FREQUENCY_RATIO_PERCENT:
-        if known.upper() == name:
-            return known
+    known = known_nucleus(nucleus)
+    if known is not None:
+        return known
     raise ConfigError(
         "nucleus",
         f"unknown nucleus {nucleus!r}",
@@ -87,3 +98,90 @@ def delta_to_tau(delta_ppm):
 def tau_to_delta(tau_ppm):
     """delta = 10 - tau (common practice)."""
     return 10.0 - tau_ppm
+
+
+# ---------------------------------------------------------------- references of the shift scale
+@dataclass(frozen=True)
+class ReferenceCompound:
+    """A compound whose line marks a known shift of one nucleus's scale.
+
+    Attributes
+    ----------
+    nucleus : str
+    name : str
+        Short name as written in configs and messages (``"TMS"``, ``"CCl3F"``).
+    description : str
+    shift_ppm : float
+        Its shift on the nucleus's scale (0 for the scale's own reference).
+    tolerance_ppm : float
+        How far a line may lie from ``shift_ppm`` and still be proposed as this compound
+        (solvent, concentration and temperature move internal references).
+    added : bool
+        Commonly added to the sample itself (TMS), so a line at its shift is taken as it;
+        False for a compound usually kept out of the sample (85 % H3PO4 in a capillary, the
+        volatile CCl3F replaced by a secondary reference; common practice), whose line
+        is only proposed.
+    """
+
+    nucleus: str
+    name: str
+    description: str
+    shift_ppm: float
+    tolerance_ppm: float
+    added: bool = False
+
+
+#: The zero of each shift scale.  Conventions of the IUPAC 2001 and 2008 NMR nomenclature
+#: recommendations, from memory: 1H, 13C and 29Si TMS (2H its deuterated form); 19F
+#: CCl3F; 31P 85 % H3PO4 (used as an external reference: it is not added to a reaction).
+SCALE_REFERENCES: dict[str, ReferenceCompound] = {
+    "1H": ReferenceCompound("1H", "TMS", "tetramethylsilane", 0.0, 0.15, added=True),
+    "2H": ReferenceCompound("2H", "TMS-d12", "tetramethylsilane-d12", 0.0, 0.15, added=True),
+    "13C": ReferenceCompound("13C", "TMS", "tetramethylsilane", 0.0, 0.5, added=True),
+    "19F": ReferenceCompound("19F", "CCl3F", "trichlorofluoromethane", 0.0, 0.5),
+    "31P": ReferenceCompound("31P", "H3PO4", "85 % phosphoric acid (external)", 0.0, 0.5),
+}
+
+#: Compounds commonly added to 19F and 31P samples as internal references or standards:
+#: shifts on the scale of :data:`SCALE_REFERENCES`, values from memory (common practice;
+#: they move by tenths of a ppm, trifluoroacetic acid by more, with solvent and
+#: concentration, hence the tolerances).  ``kinetics init`` only proposes them.
+INTERNAL_REFERENCES: tuple[ReferenceCompound, ...] = (
+    ReferenceCompound("19F", "PhCF3", "alpha,alpha,alpha-trifluorotoluene", -63.72, 0.5),
+    ReferenceCompound("19F", "C6F6", "hexafluorobenzene", -164.9, 0.6),
+    ReferenceCompound("19F", "TFA", "trifluoroacetic acid", -76.55, 1.5),
+    ReferenceCompound("19F", "PhF", "fluorobenzene", -113.15, 0.6),
+    ReferenceCompound("31P", "PPh3O", "triphenylphosphine oxide", 29.1, 1.0),
+    ReferenceCompound("31P", "(MeO)3PO", "trimethyl phosphate", 2.1, 1.0),
+    ReferenceCompound("31P", "(PhO)3PO", "triphenyl phosphate", -17.7, 1.0),
+    ReferenceCompound("31P", "PPh3", "triphenylphosphine", -5.4, 1.0),
+)
+
+#: Nuclei whose spectra show the solvent (residual protons, water, solvent carbons); 19F
+#: and 31P spectra have no solvent background in the common deuterated solvents.
+_SOLVENT_BACKGROUND = ("1H", "2H", "13C")
+
+
+def scale_reference(nucleus: str) -> ReferenceCompound | None:
+    """The compound at 0 ppm of ``nucleus``'s scale (None for a nucleus not in the table)."""
+    return SCALE_REFERENCES.get(known_nucleus(nucleus) or "")
+
+
+def internal_references(nucleus: str) -> tuple[ReferenceCompound, ...]:
+    """Compounds proposed as internal references for ``nucleus`` (from memory)."""
+    known = known_nucleus(nucleus)
+    return tuple(r for r in INTERNAL_REFERENCES if r.nucleus == known)
+
+
+def internal_reference_near(nucleus: str, shift_ppm: float) -> ReferenceCompound | None:
+    """The tabulated internal reference of ``nucleus`` nearest ``shift_ppm`` within its
+    tolerance, or None."""
+    near = [r for r in internal_references(nucleus) if abs(r.shift_ppm - shift_ppm) <= r.tolerance_ppm]
+    return min(near, key=lambda r: abs(r.shift_ppm - shift_ppm) / r.tolerance_ppm, default=None)
+
+
+def has_solvent_background(nucleus: str) -> bool:
+    """True for nuclei whose spectra show solvent lines (1H, 2H, 13C, and any nucleus not in
+    the table, to stay on the safe side); False for 19F and 31P."""
+    known = known_nucleus(nucleus)
+    return known is None or known in _SOLVENT_BACKGROUND

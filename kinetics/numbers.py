@@ -26,6 +26,7 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass
+from decimal import ROUND_HALF_UP, Decimal
 from datetime import datetime, timedelta
 from typing import Mapping
 
@@ -127,19 +128,30 @@ def round_pair(value: float, uncertainty: float, digits: int | None = None,
         return Rounded(f"{mantissa:.4g}", "", exp, 0)
     digits = uncertainty_digits(uncertainty) if digits is None else int(digits)
     place = math.floor(math.log10(uncertainty)) - digits + 1  # power of ten of the last kept digit
-    rounded_u = round(uncertainty / 10 ** place) * 10 ** place
+    rounded_u = _round_to(uncertainty, place)
     if math.floor(math.log10(rounded_u)) > math.floor(math.log10(uncertainty)):
         # rounding carried into a new decade (0.0097 -> 0.0100): two digits of the new
         # decade are shown, "0.010"
         place = math.floor(math.log10(rounded_u)) - 1
     exp = _choose_exponent(value, rounded_u) if exponent is None else exponent
+    if exponent is None and place > exp:
+        # the last kept digit sits left of the units: "280" would show a zero that means
+        # nothing, so a power of ten takes it, "(1.235 ± 0.028) × 10⁴"
+        exp = int(math.floor(math.log10(max(abs(value), rounded_u))))
     decimals = max(0, exp - place)
     scale = 10.0 ** exp
-    value_text = f"{round(value / 10 ** place) * 10 ** place / scale:.{decimals}f}"
+    value_text = f"{_round_to(value, place) / scale:.{decimals}f}"
     u_text = f"{rounded_u / scale:.{decimals}f}"
     if value_text.startswith("-") and float(value_text) == 0.0:
         value_text = value_text[1:]
     return Rounded(value_text, u_text, exp, decimals)
+
+
+def _round_to(x: float, place: int) -> float:
+    """``x`` rounded to a multiple of ``10**place``, halves away from zero, on the decimal
+    digits as written (77.35 -> 77.4, which binary floating point would give as 77.3)."""
+    step = Decimal(1).scaleb(place)
+    return float(Decimal(repr(float(x))).quantize(step, rounding=ROUND_HALF_UP))
 
 
 def _times_ten(exponent: int) -> str:

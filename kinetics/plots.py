@@ -155,6 +155,9 @@ def _style_axes(ax) -> None:
     ax.tick_params(direction="out", length=3)
 
 
+_TIME_DECIMALS = {"s": 0, "min": 1, "h": 2}  # one spacing for every trace label
+
+
 def _time_scale(max_time_s: float) -> tuple[float, str]:
     """Divisor and unit name so the time axis reads in s, min or h."""
     if max_time_s >= 3 * 3600:
@@ -265,7 +268,7 @@ def stacked_spectra_figure(
         shown = intensity[inside] if clip_height is None else np.minimum(intensity[inside], clip_height)
         ax.plot(ppm[inside], shown + offset, color=colour, linewidth=0.8)
         if time_s is not None:
-            ax.text(low, offset, f" {time_s[index] / scale:.3g} {unit}", fontsize=6.5,
+            ax.text(low, offset, f" {time_s[index] / scale:.{_TIME_DECIMALS[unit]}f} {unit}", fontsize=6.5,
                     va="bottom", ha="left", color=colour, clip_on=False)
     ax.set_xlim(high, low)  # chemical shift increases to the left, as spectra are drawn
     ax.set_xlabel("chemical shift / ppm")
@@ -613,7 +616,8 @@ def global_fit_figure(
     global_result : kinetics.temperature.GlobalFitResult
         ``k_at(T)`` and ``nuisance`` (per-run parameters, same order as ``runs``).
     model : kinetics.temperature.GlobalModel, optional
-        ``model.function(t, k, **nuisance)``; without it only the data are drawn.
+        ``model.function(t, k, **nuisance)``; default: the rate law named by
+        ``global_result.model_name``.  Without one only the data are drawn.
     concentration_unit, width, title :
         As for :func:`concentration_figure`.
     max_columns : int
@@ -622,6 +626,14 @@ def global_fit_figure(
     runs = list(runs)
     if not runs:
         raise ValueError("global_fit_figure needs at least one run")
+    if model is None and global_result is not None:
+        from kinetics.errors import KineticsError
+        from kinetics.temperature import resolve_model
+
+        try:  # the rate law named in the result (a custom function cannot be named: data only)
+            model = resolve_model(global_result.model_name)
+        except (KineticsError, ValueError, KeyError):
+            model = None
     n_cols = min(len(runs), max_columns)
     n_rows = int(np.ceil(len(runs) / n_cols))
     width_in = figure_width_in(width)
@@ -629,12 +641,16 @@ def global_fit_figure(
     figure = _new_figure(width_in, n_rows * panel_h * 1.45 + 0.3)
     grid = figure.add_gridspec(2 * n_rows, n_cols, height_ratios=[3, 1.2] * n_rows)
     nuisance = list(getattr(global_result, "nuisance", ())) if global_result is not None else []
-    shared = None
+    # residuals of a few mmol/L read better in mmol/L than with a "×10⁻³" offset label
+    residual_scale, residual_unit = 1.0, concentration_unit
+    if concentration_unit == "mol L⁻¹":
+        residual_scale, residual_unit = 1e3, "mmol L⁻¹"
+    shared = shared_res = None
     for i, run in enumerate(runs):
         row, col = divmod(i, n_cols)
         ax = figure.add_subplot(grid[2 * row, col], sharey=shared)
-        ax_res = figure.add_subplot(grid[2 * row + 1, col], sharex=ax)
-        shared = shared or ax
+        ax_res = figure.add_subplot(grid[2 * row + 1, col], sharex=ax, sharey=shared_res)
+        shared, shared_res = shared or ax, shared_res or ax_res
         style = series_style(i)
         time_s = np.asarray(run.time_s, float)
         conc = np.asarray(run.concentration_mol_per_l, float)
@@ -648,23 +664,29 @@ def global_fit_figure(
             curve_t = np.linspace(0.0, float(time_s.max()), 300)
             ax.plot(curve_t / scale, model.function(curve_t, k, **nuisance[i]), color="#222222",
                     linestyle=style.linestyle, linewidth=1.1, label="global fit")
-            residual = conc - model.function(time_s, k, **nuisance[i])
-            ax_res.errorbar(time_s / scale, residual, yerr=sigma, linestyle="none", marker=style.marker,
+            residual = (conc - model.function(time_s, k, **nuisance[i])) * residual_scale
+            ax_res.errorbar(time_s / scale, residual,
+                            yerr=None if sigma is None else np.asarray(sigma, float) * residual_scale, linestyle="none", marker=style.marker,
                             markersize=2.5, markerfacecolor="white", markeredgecolor=style.colour,
                             ecolor=style.colour, elinewidth=0.5, capsize=0)
         ax_res.axhline(0.0, color="#444444", linewidth=0.7)
-        ax.set_title(f"{_plain(run.label)}, {run.temperature_kelvin - 273.15:.1f} °C", fontsize=7.5)
+        celsius = f"{run.temperature_kelvin - 273.15:.1f} °C"
+        label = str(run.label)
+        same = label.replace(" ", "") in {celsius.replace(" ", ""), f"{run.temperature_kelvin - 273.15:g}°C"}
+        ax.set_title(celsius if same else f"{_plain(label)}, {celsius}", fontsize=7.5)
         ax_res.set_xlabel(f"time / {unit}")
         ax.tick_params(labelbottom=False)
         if col == 0:
-            ax.set_ylabel(f"concentration / {_plain(concentration_unit)}")
-            ax_res.set_ylabel(f"residual / {_plain(concentration_unit)}")
+            ax.set_ylabel(f"c / {_plain(concentration_unit)}")  # short: the panels are small
+            ax_res.set_ylabel(f"c − fit / {_plain(residual_unit)}", fontsize=7)
         else:
-            ax.tick_params(labelleft=True)
+            ax.tick_params(labelleft=False)
+            ax_res.tick_params(labelleft=False)
         if i == 0:
             ax.legend(fontsize=6, frameon=False, loc="upper right", handlelength=2.0)
         _style_axes(ax)
         _style_axes(ax_res)
+    figure.align_ylabels()
     if title:
         figure.suptitle(_plain(title), fontsize=9)
     return figure

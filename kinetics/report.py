@@ -280,11 +280,16 @@ def spectra_section(spectra, *, windows=None, time_s=None, heading: str = "Spect
                                           max_traces=max_traces)
     shown = min(len(spectra), max(2, max_traces))
     total = len(spectra) if total is None else max(int(total), shown)
-    count = f"{shown} of {total} spectra" if total != shown or total == len(spectra) else f"{shown} spectra"
+    count = f"{shown} of {total} spectra" if total != shown else f"{shown} spectra"
     caption = (f"{count}, first at the bottom; shaded bands are the "
                "tracked signal windows" + ("; traces are scaled to the tracked signals and taller lines "
                                            "(a solvent) are clipped." if windows else "."))
     return Section(heading, (FigureBlock("Stacked spectra", figure, caption, name=f"{heading}_spectra"),))
+
+
+def _species_label(column: str) -> str:
+    """``ester_concentration`` -> ``ester`` (the legend names the species, the axis the quantity)."""
+    return column[: -len("_concentration")] if column.endswith("_concentration") and len(column) > 14 else column
 
 
 def fit_section(fit, *, heading: str = "Concentrations and fitted rate law", comparison=None,
@@ -308,6 +313,7 @@ def fit_section(fit, *, heading: str = "Concentrations and fitted rate law", com
     sigma_array = getattr(getattr(fit, "data", None), "sigma", None)
     curve_t = np.linspace(float(time_s.min()), float(time_s.max()), n_curve)
     curve, low, high = (np.atleast_2d(np.asarray(a, float)) for a in fit.band(curve_t))
+    columns = [_species_label(c) for c in columns]
     figure = plots.concentration_figure(
         time_s, dict(zip(columns, observed)),
         sigma=None if sigma_array is None else dict(zip(columns, np.atleast_2d(sigma_array))),
@@ -761,7 +767,19 @@ def _pdf_story(title, run_utc, summary, sections, config_text, packages, inputs,
         story.append(Paragraph(f"<b>Input files:</b> {n_files}{detail}. The SHA-256 of each file is listed in "
                                "tables/provenance_inputs.csv and in report.html.", styles["small"]))
     story.append(Paragraph("Configuration", styles["h2"]))
-    story.append(Preformatted(config_text or "(none recorded)", styles["mono"], maxLineLength=150))
+    config_lines = (config_text or "(none recorded)").splitlines()
+    if 40 < len(config_lines) <= 180:
+        # two columns, split at the blank line nearest the middle, so a long config takes half the pages
+        blanks = [i for i, line in enumerate(config_lines) if not line.strip()] or [len(config_lines) // 2]
+        cut = min(blanks, key=lambda i: abs(i - len(config_lines) / 2))
+        halves = [Preformatted("\n".join(part), styles["mono"], maxLineLength=72)
+                  for part in (config_lines[:cut], config_lines[cut + 1:])]
+        columns = Table([halves], colWidths=[width_pt / 2] * 2, hAlign="LEFT")
+        columns.setStyle(TableStyle([("FONT", (0, 0), (-1, -1), _FONT, 7.2), ("VALIGN", (0, 0), (-1, -1), "TOP"),
+                                     ("LEFTPADDING", (0, 0), (-1, -1), 0)]))
+        story.append(columns)
+    else:
+        story.append(Preformatted("\n".join(config_lines), styles["mono"], maxLineLength=150))
     return story
 
 

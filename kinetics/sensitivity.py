@@ -345,7 +345,7 @@ def combine(base: KEstimate, outcomes: Sequence[VariantOutcome], noise_share: fl
 
 def assess(config, quantify: Callable, fit: Callable, variants: Sequence[Variant] | None = None,
            base_table=None, base_estimate: KEstimate | None = None,
-           noise_share: float = NOISE_SHARE) -> SensitivityResult:
+           noise_share: float = NOISE_SHARE, workers: int = 1) -> SensitivityResult:
     """Re-quantify and refit under each neighbouring choice; combine into one interval.
 
     Parameters
@@ -360,25 +360,57 @@ def assess(config, quantify: Callable, fit: Callable, variants: Sequence[Variant
         Default :func:`neighbour_variants` of ``config``.
     base_table, base_estimate : optional
         The run's own table / fit when already computed (saves one quantify / fit).
+    workers : int
+        Variants measured in this many forked worker processes (1: here, in order);
+        the results are the same either way.
     """
     if base_estimate is None:
         base_estimate = fit(quantify(config) if base_table is None else base_table)
     if variants is None:
         variants = neighbour_variants(config)
     outcomes = []
-    for v in variants:
-        try:
-            k = fit(quantify(v.config)).value
+    for v, (k, error) in zip(variants, _variant_ks(variants, quantify, fit, workers)):
+        if error is None:
             outcomes.append(VariantOutcome(v.choice, v.target, v.setting, k, k - base_estimate.value))
-        except (KineticsError, ValueError, np.linalg.LinAlgError) as error:
-            log.warning("processing variant %s of %s (%s) failed: %s", v.choice, v.target, v.setting, error)
-            outcomes.append(VariantOutcome(v.choice, v.target, v.setting, math.nan, math.nan, str(error)))
+        else:
+            log.info("processing variant %s of %s (%s) failed: %s", v.choice, v.target, v.setting, error)
+            outcomes.append(VariantOutcome(v.choice, v.target, v.setting, math.nan, math.nan, error))
     family_sd, u_eff, u_sys, combined = combine(base_estimate, outcomes, noise_share)
     warnings = _warnings(base_estimate, family_sd, u_eff, outcomes)
     for text in warnings:
         log.warning(text)
     return SensitivityResult(base_estimate, tuple(outcomes), MappingProxyType(family_sd), u_eff, u_sys,
                              combined, tuple(warnings))
+
+
+_WORKER_JOB: tuple | None = None  # (quantify, fit, configs), set just before the worker processes fork
+
+
+def _variant_k(index: int):
+    quantify, fit, configs = _WORKER_JOB
+    try:
+        return float(fit(quantify(configs[index])).value), None
+    except (KineticsError, ValueError, ArithmeticError, np.linalg.LinAlgError) as error:
+        return math.nan, str(error)
+
+
+def _variant_ks(variants, quantify, fit, workers: int) -> list[tuple[float, str | None]]:
+    """(k, None) or (NaN, why) per variant; in forked workers when ``workers`` > 1 (they
+    inherit the spectra and configs: only indices go out, numbers come back)."""
+    global _WORKER_JOB
+    import multiprocessing
+
+    configs = [v.config for v in variants]
+    _WORKER_JOB = (quantify, fit, configs)
+    try:
+        if workers <= 1 or len(configs) < 2 or "fork" not in multiprocessing.get_all_start_methods():
+            return [_variant_k(i) for i in range(len(configs))]
+        from concurrent.futures import ProcessPoolExecutor
+
+        with ProcessPoolExecutor(min(workers, len(configs)), mp_context=multiprocessing.get_context("fork")) as pool:
+            return list(pool.map(_variant_k, range(len(configs))))
+    finally:
+        _WORKER_JOB = None
 
 
 def _warnings(base: KEstimate, family_sd, u_eff: float, outcomes) -> list[str]:
@@ -461,6 +493,16 @@ def estimate_from_fit(result) -> KEstimate:
     return KEstimate(float(p.value), float(p.stderr), (float(lo), float(hi)), float(quantile), p.unit, name)
 
 
+def worker_count() -> int:
+    """Cores this process may use (for ``assess(..., workers=)``)."""
+    import os
+
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:  # pragma: no cover - not Linux
+        return os.cpu_count() or 1
+
+
 class SpectraQuantifier:
     """``quantify(config) -> table`` over already processed and aligned spectra.
 
@@ -491,7 +533,8 @@ class SpectraQuantifier:
     def __call__(self, config):
         from kinetics import series as se
 
-        reference = reference_from_spectrum(self.reference_spectrum, config)
+        reference = se.reference_from_spectrum(self.reference_spectrum, self.reference_spectrum.source_path or "",
+                                               config)
         measured = []
         for spectrum, base in zip(self.spectra, self.measurements):
             noise, results, windows = se.measure_spectrum(spectrum, config, reference)
@@ -506,16 +549,16 @@ def reference_from_spectrum(spectrum, config):
     return se.reference_from_spectrum(spectrum, spectrum.source_path or "", config)
 
 
-def processed_run(config, records=None, paths=None):
+def processed_run(config, records=None, paths=None, reference=None):
     """Process and align every spectrum of the run once: (spectra, measurements, reference spectrum).
 
-    ``paths`` (the files the run counted, in run order, the first being the reference)
-    replaces listing the config's folder; ``records`` (already read Spectrum/Fid records,
-    each with its ``source_path``) replaces reading files.  The measurements are the run's
-    own, as ``kinetics.series.measure_file`` makes them.
+    ``paths`` (the files the run counted, in run order, the first being the reference
+    unless ``reference`` is given) replaces listing the config's folder; ``records``
+    (already read Spectrum/Fid records, each with its ``source_path``) replaces reading
+    files.  ``reference`` (the run's :class:`kinetics.series.Reference`) aligns on a
+    reference already made.  The measurements are the run's own
+    (:func:`kinetics.series.measure_record`, the engine's per-file step).
     """
-    from pathlib import Path
-
     from kinetics import series as se
     from kinetics.spectra.reader import read
 
@@ -524,24 +567,15 @@ def processed_run(config, records=None, paths=None):
     elif paths is None:
         paths = se.list_files(config)
     records = list(records) if records is not None else None
-    pipeline = se._pipeline(config)
-    spectra, measurements, reference = [], [], None
+    spectra, measurements = [], []
     for i, path in enumerate(paths):
         record = records[i] if records is not None else read(path)
-        path = path if path is not None else (record.source_path or f"spectrum_{i + 1}")
-        processed = pipeline(record)
+        processed = se.process_record(record, config)
         if reference is None:
-            reference = reference_from_spectrum(processed.spectrum, config)
-        spectrum, shift = se._align(processed.spectrum, reference, config)
-        noise, results, windows = se.measure_spectrum(spectrum, config, reference)
-        start, mid, elapsed, duration = se.acquisition_time(path, record, config)
-        measurements.append(se.FileMeasurement(
-            path=str(path), file=Path(path).name, sha256=record.sha256 or "",
-            start_utc=start, mid_utc=mid, elapsed_mid_s=elapsed, duration_s=duration,
-            time_source=config.time.source, alignment_shift_ppm=shift, noise_sigma=noise.sigma,
-            observe_mhz=spectrum.observe_mhz, signals=results, fit_windows=windows,
-            notes=tuple(processed.notes)))
-        spectra.append(spectrum)
+            reference = se.reference_from_spectrum(processed.spectrum, path or record.source_path or "", config)
+        measurement = se.measure_record(path, record, processed, config, reference)
+        spectra.append(measurement.spectrum)
+        measurements.append(replace(measurement, spectrum=None))
     return spectra, measurements, reference.spectrum
 
 

@@ -119,6 +119,10 @@ class FileMeasurement:
     signals : tuple of SignalResult
     fit_windows : tuple of FitWindow
     notes : tuple of str
+    spectrum : Spectrum or None
+        The processed, aligned spectrum the signals were measured in, while the run
+        keeps it in memory (re-measuring under other processing choices,
+        :mod:`kinetics.sensitivity`); never stored in the ledger.
     """
 
     path: str
@@ -135,6 +139,7 @@ class FileMeasurement:
     signals: tuple[SignalResult, ...]
     fit_windows: tuple[FitWindow, ...] = ()
     notes: tuple[str, ...] = ()
+    spectrum: Spectrum | None = field(default=None, repr=False, compare=False)
 
     def signal(self, name: str) -> SignalResult:
         for item in self.signals:
@@ -239,11 +244,20 @@ def _pipeline(config: RunConfig):
     return Pipeline.from_config(dict(config.processing))
 
 
-def _read_processed(path, config: RunConfig):
+def process_record(record, config: RunConfig, phase_hint=None):
+    """One read record (Fid or Spectrum) through the run's ``[processing]`` pipeline.
+
+    ``phase_hint`` (a :class:`kinetics.processing.PhaseHint`) starts the automatic phase
+    search there (:func:`kinetics.processing.process`).
+    """
+    return _pipeline(config)(record, phase_hint)
+
+
+def _read_processed(path, config: RunConfig, phase_hint=None):
     from kinetics.spectra.reader import read
 
     record = read(path)
-    processed = _pipeline(config)(record)
+    processed = process_record(record, config, phase_hint)
     return record, processed
 
 
@@ -288,7 +302,8 @@ def reference_from_spectrum(spectrum: Spectrum, path: str | Path, config: RunCon
                      fit_points=MappingProxyType(points), path=str(path))
 
 
-def _align(spectrum: Spectrum, reference: Reference, config: RunConfig) -> tuple[Spectrum, float]:
+def align(spectrum: Spectrum, reference: Reference, config: RunConfig) -> tuple[Spectrum, float]:
+    """A processed spectrum aligned on the reference per ``[alignment]``: (spectrum, shift in ppm)."""
     alignment = config.alignment
     window = alignment.window_ppm
     if window is None:
@@ -300,6 +315,9 @@ def _align(spectrum: Spectrum, reference: Reference, config: RunConfig) -> tuple
     except ValueError as error:
         raise ConfigError("alignment.window_ppm", str(error)) from error
     return result.spectra[1], float(result.shifts_ppm[1])
+
+
+_align = align  # the former private name
 
 
 def _measure_integral(spectrum, sig, noise, reference: Reference, integ: IntegrationConfig) -> SignalResult:
@@ -322,8 +340,8 @@ def _measure_integral(spectrum, sig, noise, reference: Reference, integ: Integra
         region = first
         if not weak and sg._max_on_edge(spectrum, window):
             flags.append("left_window")
-    if "left_window" in flags:
-        log.warning("%s: signal %s is leaving its window (shift %.4f ppm)", spectrum.source_path, sig.name, shift)
+    if "left_window" in flags:  # summarised once per run (spectrum_messages)
+        log.debug("%s: signal %s is leaving its window (shift %.4f ppm)", spectrum.source_path, sig.name, shift)
     return SignalResult(sig.name, sig.species, "integral", region.integral, region.sigma, shift,
                         tuple(window), region.truncation_loss, tuple(flags))
 
@@ -347,12 +365,13 @@ def _measure_group(spectrum, members, reference: Reference, integ: IntegrationCo
         fit = sg.deconvolve(ppm, values, comps, spectrum.observe_mhz, integ.fit_baseline_order,
                             solvent_ppm=solvent_ppm)
         for k, sig in enumerate(members):
-            flags = () if fit.success else ("fit_failed",)
+            flags = () if fit.success else (
+                ("fit_at_limit",) if "limits" in str(fit.message) else ("fit_failed",))
             results.append(SignalResult(sig.name, sig.species, "fit", float(fit.areas[0, k]),
                                         float(fit.area_stderr[0, k]), fit.center_ppm[sig.name][0] - sig.center_ppm,
                                         sig.window_ppm, float("nan"), flags))
     except FitError as error:
-        log.warning("%s: deconvolution of %s failed: %s", spectrum.source_path, members[0].fit_group, error)
+        log.debug("%s: deconvolution of %s failed: %s", spectrum.source_path, members[0].fit_group, error)
         results = [SignalResult(s.name, s.species, "fit", float("nan"), float("nan"), 0.0, s.window_ppm,
                                 float("nan"), ("fit_failed",)) for s in members]
     return results, FitWindow(members[0].fit_group, ppm.copy(), values.copy())
@@ -391,7 +410,8 @@ def measure_spectrum(spectrum: Spectrum, config: RunConfig, reference: Reference
     return noise, ordered, tuple(windows)
 
 
-def measure_file(path: str | Path, config: RunConfig, reference: Reference | None = None) -> FileMeasurement:
+def measure_file(path: str | Path, config: RunConfig, reference: Reference | None = None,
+                 phase_hint=None) -> FileMeasurement:
     """Read, process, align and measure one file (the live watcher's unit of work).
 
     Parameters
@@ -401,28 +421,45 @@ def measure_file(path: str | Path, config: RunConfig, reference: Reference | Non
     reference : Reference, optional
         From :func:`make_reference` on the run's first file; when None this file is
         its own reference (it is the first file).
+    phase_hint : PhaseHint, optional
+        Where the automatic phase search starts (:func:`process_record`).
     """
-    return measure_first(path, config)[1] if reference is None else _measure(path, config, reference)
+    if reference is None:
+        return measure_first(path, config, phase_hint)[1]
+    return _measure(path, config, reference, phase_hint=phase_hint)
 
 
-def measure_first(path: str | Path, config: RunConfig) -> tuple[Reference, FileMeasurement]:
+def measure_first(path: str | Path, config: RunConfig, phase_hint=None) -> tuple[Reference, FileMeasurement]:
     """The run's first file: its :class:`Reference` and its measurement, reading it once."""
-    record, processed = _read_processed(path, config)
+    record, processed = _read_processed(path, config, phase_hint)
     reference = reference_from_spectrum(processed.spectrum, path, config)
-    return reference, _measure(path, config, reference, (record, processed))
+    return reference, measure_record(path, record, processed, config, reference)
 
 
-def _measure(path, config: RunConfig, reference: Reference, read=None) -> FileMeasurement:
-    record, processed = read if read is not None else _read_processed(path, config)
-    spectrum, shift = _align(processed.spectrum, reference, config)
+def _measure(path, config: RunConfig, reference: Reference, read=None, phase_hint=None) -> FileMeasurement:
+    record, processed = read if read is not None else _read_processed(path, config, phase_hint)
+    return measure_record(path, record, processed, config, reference)
+
+
+def measure_record(path: str | Path | None, record, processed, config: RunConfig,
+                   reference: Reference) -> FileMeasurement:
+    """A read record and its processed spectrum -> the file's measurement.
+
+    Aligns on the reference (:func:`align`) and measures the signals
+    (:func:`measure_spectrum`); the aligned spectrum rides along in
+    ``FileMeasurement.spectrum`` (kept in memory only).  ``path`` None names the file by
+    the record's ``source_path`` (in-memory records).
+    """
+    spectrum, shift = align(processed.spectrum, reference, config)
     noise, results, windows = measure_spectrum(spectrum, config, reference)
+    path = path if path is not None else (record.source_path or "spectrum")
     start, mid, elapsed, duration = acquisition_time(path, record, config)
-    sha = record.sha256 or sha256_of_file(path)
+    sha = record.sha256 or (sha256_of_file(path) if Path(path).is_file() else "")
     return FileMeasurement(
         path=str(path), file=Path(path).name, sha256=sha, start_utc=start, mid_utc=mid,
         elapsed_mid_s=elapsed, duration_s=duration, time_source=config.time.source,
         alignment_shift_ppm=shift, noise_sigma=noise.sigma, observe_mhz=spectrum.observe_mhz,
-        signals=results, fit_windows=windows, notes=tuple(processed.notes))
+        signals=results, fit_windows=windows, notes=tuple(processed.notes), spectrum=spectrum)
 
 
 # ---------------------------------------------------------------- the series
@@ -533,7 +570,7 @@ def _apply_held_shapes(measurements, config: RunConfig, integral, sigma, shift, 
 
 
 def _apply_global_fits(measurements, config: RunConfig, integral, sigma, shift, flags, notes,
-                       start: Mapping | None = None) -> dict:
+                       start: Mapping | None = None, warnings: list | None = None) -> dict:
     """Series-wide deconvolution of every fit group (in place); returns group -> result.
 
     ``start`` (group -> a previous turn's DeconvolutionResult) warm-starts a live turn;
@@ -556,6 +593,10 @@ def _apply_global_fits(measurements, config: RunConfig, integral, sigma, shift, 
                                 solvent_ppm=solvent_lines_ppm(config))
         except FitError as error:
             notes.append(f"global fit of {group} failed: {error}")
+            (notes if warnings is None else warnings).append(
+                f"the series-wide fit of {', '.join(sig.name for sig in members)} failed "
+                f"({fit_message_in_words(str(error), members)}): those signals have no values in this run; "
+                "check their window_ppm and lineshape against a spectrum")
             for sig in members:
                 for row in range(len(measurements)):
                     flags[names.index(sig.name)][row] = [
@@ -564,6 +605,13 @@ def _apply_global_fits(measurements, config: RunConfig, integral, sigma, shift, 
             continue
         fits[group] = fit
         notes.append(fit.report())
+        if not fit.success:
+            names_ = ", ".join(sig.name for sig in members)
+            warnings_out = notes if warnings is None else warnings
+            warnings_out.append(
+                f"the series-wide fit of {names_} did not end cleanly: {fit_message_in_words(fit.message, members)}. "
+                "Check those signals' window_ppm, lineshape (width_hz, j_hz) and tolerance_ppm against a spectrum; "
+                "their areas may be biased")
         for k, sig in enumerate(members):
             col = names.index(sig.name)
             integral[col] = fit.areas[:, k]
@@ -573,6 +621,63 @@ def _apply_global_fits(measurements, config: RunConfig, integral, sigma, shift, 
                 flags[col][row] = [f for f in flags[col][row] if f not in ("fit_failed", "global_fit_pending")]
                 flags[col][row].append("global_fit" if fit.success else "global_fit_failed")
     return fits
+
+
+_PARAMETER_WORDS = {"offset_hz": "position", "width_hz": "line width", "j_hz": "coupling J",
+                    "gauss_hz": "Gaussian width"}
+
+
+def fit_message_in_words(message: str, members) -> str:
+    """A deconvolution message with its internal parameter names (``c0_width_hz``) as words
+    naming the signal ("the line width of ester_OCH2")."""
+
+    def word(match):
+        index, kind = int(match.group(1)), match.group(2)
+        name = members[index].name if index < len(members) else f"component {index + 1}"
+        return f"the {_PARAMETER_WORDS.get(kind, kind)} of {name}"
+
+    text = re.sub(r"\bc(\d+)_(offset_hz|width_hz|j_hz|gauss_hz)\b", word, str(message))
+    return text.replace("parameters at their limits", "at the limit of its allowed range")
+
+
+def _files_named(files: Sequence[str], rows: Sequence[int], shown: int = 3) -> str:
+    named = [files[i] for i in rows[:shown]]
+    more = f" and {len(rows) - shown} more" if len(rows) > shown else ""
+    return ", ".join(named) + more
+
+
+#: per-spectrum flags summarised once per run: flag -> (what happened, what to do)
+SPECTRUM_FLAG_MESSAGES = {
+    "left_window": ("reaches the edge of its window",
+                    "it drifts or is wider than the window: widen its window_ppm or raise its tolerance_ppm"),
+    "fit_failed": ("could not be fitted",
+                   "those spectra are left out of its series; check its window_ppm and lineshape against one of them"),
+    "fit_at_limit": ("was fitted with a line shape at the limit of its allowed range",
+                     "check its lineshape width_hz / j_hz and window_ppm against one of those spectra"),
+    "weak": ("is weaker than 5 times its uncertainty",
+             "its points carry large uncertainties; check that the window holds the signal"),
+}
+
+
+def spectrum_messages(config: RunConfig, flags, files: Sequence[str]) -> list[str]:
+    """Per-spectrum findings summarised once per run, naming the signal, the files and what to do.
+
+    ``flags[signal index][row]`` are the signals' flags (``SignalResult.flags``);
+    ``files`` the rows' file names.  One message per signal and finding, e.g. "signal
+    ester_OCH2 reaches the edge of its window in 12 of 36 spectra (a.jdx, b.jdx, c.jdx and
+    9 more): ...".  A signal weak in fewer than half the spectra (a product at the
+    start) is not reported.
+    """
+    out = []
+    m = len(files)
+    for col, sig in enumerate(config.signals):
+        for flag, (what, todo) in SPECTRUM_FLAG_MESSAGES.items():
+            rows = [row for row in range(m) if flag in flags[col][row]]
+            if not rows or (flag == "weak" and 2 * len(rows) < m):
+                continue
+            out.append(f"signal {sig.name} {what} in {len(rows)} of {m} spectra ({_files_named(files, rows)}): "
+                       f"{todo}")
+    return out
 
 
 def _saturation(config: RunConfig, integral, sigma, warnings: list[str]) -> None:
@@ -687,8 +792,10 @@ def series_table(measurements: Sequence[FileMeasurement], config: RunConfig,
             fits = dict(start)
             _apply_held_shapes(ms, config, integral, sigma, shift, flags, notes, fits)
         else:
-            fits = _apply_global_fits(ms, config, integral, sigma, shift, flags, notes, start)
+            fits = _apply_global_fits(ms, config, integral, sigma, shift, flags, notes, start, warnings)
     _saturation(config, integral, sigma, warnings)
+    messages = spectrum_messages(config, flags, [x.file for x in ms])
+    warnings.extend(messages)
     conc, csig, unit = _concentrations(config, integral, sigma)
 
     table = {
@@ -713,6 +820,7 @@ def series_table(measurements: Sequence[FileMeasurement], config: RunConfig,
     df.attrs["warnings"] = warnings
     df.attrs["notes"] = notes
     df.attrs["concentration_unit"] = unit
+    df.attrs["mass_balance_sigmas"] = float(config.quantify.mass_balance_sigmas)
     return df, fits
 
 
@@ -752,8 +860,8 @@ def _derived(config, species_c, species_s, names, table, warnings) -> None:
         table["mass_balance_deviation"] = balance.deviation
         table["mass_balance_deviation_sigma"] = balance.deviation_sigma
         table["mass_balance_flag"] = balance.flagged
-        if not balance.holds:
-            warnings.append(f"mass balance drifts beyond {balance.k:g} sigma in {int(balance.flagged.sum())} spectra")
+        # a flagged balance reaches the fit's warnings through the engine's refit
+        # (kinetics.rates.diagnostics.mass_balance_note over this column and the file names)
 
 
 @dataclass(frozen=True)

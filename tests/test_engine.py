@@ -97,7 +97,14 @@ def test_each_file_read_once_pipeline_built_once_no_overwritten_fits(tmp_path, m
     assert summary.counts["processed"] == demo.SPECTRA_PER_RUN
     assert sorted(reads) == sorted(set(reads)) and len(reads) == demo.SPECTRA_PER_RUN  # the first one too
     assert builds == []  # built when the config was loaded
-    assert len(fits) == len(config.fit_groups)  # one series-wide fit per group, none per spectrum
+    # one series-wide fit per group, none per spectrum: for the run, then for each processing
+    # variant of the final pass (which re-measures the spectra kept in memory: no file read again)
+    from kinetics import sensitivity
+
+    variants = sensitivity.neighbour_variants(config)
+    assert len(variants) >= 10
+    assert len(fits) == len(config.fit_groups) + sum(len(v.config.fit_groups) for v in variants)
+    assert summary.outcome.processing["assessed"] and summary.outcome.processing["spectra_read_again"] == 0
 
 
 def test_live_turns_hold_line_shapes_between_refreshes_and_the_final_pass_is_exact(tmp_path):
@@ -142,11 +149,20 @@ def test_restarted_run_measures_only_new_files_and_ends_as_a_fresh_run(tmp_path,
     reads = []
     real_read = reader.read
     monkeypatch.setattr(reader, "read", lambda path, *a, **k: reads.append(Path(path).name) or real_read(path, *a, **k))
-    again = batch_run(tmp_path / "run.toml", tmp_path / "out")  # the ledger has the first 20
+    again = batch_run(tmp_path / "run.toml", tmp_path / "out",  # the ledger has the first 20
+                      processing_uncertainty=False)
     # the 16 new files, plus the reference spectrum read again for alignment
     assert sorted(reads) == sorted([files[0].name] + [path.name for path in files[20:]])
-    fresh = batch_run(tmp_path / "run.toml", tmp_path / "fresh")
+    fresh = batch_run(tmp_path / "run.toml", tmp_path / "fresh", processing_uncertainty=False)
     pd.testing.assert_frame_equal(again.table, fresh.table, check_exact=True)
+    # the processing-uncertainty pass re-measures spectra: those restored from the ledger
+    # (not in memory) are read once more, and the document says so; the result is a fresh run's
+    reads.clear()
+    restarted = batch_run(tmp_path / "run.toml", tmp_path / "out")
+    fresh = batch_run(tmp_path / "run.toml", tmp_path / "fresh2")
+    assert restarted.outcome.processing["spectra_read_again"] == len(files)
+    assert fresh.outcome.processing["spectra_read_again"] == 0
+    assert restarted.outcome.k["ci95"] == pytest.approx(fresh.outcome.k["ci95"], rel=1e-9)
 
 
 def _draft(tmp_path, **sections) -> Path:

@@ -121,3 +121,42 @@ def test_combined_interval_coverage_ci_sample():
     # and not by making the interval useless: median half-width under 3 % of k
     half = np.median([(r["combined_ci95"][1] - r["combined_ci95"][0]) / 2 / r["k"] for r in rows])
     assert half < 0.03, half
+
+
+# ---------------------------------------------------------------- through the run engine
+def test_engine_quotes_the_combined_interval_and_names_the_choice(tmp_path):
+    # independent generator (not kinetics.simulate): 40 MHz, the CH2 quartets 0.48 ppm apart
+    # beside a water line 45x taller, windows drawn 30 % wide, baseline order 1 -- a
+    # reasonable config whose k moves with the window by more than its statistical interval
+    import json
+
+    from kinetics.run.engine import batch_run
+
+    sc = gen.Scenario(nominal_mhz=40.0, n_spectra=24, interval_s=180.0)
+    gen.write_series(tmp_path / "s40", sc, seed=5)
+    (tmp_path / "run.toml").write_text(gen.config_text(tmp_path / "s40", sc, baseline_order=1, window_scale=1.3))
+    summary = batch_run(tmp_path / "run.toml", tmp_path / "out", figures=False)
+    doc = json.loads((tmp_path / "out" / "fit.json").read_text())
+    pu = doc["processing_uncertainty"]
+    assert pu["assessed"] and pu["spectra_read_again"] == 0
+    assert set(pu) >= {"statistical", "systematic", "ci95", "breakdown"}
+    stat, combined = pu["statistical"]["ci95"], pu["ci95"]
+    assert combined[0] <= stat[0] and combined[1] >= stat[1]
+    assert doc["k"]["ci95"] == combined and doc["k"]["ci95_statistical"] == stat
+    assert combined[0] <= sc.k <= combined[1]  # the truth the generator used
+    named = [w for w in doc["warnings"] if "depends on processing choices more than on noise" in w]
+    assert len(named) == 1 and "ester_OCH2" in named[0] and "window" in named[0]
+    # mass-balance drift reaches the JSON naming the files (once, not once per variant)
+    assert sum("mass balance" in w for w in doc["warnings"]) <= 1
+    assert summary.outcome.processing == pu
+
+
+def test_mechanism_fits_say_the_systematic_term_is_not_assessed():
+    from types import SimpleNamespace
+
+    from kinetics.run.uncertainty import assess_outcome
+
+    outcome = SimpleNamespace(k={"value": 1.0, "ci95": [0.9, 1.1]}, state=object(), succeeded=True)
+    k, doc, warnings, text = assess_outcome(None, SimpleNamespace(mechanism="A -> B"), [], None, None, outcome)
+    assert k == outcome.k and warnings == [] and text is None
+    assert doc["assessed"] is False and "not assessed for mechanism" in doc["reason"]

@@ -555,7 +555,7 @@ def _first_order_lines(couplings, width_hz=1.0, mhz=60.0):
     ([(15.5, 1), (6.9, 3)], "dq", (15.5, 6.9)),
 ])
 def test_first_order_patterns_are_named_with_their_couplings(couplings, code, j_hz):
-    from kinetics.init import match_pattern
+    from kinetics.signals.multiplets import match_pattern
 
     x, h, w = _first_order_lines(couplings)
     pattern = match_pattern(x, h, w, tol_hz=0.3)
@@ -566,7 +566,8 @@ def test_first_order_patterns_are_named_with_their_couplings(couplings, code, j_
 def test_unequal_or_unlike_lines_are_not_a_doublet():
     # 45:1 at 7.2 Hz (two species' singlets 0.12 ppm apart at 60 MHz), and two lines of
     # equal height but widths 1 and 4 Hz: no first-order doublet looks like either.
-    from kinetics.init import group_peaks, match_pattern, Peak
+    from kinetics.signals.lines import Peak
+    from kinetics.signals.multiplets import group_peaks, match_pattern
 
     assert match_pattern([507.2, 500.0], [45.0, 1.0], [1.0, 1.0], tol_hz=0.3) is None
     assert match_pattern([507.2, 500.0], [1.0, 1.0], [1.0, 4.0], tol_hz=0.3) is None

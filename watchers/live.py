@@ -138,7 +138,7 @@ def run_live(plan: RunPlan, options: LiveOptions, stop: _StopFlag | None = None,
 
                     plot = LivePlot()
                 reason = _loop(state, watcher, options, stop, replay_done, on_turn, view, plot)
-                state.refit(from_scratch=True)
+                state.final_fit()  # from scratch, with the processing uncertainty
                 status = state.write_outputs(watcher.pending, reason, final=True)
                 view.close(status)
                 return RunSummary(reason, status.counts, state.outcome, out_dir, state.table)

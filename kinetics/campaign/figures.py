@@ -41,18 +41,23 @@ def _figure(width_in=6.4, height_in=3.2, n_axes=1):
 def global_fit_figure(result, runs, species: str = "A") -> Figure:
     """Every run's measured ``[species]`` (markers) and the globally fitted curve (line)."""
     figure, (ax,) = _figure()
+    handles, labels = [], []
     for i, run in enumerate(runs):
         if species not in run.observed_mol_per_l:
             continue
         style = series_style(i)
-        ax.plot(run.time_s, run.observed_mol_per_l[species], linestyle="none", marker=style.marker,
-                color=style.colour, markerfacecolor="none", label=_plain(run.label))
+        (points,) = ax.plot(run.time_s, run.observed_mol_per_l[species], linestyle="none", marker=style.marker,
+                            color=style.colour, markerfacecolor="none")
         grid = np.linspace(0.0, float(run.time_s[-1]), 200)
-        ax.plot(grid, result.curve(run.label, grid)[species], linestyle=style.linestyle, color=style.colour)
+        (line,) = ax.plot(grid, result.curve(run.label, grid)[species], linestyle=style.linestyle,
+                          color=style.colour)
+        handles.append((points, line))
+        labels.append(_plain(run.label))
     ax.set_xlabel(TIME_LABEL)
     ax.set_ylabel(f"[{_plain(species)}] / mol L⁻¹")
     ax.set_title(_plain(result.description))
-    ax.legend(title="run (markers: data, lines: global fit)", ncols=2)
+    ax.legend(handles, labels, title="run (markers: data, lines: global fit)", ncols=2,
+              handlelength=3.0)
     return figure
 
 
@@ -70,7 +75,8 @@ def vtna_figure(result, runs) -> Figure:
     grid = np.linspace(0.0, 1.0, 200)
     ax.plot(grid * tau_max, spline(grid), color="black", linestyle="-", linewidth=1.0, label="shared curve")
     terms = " ".join(f"[{_plain(s)}]^{o:.2f}" for s, o in result.orders.items())
-    ax.set_xlabel(f"Σ {terms} Δt / (mol L⁻¹)^n s")
+    total = sum(result.orders.values())
+    ax.set_xlabel(f"Σ {terms} Δt / (mol L⁻¹)^{total:.2f} s")
     ax.set_ylabel(f"[{_plain(result.observed)}] / mol L⁻¹")
     ax.legend(title="run")
     for i, (name, (orders, scores)) in enumerate(result.grid.items()):
@@ -121,13 +127,13 @@ def rate_figure(courses: Sequence, normalise_order: float | None = None) -> Figu
     if normalise_order is None:
         ax.set_ylabel(RATE_LABEL)
     else:
-        ax.set_ylabel(f"rate / [B]^{normalise_order:.2f} / (mol L⁻¹)^(1-{normalise_order:.2f}) s⁻¹")
+        ax.set_ylabel(f"rate / [B]^{normalise_order:.2f} / (mol L⁻¹)^{1 - normalise_order:.2f} s⁻¹")
     ax.legend(title="run")
     return figure
 
 
 def initial_rates_figure(result) -> Figure:
-    """One panel per factor: ``ln r0`` corrected for the other factors against ``ln x``, with
+    """One panel per factor: ``ln r0`` corrected for the other factors ("partial") against ``ln x``, with
     the fitted line (a partial-residual plot) and error bars of ``sigma/r0``."""
     n = len(result.factors)
     figure, axes = _figure(3.0 * n + 0.6, 3.0, n)
@@ -145,6 +151,6 @@ def initial_rates_figure(result) -> Figure:
         ax.plot(x, result.ln_k.value + orders[j] * x, color=style.colour, linestyle=style.linestyle,
                 label=f"order {orders[j]:.2f}")
         ax.set_xlabel(f"ln([{_plain(name)}] / mol L⁻¹) / 1")
-        ax.set_ylabel("ln(r₀ / mol L⁻¹ s⁻¹), other factors removed / 1")
+        ax.set_ylabel("partial ln(r₀ / mol L⁻¹ s⁻¹) / 1")
         ax.legend()
     return figure

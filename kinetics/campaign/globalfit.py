@@ -266,18 +266,59 @@ def _pooled_guardrails(blocks, residual, fitted, jacobian, dof, weighted, by_lab
     labels = [f"run {label} {species} at {t:.4g} s" for (label, species) in blocks
               for t in by_label[label].time_s]
     found += dg.check_outliers(r_all, jacobian, dof, labels)
-    for label in dict.fromkeys(b[0] for b in blocks):
+    found += _run_consistency(blocks, residual, dof)
+    return found
+
+
+RUN_MISFIT_P = 0.01   # family-wise level of the per-run checks (Bonferroni over runs)
+RUN_MISFIT_RATIO = 3.0  # a run flagged must also have 3x the mean square of the others (chosen here)
+
+
+def _run_consistency(blocks, residual, dof) -> list:
+    """Name the runs the shared law does not describe.
+
+    Two per-run checks on the weighted residuals, each at ``RUN_MISFIT_P`` over all runs
+    (Bonferroni): the run's mean square against the other runs' (F test,
+    ``F = (S_run/n_run) / (S_rest/(N - n_run - p))``, flagged only when also
+    ``RUN_MISFIT_RATIO`` times larger), and the exact runs test of its residual signs
+    (too few sign changes).
+    """
+    from scipy import stats
+
+    labels = list(dict.fromkeys(b[0] for b in blocks))
+    if len(labels) < 2:
+        return []
+    total = sum(float(r @ r) for r in residual.values())
+    n_total = sum(r.size for r in residual.values())
+    n_params = n_total - dof
+    level = RUN_MISFIT_P / len(labels)
+    found = []
+    for label in labels:
         own = [residual[b] for b in blocks if b[0] == label]
+        s_run = sum(float(r @ r) for r in own)
+        n_run = sum(r.size for r in own)
+        rest_dof = n_total - n_run - n_params
+        if rest_dof < 1 or total - s_run <= 0:
+            continue
+        ratio = (s_run / n_run) / ((total - s_run) / rest_dof)
+        p_ms = float(stats.f.sf(ratio, n_run, rest_dof))
         longest = max(r.size for r in own)
-        runs, expected, _, p = dg.runs_test_exact(np.array([np.pad(r, (0, longest - r.size)) for r in own]))
-        if np.isfinite(p) and p < dg.RUNS_P:
+        runs, expected, _, p_runs = dg.runs_test_exact(np.array([np.pad(r, (0, longest - r.size)) for r in own]))
+        reasons = []
+        if p_ms < level and ratio > RUN_MISFIT_RATIO:
+            reasons.append(f"its residuals have {ratio:.1f}x the mean square of the other runs' "
+                           f"(F test p = {p_ms:.2g})")
+        if np.isfinite(p_runs) and p_runs < level:
+            reasons.append(f"they change sign too rarely ({runs} runs where {expected:.1f} are expected, "
+                           f"p = {p_runs:.2g})")
+        if reasons:
             found.append(dg.Guardrail(
                 "run_not_described",
-                f"run {label}: its residuals change sign too rarely ({runs} runs where {expected:.1f} are expected, "
-                f"exact p = {p:.2g}): the shared law does not describe this run. Look at its overlay: a "
-                "deactivating catalyst, a different batch of reagent, or a temperature excursion; leave it out "
-                "and refit to see how much it moves the constants", dg.WARNING,
-                {"run": label, "runs": runs, "expected_runs": expected, "p": p}))
+                f"run {label}: " + " and ".join(reasons) + ": the shared law does not describe this run. Look at "
+                "its same-excess overlay: a deactivating catalyst, another batch of a reagent, a wrong design "
+                "value or a temperature excursion. Refit without it to see how much it moves the constants",
+                dg.WARNING, {"run": label, "mean_square_ratio": ratio, "p_mean_square": p_ms, "runs": runs,
+                             "expected_runs": expected, "p_runs": p_runs}))
     return found
 
 
@@ -388,6 +429,9 @@ def fit_power_law(runs: Sequence[CampaignRun], law: PowerLaw | None = None, *, s
     for name in law.free:
         order_params.append(_Param(f"order_{name}", float(starts.get(name, 1.0)), order_bounds[0],
                                    order_bounds[1], "1"))
+    for name in law.free_binding:
+        scale = float(np.median([max(run.initial_mol_per_l.values(), default=1.0) or 1.0 for run in runs]))
+        order_params.append(_Param(f"K_{name}", 1.0 / scale, 0.0, math.inf, "L mol^-1"))
     if temperatures is None:
         rate_params = [_Param("k", 1.0, 0.0, math.inf, law.k_unit({f"order_{s}": 1.0 for s in law.free}))]
     else:
@@ -410,7 +454,8 @@ def fit_power_law(runs: Sequence[CampaignRun], law: PowerLaw | None = None, *, s
             k = values["k"]
         else:
             k = values["k_ref"] * _arrhenius_factor(values["ea_j_per_mol"], run.temperature_kelvin, t_ref)
-        return course(law, run.time_s, k, orders, initial_of(run, values), run.catalyst_mol_per_l)
+        binding = {name: values[f"K_{name}"] for name in law.free_binding}
+        return course(law, run.time_s, k, orders, initial_of(run, values), run.catalyst_mol_per_l, binding)
 
     params = rate_params + order_params + fitted_c0
     start_values = {p.name: p.start for p in params}

@@ -21,7 +21,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Mapping, Sequence
+from typing import Sequence
 
 import numpy as np
 
@@ -142,9 +142,9 @@ def orders_from_initial_rates(runs: Sequence[CampaignRun], factors: Sequence[str
                                   "needs a positive value in every run")
     r0 = np.array([r.rate_mol_per_l_s for r in rates])
     se = np.array([r.stderr for r in rates])
-    bad = [r.label for r in rates if not r.rate_mol_per_l_s > 0]
+    bad = [r for r in rates if not r.rate_mol_per_l_s > 0]
     if bad:
-        raise FitError(f"run {bad[0]}: the initial rate is not positive ({dict((r.label, r.rate_mol_per_l_s) for r in rates)[bad[0]]:.3g}); "
+        raise FitError(f"run {bad[0].label}: the initial rate is not positive ({bad[0].rate_mol_per_l_s:.3g}); "
                        "check the species and its role, or the start of that run")
     p = len(factors) + 1
     dof = len(runs) - p

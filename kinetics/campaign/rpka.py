@@ -195,11 +195,12 @@ def same_excess(early: CampaignRun, late: CampaignRun, species: str = "A", partn
         message = (f"run {late.label} overlays run {early.label} (rate ratio {f:.2f}, p = {p:.2g}): no sign of "
                    "catalyst deactivation or product inhibition over this range")
     elif f > 1:
-        message = (f"run {late.label} (started later on the course) reacts {f:.2f}x as fast as run {early.label} at the "
-                   f"same composition (95 % interval {interval[0]:.2f} to {interval[1]:.2f}, p = {p:.2g}): in run "
-                   f"{early.label} the catalyst loses activity during the run, or the product it has formed inhibits. "
-                   f"To tell which, repeat run {late.label} with {consumed:.3g} mol/L of product added: if it then "
-                   f"overlays run {early.label}, the product inhibits; if it still runs faster, the catalyst deactivates")
+        message = (f"run {late.label} (started later on the course) reacts {f:.2f}x as fast as run {early.label} "
+                   f"at the same composition (95 % interval {interval[0]:.2f} to {interval[1]:.2f}, p = {p:.2g}): "
+                   f"in run {early.label} the catalyst loses activity during the run, or the product it has formed "
+                   f"inhibits. To tell which, repeat run {late.label} with {consumed:.3g} mol/L of product added: if "
+                   f"it then overlays run {early.label}, the product inhibits; if it still runs faster, the catalyst "
+                   "deactivates")
     else:
         message = (f"run {late.label} reacts only {f:.2f}x as fast as run {early.label} at the same composition "
                    f"(95 % interval {interval[0]:.2f} to {interval[1]:.2f}, p = {p:.2g}): run {late.label} is the "
@@ -271,6 +272,10 @@ class Diagnosis:
     plain: SameExcessResult
     spiked: SameExcessResult
     message: str
+
+    def to_dict(self) -> dict:
+        return {"cause": self.cause, "message": self.message, "same_excess": self.plain.to_dict(),
+                "same_excess_with_product": self.spiked.to_dict()}
 
 
 def diagnose(early: CampaignRun, late: CampaignRun, spiked: CampaignRun, species="A", partner="B") -> Diagnosis:

@@ -5,14 +5,15 @@ smoothed derivatives of one course.
   linear least squares (``scipy.interpolate.make_lsq_spline``) through points pooled from
   several runs; its residual sum of squares is the overlay score of the graphical methods.
 * :func:`smooth_derivative`: a smoothing spline (``scipy.interpolate.make_smoothing_spline``,
-  penalised second derivative, smoothing chosen by generalised cross-validation) and its
-  derivative; the rate of a course without assuming a rate law.
+  penalised second derivative) and its derivative (the penalty from the discrepancy
+  principle when sigmas are known, else generalised cross-validation); the rate of a
+  course without assuming a rate law.
 """
 
 from __future__ import annotations
 
 import numpy as np
-from scipy import interpolate
+from scipy import interpolate, optimize
 
 from kinetics.errors import FitError
 
@@ -63,13 +64,31 @@ def design_matrix(x, knots) -> np.ndarray:
 def smooth_derivative(time_s, values, sigma=None):
     """Smoothed course and its time derivative at the measured times: ``(smooth, d/dt)``.
 
-    A penalised smoothing spline with the penalty chosen by generalised cross-validation
-    (Craven & Wahba 1979), weighted by ``1/sigma^2`` when sigmas are given.
+    A penalised cubic smoothing spline (``make_smoothing_spline``).  With sigmas the
+    penalty follows the discrepancy principle (Morozov 1966): the largest smoothing whose
+    weighted residual sum of squares stays at the number of points, ``sum ((y - s)/sigma)^2
+    = n``; without them generalised cross-validation chooses it (Craven & Wahba 1979).
     """
     t = np.asarray(time_s, dtype=float)
     y = np.asarray(values, dtype=float)
     if t.size < 5:
         raise FitError(f"{t.size} points: a smoothed rate needs at least 5")
-    w = None if sigma is None else 1.0 / np.asarray(sigma, dtype=float) ** 2
-    spline = interpolate.make_smoothing_spline(t, y, w=w)
+    if sigma is None:
+        spline = interpolate.make_smoothing_spline(t, y)
+        return spline(t), spline.derivative()(t)
+    w = 1.0 / np.asarray(sigma, dtype=float) ** 2
+    scale = float(np.ptp(t)) ** 3  # the penalty scales with time^3: search lam relative to it
+
+    def excess(log_lam):
+        spline = interpolate.make_smoothing_spline(t, y, w=w, lam=scale * 10.0**log_lam)
+        return float(np.sum(w * (y - spline(t)) ** 2)) - t.size
+
+    lo, hi = -12.0, 2.0
+    if excess(hi) <= 0:
+        log_lam = hi
+    elif excess(lo) >= 0:
+        log_lam = lo
+    else:
+        log_lam = optimize.brentq(excess, lo, hi, xtol=1e-3)
+    spline = interpolate.make_smoothing_spline(t, y, w=w, lam=scale * 10.0**log_lam)
     return spline(t), spline.derivative()(t)

@@ -153,8 +153,8 @@ def _minimise(score, start, bounds, free, tol=1e-4, rounds=6):
                 trial[i] = v
                 return score(trial)
             lo, hi = bounds
-            width = 0.25 * (hi - lo) / (GRID_POINTS - 1) * 4
-            a, b = max(lo, values[i] - width), min(hi, values[i] + width)
+            step = (hi - lo) / (GRID_POINTS - 1)  # one grid step either side of the current value
+            a, b = max(lo, values[i] - step), min(hi, values[i] + step)
             found = optimize.minimize_scalar(along, bounds=(a, b), method="bounded", options={"xatol": tol})
             if found.fun < best:
                 values[i], best = float(found.x), float(found.fun)

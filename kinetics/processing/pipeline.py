@@ -12,6 +12,7 @@ import numpy as np
 
 from kinetics.errors import ConfigError
 from kinetics.linalg import small_linear_algebra
+from kinetics.nuclei import SCALE_REFERENCES, known_nucleus
 from kinetics.processing.phasing import PHASE_METHODS, PhaseHint, auto_phase
 from kinetics.processing.steps import (align_series, apodize_exponential, apodize_gaussian, correct_baseline,
                                        detect_group_delay, fft, noise_sigma, phase, reference,
@@ -79,13 +80,23 @@ _DEFAULTS: dict[str, Any] = {
     "phase_exclude_ppm": [],     # [[high, low], ...] left out of the auto-phase score (solvent)
     "phase_p1_range_deg": 360.0, # degrees, half-width of the auto-phase p1 search
     "baseline": "none",          # "none" | "asls" | "arpls" | "polynomial" | {method, ...}
-    "reference": None,           # None | "tms" | {ppm, window_ppm, target_ppm}
+    "reference": None,           # None | "tms" | "ccl3f" | "h3po4" | {ppm, window_ppm, target_ppm}
     "noise_region_ppm": None,    # [high, low] signal-free region for the noise sigma
 }
 
 _BASELINE_KEYS = {"method", "lam", "p", "order", "regions_ppm"}
 _REFERENCE_KEYS = {"ppm", "window_ppm", "target_ppm"}
 _PHASE_KEYS = {"p0_deg", "p1_deg", "pivot_ppm"}
+
+
+def _scale_reference_names() -> dict[str, tuple[str, ...]]:
+    """Lower-case compound name -> the nuclei whose scale it is the zero of
+    (:data:`kinetics.nuclei.SCALE_REFERENCES`): ``{"tms": ("1H", "13C"), "ccl3f": ("19F",), ...}``."""
+    names: dict[str, tuple[str, ...]] = {}
+    for nucleus, compound in SCALE_REFERENCES.items():
+        key = compound.name.lower()
+        names[key] = names.get(key, ()) + (nucleus,)
+    return names
 
 
 def _key(name: str) -> str:
@@ -149,9 +160,11 @@ class Pipeline:
     baseline             "none"      "none", "asls", "arpls", "polynomial", or a table
                                      {method, lam (1e7), p (0.01), order (3),
                                      regions_ppm [[high, low], ...] (polynomial only)}
-    reference            none        "tms" (= {ppm = 0}), or {ppm, window_ppm (0.3),
-                                     target_ppm (= ppm)}: the tallest point in ppm +/-
-                                     window_ppm is moved to target_ppm
+    reference            none        the zero of the nucleus's scale by name: "tms" (1H,
+                                     13C), "ccl3f" (19F), "h3po4" (31P), each = {ppm = 0}
+                                     and refused on another nucleus; or {ppm, window_ppm
+                                     (0.3), target_ppm (= ppm)}: the tallest point in ppm
+                                     +/- window_ppm is moved to target_ppm
     noise_region_ppm     none        [high, low] signal-free region; noise sigma is reported
     ==================== =========== ==========================================================
 
@@ -298,10 +311,16 @@ class Pipeline:
     def _check_reference(value):
         if value is None or value == "none":
             return None
+        nuclei = None
         if isinstance(value, str):
-            if value.lower() != "tms":
+            # the zero of a nucleus's scale by its compound's name ("tms", "ccl3f", "h3po4"):
+            # checked against the spectrum's nucleus when it runs
+            names = _scale_reference_names()
+            if value.lower() not in names:
                 raise ConfigError(_key("reference"), f"unknown reference {value!r}",
-                                  hint="use \"tms\" or a table {ppm, window_ppm, target_ppm}")
+                                  hint=f"use {', '.join(repr(n) for n in names)} or a table "
+                                       "{ppm, window_ppm, target_ppm}")
+            nuclei = names[value.lower()]
             value = {"ppm": 0.0}
         if not isinstance(value, Mapping):
             raise ConfigError(_key("reference"), f"expected \"tms\" or a table, got {value!r}")
@@ -313,6 +332,8 @@ class Pipeline:
         if checked["window_ppm"] == 0:
             raise ConfigError(_key("reference.window_ppm"), "must be > 0")
         checked["target_ppm"] = _number(value.get("target_ppm", checked["ppm"]), "reference.target_ppm")
+        if nuclei is not None:
+            checked["nuclei"] = nuclei
         return checked
 
     # -------------------------------------------------------------- running
@@ -390,7 +411,13 @@ class Pipeline:
             spectrum, _ = correct_baseline(spectrum, **self.baseline)
             notes.append(f"baseline: {self.baseline['method']}")
         shift = 0.0
-        if self.reference is not None:
+        wrong_nucleus = self.reference is not None and "nuclei" in self.reference \
+            and known_nucleus(spectrum.nucleus) not in self.reference["nuclei"]
+        if wrong_nucleus:
+            succeeded = False
+            notes.append(f"not referenced: the reference named in the config is the zero of the "
+                         f"{'/'.join(self.reference['nuclei'])} scale, and this spectrum is {spectrum.nucleus}")
+        elif self.reference is not None:
             try:
                 ref = reference(spectrum, self.reference["ppm"], self.reference["window_ppm"],
                                 self.reference["target_ppm"])

@@ -209,6 +209,7 @@ def fft(fid: Fid, first_point_scale: float = 0.5) -> Spectrum:
         source_path=fid.source_path,
         sha256=fid.sha256,
         header=header,
+        decoupler=fid.decoupler,
     )
 
 

@@ -220,9 +220,30 @@ _WORKER_MEASURE: Measurer | None = None  # set in the parent just before the wor
 def _measure_in_worker(path: Path):
     measurement, error = _measure_safely(_WORKER_MEASURE, path)
     if error is None:
-        return measurement, None
+        return _picklable(measurement), None
     # an exception's own pickling loses its fields: send them and rebuild it
     return None, (error.path, error.problem, error.line, getattr(error, "hint", None))
+
+
+def _picklable(measurement):
+    """A measurement sent back from a worker: its kept spectrum as plain fields (the
+    record's header is a read-only mapping, which does not pickle)."""
+    import dataclasses
+
+    value = getattr(measurement, "value", None)
+    spectrum = getattr(value, "spectrum", None)
+    if spectrum is None:
+        return measurement, None
+    fields = {f.name: getattr(spectrum, f.name) for f in dataclasses.fields(spectrum) if f.init}
+    fields["header"] = dict(fields.get("header") or {})
+    return replace(measurement, value=replace(value, spectrum=None)), (type(spectrum), fields)
+
+
+def _unpickled(measurement, spectrum):
+    if spectrum is None:
+        return measurement
+    kind, fields = spectrum
+    return replace(measurement, value=replace(measurement.value, spectrum=kind(**fields)))
 
 
 def _workers(n_files: int, parallel: bool) -> int:
@@ -255,6 +276,8 @@ def _measure_all(measure: Measurer, paths: list[Path], parallel: bool) -> list[t
                 if error is not None:
                     path, problem, line, hint = error
                     error = InputFileError(path, problem, line=line, hint=hint)
+                else:
+                    measurement = _unpickled(*measurement)
                 results.append((measurement, error))
     finally:
         _WORKER_MEASURE = None
@@ -391,6 +414,9 @@ class RunState:
         self.known = self.ledger.latest_stat()
         self._png: bytes | None = None
         self._drawn_at: float | None = None
+        #: measure the processing variants in worker processes (a batch run; a live
+        #: run's final pass measures them here)
+        self.parallel_assessment = False
 
     def close(self) -> None:
         self.ledger.close()
@@ -426,6 +452,41 @@ class RunState:
         except (KineticsError, ValueError, ArithmeticError) as error:
             self.outcome = FitOutcome(False, str(error), {"succeeded": False, "message": str(error)})
         self.ledger.record_refit(self.outcome.fit, len(self.table))
+        return self.outcome
+
+    def final_fit(self, processing_uncertainty: bool = True) -> FitOutcome | None:
+        """The run's final table and fit from scratch, then (``processing_uncertainty``)
+        the systematic term of k over neighbouring processing choices
+        (:mod:`kinetics.run.uncertainty`): the outcome's k then quotes the combined
+        interval, its fit dict carries ``processing_uncertainty`` and the warnings."""
+        outcome = self.refit(from_scratch=True)
+        if not processing_uncertainty or outcome is None or self.plan.config is None:
+            return outcome
+        if not (isinstance(self.plan.refit, RatesRefitter) and isinstance(self.source, SeriesState)
+                and isinstance(self.plan.measure, SeriesMeasurer)):
+            return outcome
+        from kinetics.run.uncertainty import assess_outcome
+        from kinetics.sensitivity import worker_count
+
+        measure = self.plan.measure
+        try:
+            reference = measure.reference
+            if reference is None and measure.reference_path is not None:
+                from kinetics import series
+
+                reference = series.make_reference(self.source.folder / measure.reference_path, self.plan.config)
+            with small_linear_algebra():
+                k, doc, warnings, text = assess_outcome(
+                    self.plan.config, self.plan.refit, self.source.measurements(), reference, self.table,
+                    outcome, workers=worker_count() if self.parallel_assessment else 1)
+        except (KineticsError, ValueError, ArithmeticError) as error:
+            log.warning("the processing uncertainty could not be assessed: %s", error)
+            k, doc, warnings, text = outcome.k, {"assessed": False, "reason": f"failed: {error}"}, [], None
+        fit = dict(outcome.fit)
+        if warnings:
+            fit["warnings"] = list(fit.get("warnings") or ()) + warnings
+        self.outcome = replace(outcome, k=k, fit=fit, processing=doc, report_text=text)
+        self.ledger.record_refit({**fit, "processing_uncertainty": doc}, len(self.table))
         return self.outcome
 
     def status(self, pending: int = 0, stop_reason: str | None = None):
@@ -474,7 +535,7 @@ def ready_files(spec: WatchSpec) -> list[ReadyFile]:
 
 
 def batch_run(plan: RunPlan | RunConfig | str | Path, out_dir: Path, *, parallel: bool = True,
-              outputs: bool = True, figures: bool = True) -> RunSummary:
+              outputs: bool = True, figures: bool = True, processing_uncertainty: bool = True) -> RunSummary:
     """A finished folder through the engine: ledger, table and fit from scratch, outputs.
 
     Parameters
@@ -489,6 +550,9 @@ def batch_run(plan: RunPlan | RunConfig | str | Path, out_dir: Path, *, parallel
         Write the output files (the ledger is always written).
     figures : bool
         Also draw ``series.png`` and ``index.html`` (a study's runs leave them out).
+    processing_uncertainty : bool
+        Assess k's systematic term over neighbouring processing choices
+        (:meth:`RunState.final_fit`).
     """
     if not isinstance(plan, RunPlan):
         plan = plan_from_config(plan, Path(out_dir) / LEDGER_NAME)
@@ -499,7 +563,8 @@ def batch_run(plan: RunPlan | RunConfig | str | Path, out_dir: Path, *, parallel
         state = RunState(plan, out_dir)
         try:
             state.take(ready_files(plan.spec), parallel=parallel)
-            outcome = state.refit(from_scratch=True)
+            state.parallel_assessment = parallel
+            outcome = state.final_fit(processing_uncertainty)
             if outputs:
                 state.write_outputs(stop_reason="batch run finished", final=True, figures=figures)
             return RunSummary("batch run finished", state.ledger.counts(), outcome, out_dir, state.table)

@@ -43,13 +43,42 @@ class RunOutcome:
     stop_reason: str
     temperature_c: float | None = None
     config: Any = field(default=None, repr=False, compare=False)  # the validated RunConfig
+    processing: dict | None = None  # the final fit's processing uncertainty (kinetics.run.uncertainty)
+    k_quoted: dict | None = None  # k as the run quotes it: ci95 combined, ci95_statistical the fit's
+    warnings: tuple[str, ...] = ()
+    processing_text: str | None = None
 
     def k(self) -> dict | None:
-        """The fitted rate constant as a parameter dict, or None."""
+        """The fitted rate constant as a parameter dict, or None.
+
+        ``ci95`` is the interval the run quotes: statistical and processing (systematic)
+        parts combined when the latter was assessed, with ``ci95_statistical`` the fit's own.
+        """
         if self.fit is None:
             return None
+        if self.k_quoted is not None:
+            return dict(self.k_quoted)
         name = next((n for n in self.fit.varying if n.startswith("k")), None)
         return None if name is None else self.fit.param(name).to_dict()
+
+    def breakdown(self) -> str | None:
+        """One line: the statistical and systematic parts of k's interval, or why not assessed."""
+        doc = self.processing
+        if not doc:
+            return None
+        if not doc.get("assessed"):
+            return doc.get("reason")
+        stat, sys_, value = doc["statistical"], doc["systematic"], doc.get("value")
+        lo, hi = stat["ci95"]
+        rel = (lambda x: f" ({100 * x / abs(value):.2g} %)") if value else (lambda x: "")
+        text = (f"statistical 95 %: {lo:.4g} .. {hi:.4g}; systematic (processing choices) "
+                f"sd {sys_['stderr']:.2g}{rel(sys_['stderr'])}")
+        largest = (doc.get("breakdown") or [None])[0]
+        if largest and largest.get("stderr") and sys_["stderr"] > 0:
+            text += f"; most from {largest['choice'].replace('_', ' ')} of {largest['target']}"
+        if doc.get("reason"):
+            text += f" ({doc['reason']})"
+        return text
 
 
 @dataclass(frozen=True)
@@ -73,7 +102,9 @@ class JobOutcome:
             "runs": [{"label": r.label, "temperature_c": r.temperature_c, "out_dir": str(r.out_dir),
                       "n_spectra": int(len(r.table)), "counts": r.counts, "stop_reason": r.stop_reason,
                       "k_per_s": r.k(), "converged": None if r.fit is None else bool(r.fit.converged),
-                      "message": None if r.fit is None else r.fit.message} for r in self.runs],
+                      "message": None if r.fit is None else r.fit.message,
+                      "processing_uncertainty": r.processing, "warnings": list(r.warnings)}
+                     for r in self.runs],
             "notes": list(self.notes),
         }
         if self.study is not None:
@@ -122,6 +153,11 @@ def run_sections(run: RunOutcome, config, with_spectra: bool, comparison: bool) 
                 log.warning("model comparison skipped for %s: %s", run.label, error)
         sections.append(rp.fit_section(run.fit, heading=f"Rate law: {run.label}", comparison=ranking,
                                        name=f"fit_{_slug(run.label)}"))
+    if run.processing:
+        text = run.processing_text or run.breakdown() or ""
+        sections.append(rp.Section(f"Processing uncertainty: {run.label}", (rp.TextBlock(
+            "k under neighbouring processing choices (fit baseline order +-1, windows +-30 %, grouping)",
+            (text,), preformatted=True),)))
     return sections
 
 
@@ -144,6 +180,8 @@ def summary_of(runs: list[RunOutcome], study=None) -> dict[str, str]:
         if k and k.get("value") is not None and k.get("ci95"):
             lo, hi = k["ci95"]
             summary[f"k, {run.label}"] = f"{k['value']:.4g} {k['unit']} (95 %: {lo:.4g} to {hi:.4g})"
+            if run.breakdown():
+                summary[f"k, {run.label}"] += f"; {run.breakdown()}"
     if study is not None and study.temperature is not None:
         data = study.temperature.to_dict()
         for key, label in (("ea_kj_per_mol", "Ea"), ("dh_kj_per_mol", "dH‡"), ("ds_j_per_mol_k", "dS‡")):
@@ -180,8 +218,13 @@ def outcome_of(label: str, config_path: Path, out_dir: Path, summary, temperatur
     table = summary.table if summary.table is not None else pd.DataFrame()
     outcome = summary.outcome
     fit = None if outcome is None else outcome.state
+    if outcome is None or fit is None:
+        return RunOutcome(label, out_dir, config_path, table, fit, dict(summary.counts), summary.stop_reason,
+                          temperature_c, config)
     return RunOutcome(label, out_dir, config_path, table, fit, dict(summary.counts), summary.stop_reason,
-                      temperature_c, config)
+                      temperature_c, config, processing=outcome.processing,
+                      k_quoted=outcome.k if outcome.processing and outcome.processing.get("assessed") else None,
+                      warnings=tuple(outcome.warnings), processing_text=outcome.report_text)
 
 
 def run_single(config_path: str | Path, out_dir: str | Path, report: bool = True) -> JobOutcome:
@@ -203,9 +246,18 @@ def run_single(config_path: str | Path, out_dir: str | Path, report: bool = True
             title=f"Reaction kinetics: {config_path.stem}",
             provenance=rp.Provenance(config_text=config_path.read_text(encoding="utf-8"),
                                      input_files=inputs_of([run])),
-            summary=summary_of([run]))
+            summary=summary_of([run]), warnings=run_warnings([run]))
         html, pdf = files.html, files.pdf
     return JobOutcome("run", out_dir, html, pdf, runs=(run,))
+
+
+def run_warnings(runs: list[RunOutcome]) -> list[str]:
+    """Every run's warnings (each once), prefixed with the run's label when there are several."""
+    out = []
+    for run in runs:
+        for warning in run.warnings:
+            out.append(warning if len(runs) == 1 else f"{run.label}: {warning}")
+    return list(dict.fromkeys(out))
 
 
 # ---------------------------------------------------------------- study

@@ -280,6 +280,8 @@ def write_table_and_fit(state, table: pd.DataFrame, status: LiveStatus, stop_rea
         "time_to_target_s": status.time_to_target_s,
         "quarantined": [{"path": p, "reason": r} for p, r in status.quarantined],
         "fit": state.outcome.fit if state.outcome else None,
+        "processing_uncertainty": state.outcome.processing if state.outcome else None,
+        "warnings": state.outcome.warnings if state.outcome else [],
     }
     write_atomic(state.out_dir / "fit.json", dumps(document) + "\n")
 

@@ -38,6 +38,12 @@ class FitOutcome:
         ``{"time_s": [...], signal: [...]}`` of the fitted model for the plot.
     state : object
         What a warm start needs (the FitResult); never serialised.
+    processing : dict or None
+        The final fit's processing uncertainty (:mod:`kinetics.run.uncertainty`): the
+        statistical, systematic and combined parts, or why it was not assessed.  None on
+        live turns.
+    report_text : str or None
+        Its text table for the report.
     """
 
     succeeded: bool
@@ -48,6 +54,13 @@ class FitOutcome:
     time_to_target_s: dict | None = None
     curve: dict | None = None
     state: Any = None
+    processing: dict | None = None
+    report_text: str | None = None
+
+    @property
+    def warnings(self) -> list[str]:
+        """The fit's warnings in words (guardrails, table findings, processing choices)."""
+        return list(self.fit.get("warnings") or ())
 
 
 class Refitter(Protocol):
@@ -118,7 +131,13 @@ class RatesRefitter:
             sigma = candidate if np.all(np.isfinite(candidate) & (candidate > 0)) else None
         values = rows[list(self.columns)].to_numpy(float).T
         names = list(self.species) if self.mechanism else list(self.columns)
-        return rows, from_arrays(rows["time_s"].to_numpy(float), values, sigma=sigma, columns=names)
+        labels = table.loc[rows.index, "file"].astype(str).tolist() if "file" in table else None
+        return rows, from_arrays(rows["time_s"].to_numpy(float), values, sigma=sigma, columns=names,
+                                 row_labels=labels, notes=table_notes(table, rows.index, labels))
+
+    def fit_table(self, table: pd.DataFrame):
+        """The series table's fit from scratch (a FitResult), as the final fit makes it."""
+        return self.fit_from_scratch(self._data(table)[1])
 
     def fit_from_scratch(self, data):
         from kinetics.rates.fit import fit_law, fit_mechanism
@@ -182,6 +201,32 @@ class RatesRefitter:
                           time_to_target_s=forecast, curve=curve, state=result)
 
 
+def table_notes(table: pd.DataFrame, index=None, labels=None) -> list:
+    """Findings about a series table to carry into its fit's warnings (Guardrails).
+
+    The mass balance (``mass_balance_flag``, :func:`kinetics.rates.diagnostics.mass_balance_note`
+    naming the files) and the table's own warnings (``table.attrs['warnings']``: per-spectrum
+    findings summarised once per run, saturation, series-wide fit problems).
+    """
+    import numpy as np
+
+    from kinetics.rates import diagnostics as dg
+
+    index = table.index if index is None else index
+    notes = []
+    if "mass_balance_flag" in table and len(index):
+        flags = table.loc[index, "mass_balance_flag"].to_numpy(bool)
+        labels = labels if labels is not None else [str(i) for i in index]
+        ratio = None
+        if "mass_balance_deviation_sigma" in table:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                ratio = (table.loc[index, "mass_balance_deviation"].to_numpy(float)
+                         / table.loc[index, "mass_balance_deviation_sigma"].to_numpy(float))[flags]
+        notes += dg.mass_balance_note(flags, labels, ratio, table.attrs.get("mass_balance_sigmas"))
+    notes += dg.from_messages(table.attrs.get("warnings", ()), "spectra")
+    return notes
+
+
 def refitter_from_config(fit: FitConfig, target_conversion: float | None = None) -> RatesRefitter:
     """The validated ``[fit]`` record of a run config as a :class:`RatesRefitter`."""
     if fit.mechanism:
@@ -191,4 +236,4 @@ def refitter_from_config(fit: FitConfig, target_conversion: float | None = None)
     return RatesRefitter(fit.columns, fit.model, fit.observed, target_conversion, sigma_suffix="_sigma")
 
 
-__all__ = ["FitOutcome", "RatesRefitter", "Refitter", "refitter_from_config"]
+__all__ = ["FitOutcome", "RatesRefitter", "Refitter", "refitter_from_config", "table_notes"]

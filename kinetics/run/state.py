@@ -32,6 +32,17 @@ from kinetics.store import FileMeasurement, FileRow, Ledger, SignalRow
 
 log = logging.getLogger(__name__)
 
+#: processed spectra kept in memory for the final processing-uncertainty pass, up to this
+#: many bytes; past it they are dropped and that pass reads the files again (a long live
+#: run's memory stays flat)
+KEEP_SPECTRA_BYTES = 256 * 2 ** 20
+
+
+def _spectrum_bytes(spectrum) -> int:
+    if spectrum is None:
+        return 0
+    return sum(a.nbytes for a in (spectrum.ppm, spectrum.real, spectrum.imag) if a is not None)
+
 
 # ---------------------------------------------------------------- JSON adapters
 def record_of(measurement: series.FileMeasurement, folder: Path, reference_path: str) -> dict:
@@ -140,6 +151,8 @@ class SeriesState:
         self._table: pd.DataFrame | None = None
         self._changed = True
         self._held = False  # the table's fit groups are at held line shapes
+        self._spectra_bytes = 0
+        self.keep_spectra = True  # False once past KEEP_SPECTRA_BYTES
 
     def __len__(self) -> int:
         return len(self._measurements)
@@ -160,10 +173,26 @@ class SeriesState:
                 value = measurement.value
                 if value is None:  # a measurer that keeps only the record
                     value = measurement_of(dict(measurement.record), self.folder)
+                value = self._keep(value)
                 self._measurements[row.path] = value
             else:
                 self._measurements.pop(row.path, None)
             self._changed = True
+
+    def _keep(self, value: series.FileMeasurement) -> series.FileMeasurement:
+        """Keep the measurement's spectrum while within :data:`KEEP_SPECTRA_BYTES`."""
+        if value.spectrum is None:
+            return value
+        if self.keep_spectra:
+            self._spectra_bytes += _spectrum_bytes(value.spectrum)
+            if self._spectra_bytes <= KEEP_SPECTRA_BYTES:
+                return value
+            self.keep_spectra = False
+            log.info("past %d MB of spectra in memory: the final pass reads the files again",
+                     KEEP_SPECTRA_BYTES // 2 ** 20)
+            self._measurements = {path: dataclasses.replace(m, spectrum=None)
+                                  for path, m in self._measurements.items()}
+        return dataclasses.replace(value, spectrum=None)
 
     def table(self, final: bool = False, refresh: bool = True) -> pd.DataFrame:
         """The series table from memory.

@@ -303,7 +303,8 @@ def _deconvolve(ppm, data, components, observe_mhz: float, baseline_order: int,
         if f"c{i}_gauss_hz" in values:
             gauss[comp.name] = (values[f"c{i}_gauss_hz"], theta_err.get(f"c{i}_gauss_hz", np.nan))
     if not success:
-        log.warning("deconvolution did not converge cleanly: %s", message)
+        # the caller reports it once per run in words naming the signals (DeconvolutionResult.message)
+        log.debug("deconvolution did not converge cleanly: %s", message)
     return DeconvolutionResult(
         names=tuple(c.name for c in components), areas=coef[:, :k].copy(), area_stderr=area_err,
         center_ppm=centres, width_hz=widths, coupling_hz=couplings, residual_sigma=math.sqrt(sigma2),

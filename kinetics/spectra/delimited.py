@@ -15,7 +15,7 @@ Layout
 * ``# key: value`` (or ``# key = value``) lines anywhere before the data carry metadata.
   Keys read: ``observe_mhz`` (required: a Spectrum needs its observe frequency),
   ``nucleus`` (default ``1H``, with a warning), ``acquired`` (ISO 8601; no zone means
-  UTC, with a warning), ``duration_s``, ``n_scans``, ``title``.  Every key lands in
+  UTC, with a warning), ``duration_s``, ``n_scans``, ``title``, ``decoupler`` (e.g. ``1H``).  Every key lands in
   ``Spectrum.header`` as written.  Other ``#`` lines are comments.
 * An optional column-name row (``ppm``/``shift_ppm``, ``real``/``intensity``,
   ``imag``/``imaginary``); without one the columns are ppm, real and (optional) imag.
@@ -249,6 +249,7 @@ def parse_delimited(loaded: LoadedText) -> Spectrum:
             observe_mhz=observe_mhz, acquired_utc=_acquired(path, meta), duration_s=duration_s,
             n_scans=None if n_scans is None else _whole(path, meta, n_scans),
             source_path=path, sha256=loaded.sha256, header=header,
+            decoupler=meta.get("decoupler", ("", 0))[0].strip() or None,
         )
     except ValueError as error:
         raise InputFileError(path, f"invalid spectrum: {error}", hint="check the header lines") from None
@@ -282,6 +283,8 @@ def csv_text(spectrum: Spectrum) -> str:
         lines.append(f"# duration_s: {spectrum.duration_s!r}")
     if spectrum.n_scans is not None:
         lines.append(f"# n_scans: {spectrum.n_scans}")
+    if spectrum.decoupler:
+        lines.append(f"# decoupler: {spectrum.decoupler}")
     columns = [spectrum.ppm, spectrum.real] + ([spectrum.imag] if spectrum.imag is not None else [])
     lines.append(",".join(["ppm", "real", "imag"][: len(columns)]))
     # repr gives the shortest text that reads back to the same float.

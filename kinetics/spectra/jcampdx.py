@@ -16,6 +16,8 @@ version 6.0 for NMR pages: Woollam et al.).  Supported here:
 * abscissa units HZ, PPM or SECONDS.  The ppm axis of a Hz spectrum comes from
   ``##.SHIFT REFERENCE= (kind, compound, point number, shift)``, else from
   ``##.OBSERVE FREQUENCY`` (ppm = Hz / MHz);
+* ``##.OBSERVE NUCLEUS`` -> ``nucleus`` (``^19F`` -> ``19F``); ``##.DECOUPLER`` (the
+  heteronuclear decoupling, as written) -> ``decoupler``, None when the label is absent;
 * ``##LONG DATE`` (or the old ``##DATE``/``##TIME`` pair) -> ``acquired_utc``;
   ``##.AVERAGES`` / ``##NUMBER OF SCANS`` -> ``n_scans``;
 * compound files (a ``##DATA TYPE= LINK`` block around others): the one spectrum (or
@@ -359,6 +361,13 @@ def _nucleus(path: str, block: _Block) -> str:
         log.warning("%s: no ##.OBSERVE NUCLEUS=; assuming 1H", path)
         return "1H"
     return record.value.replace("^", "").replace(" ", "").strip()
+
+
+def _decoupler(block: _Block) -> str | None:
+    """The file's ``##.DECOUPLER=`` as written (e.g. ``^1H``, ``1H``), or None when absent."""
+    record = block.first(".DECOUPLER")
+    value = "" if record is None else record.value.strip()
+    return value or None
 
 
 def _observe_mhz(path: str, block: _Block) -> float | None:
@@ -737,6 +746,7 @@ def parse_jcampdx(loaded: LoadedText) -> Spectrum | Fid:
         source_path=path,
         sha256=loaded.sha256,
         header=_header_mapping(block),
+        decoupler=_decoupler(block),
     )
     try:
         if is_fid:
@@ -840,6 +850,8 @@ def _common_header(record, data_type: str, data_class: str, shift_reference: str
         f"##.OBSERVE FREQUENCY= {_f(record.observe_mhz)}",
         f"##.OBSERVE NUCLEUS= ^{record.nucleus}",
     ]
+    if record.decoupler:
+        lines.append(f"##.DECOUPLER= {record.decoupler}")
     solvent = record.header.get(".SOLVENT NAME")
     if solvent:
         lines.append(f"##.SOLVENT NAME= {solvent}")

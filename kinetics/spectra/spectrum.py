@@ -91,6 +91,9 @@ class Spectrum:
         SHA-256 of that file's bytes.
     header : Mapping[str, str]
         Standard header labels as read (e.g. JCAMP-DX ``TITLE``, ``.SOLVENT NAME``).
+    decoupler : str or None
+        Heteronuclear decoupling as the file states it (JCAMP-DX ``##.DECOUPLER=``, e.g.
+        ``"1H"``); None when the file does not say (not "no decoupling").
     """
 
     ppm: np.ndarray
@@ -104,6 +107,7 @@ class Spectrum:
     source_path: str | None = None
     sha256: str | None = None
     header: Mapping[str, str] = field(default_factory=dict)
+    decoupler: str | None = None
 
     def __post_init__(self) -> None:
         ppm = _frozen_array(self.ppm, float, "ppm")
@@ -190,7 +194,7 @@ class Fid:
     group_delay_points : float
         Digital-filter delay in points (0 when the FID starts at its maximum); used by
         processing to remove the rising edge and the first-order phase it causes.
-    acquired_utc, duration_s, n_scans, source_path, sha256, header
+    acquired_utc, duration_s, n_scans, source_path, sha256, header, decoupler
         As for :class:`Spectrum`.
     """
 
@@ -206,6 +210,7 @@ class Fid:
     source_path: str | None = None
     sha256: str | None = None
     header: Mapping[str, str] = field(default_factory=dict)
+    decoupler: str | None = None
 
     def __post_init__(self) -> None:
         data = _frozen_array(self.data, complex, "data")
