@@ -254,6 +254,10 @@ def _add_run(sub) -> None:
     p.add_argument("--out", type=Path, help="output folder (default: <config>.out beside the config)")
     p.add_argument("--no-report", action="store_true", help="skip the HTML/PDF report")
     p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help='campaigns: "local" (a local Dask cluster), "none" (this process) or tcp://host:8786')
+    p.add_argument("--workers", type=int, metavar="N", help="campaigns: worker processes of the local cluster "
+                   "(1: in this process)")
     p.set_defaults(func=_cmd_run)
 
 
@@ -261,6 +265,19 @@ def _cmd_run(args) -> int:
     from kinetics.run import job as workflow
 
     out = args.out or args.config.with_suffix(".out")
+    if workflow.is_campaign_file(args.config):
+        if args.workers is not None and args.workers < 1:
+            from kinetics.errors import ConfigError
+
+            raise ConfigError("--workers", f"{args.workers} workers", hint="give 1 or more")
+        if not getattr(args, "verbose", False):  # Dask logs its cluster's life at INFO (workers too)
+            os.environ.setdefault("DASK_LOGGING__DISTRIBUTED", "warning")
+        campaign = workflow.run_campaign_config(args.config, out, scheduler=args.scheduler, workers=args.workers)
+        if args.json:
+            _print_json(campaign.to_dict())
+        else:
+            print(campaign.text())
+        return 0 if campaign.success else 1
     if workflow.is_study_file(args.config):
         job = workflow.run_study_config(args.config, out, report=not args.no_report)
     else:

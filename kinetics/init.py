@@ -41,7 +41,12 @@ from kinetics.spectra.spectrum import Spectrum
 
 @dataclass(frozen=True)
 class Draft:
-    """What ``kinetics init`` found and the config text it proposes."""
+    """What ``kinetics init`` found and the config text it proposes.
+
+    ``spectrum``, ``peaks`` and ``windows`` are on the scale the config is drafted on: the
+    file's axis, or, when a named 19F/31P reference is proposed in force, its scale (the
+    file's axis moved so the reference line sits at its tabulated shift).
+    """
 
     source: Path
     config_path: Path
@@ -353,7 +358,7 @@ def _nucleus_notes(spectrum: Spectrum) -> list[str]:
     """Comment lines on the nucleus: its scale's zero, the solvent background, the decoupling."""
     zero = scale_reference(spectrum.nucleus)
     notes = []
-    if zero is not None:
+    if zero is not None and not zero.added:  # (TMS at 0 ppm for 1H and 13C goes without saying)
         notes.append(f"# {zero.nucleus} scale: 0 ppm = {zero.description} ({zero.name}); IUPAC convention, "
                      "from memory.")
     if not has_solvent_background(spectrum.nucleus):

@@ -37,6 +37,7 @@ __all__ = [
     "format_uncertain",
     "format_interval",
     "format_value",
+    "format_estimate",
     "format_duration",
     "format_clock",
     "superscript",
@@ -201,6 +202,31 @@ def format_interval(low: float, high: float, unit: str = "", digits: int | None 
     if r.exponent:
         return f"({lo} to {hi}){_times_ten(r.exponent)}{tail}"
     return f"{lo} to {hi}{tail}"
+
+
+def format_estimate(entry: Mapping, unit: str | None = None) -> str:
+    """One result in the project's ``{"value", "stderr", "ci95", "unit"}`` shape, for a summary line.
+
+    ``{"value": 1.4934e-4, "stderr": 8.0e-7, "ci95": [1.4772e-4, 1.5098e-4], "unit": "s^-1"}``
+    -> ``"(1.493 ± 0.008) × 10⁻⁴ s⁻¹ (95 %: (1.477 to 1.510) × 10⁻⁴ s⁻¹)"``; the interval
+    is given in the value's power of ten and unit.
+    """
+    value, stderr = entry.get("value"), entry.get("stderr")
+    unit = entry.get("unit", "") if unit is None else unit
+    text = format_uncertain(value, stderr, unit)
+    interval = entry.get("ci95")
+    if interval is None or value is None or not all(_finite(x) for x in interval):
+        return text
+    if _finite(stderr) and float(stderr) > 0:
+        exponent = round_pair(value, stderr).exponent
+        half = abs(float(interval[1]) - float(interval[0])) / 2
+        r = round_pair((float(interval[0]) + float(interval[1])) / 2, half, exponent=exponent)
+        scale = 10.0 ** exponent
+        ends = [_signed(f"{float(x) / scale:.{r.decimals}f}") for x in interval]
+        shown_unit = unit_text(unit)
+        span = f"({ends[0]} to {ends[1]}){_times_ten(exponent)}" if exponent else f"{ends[0]} to {ends[1]}"
+        return f"{text} (95 %: {span}{' ' + shown_unit if shown_unit else ''})"
+    return f"{text} (95 %: {format_interval(interval[0], interval[1], unit)})"
 
 
 def format_value(value, significant: int = 4) -> str:

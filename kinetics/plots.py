@@ -36,6 +36,7 @@ __all__ = [
     "arrhenius_figure",
     "eyring_figure",
     "global_fit_figure",
+    "live_figure",
     "png_bytes",
     "svg_bytes",
     "pdf_bytes",
@@ -104,18 +105,20 @@ class SeriesStyle:
     marker: str
 
 
-# The first three series (the usual reactant, product and standard) sit far apart in
-# lightness (relative luminance ~0.18, 0.44, 0.66: dark ink, mid orange, light mustard),
-# so they differ in greyscale print even by tone; every series also has its own line
-# style and marker, so none relies on hue or tone alone.
+# The project's palette.  The first three series (the usual reactant, product and standard)
+# sit far apart in lightness (relative luminance ~0.18, 0.44, 0.66: dark ink, mid orange,
+# light mustard), so they differ in greyscale print even by tone.  All seven stay at least
+# ~20 CIELAB units apart under simulated deuteranopia, protanopia and tritanopia as well as
+# normal vision (checked in tests/test_plots.py).  Every series also has its own line style
+# and marker, so none relies on hue or tone alone.
 SERIES_STYLES: tuple[SeriesStyle, ...] = (
     SeriesStyle("#1f2f56", "-", "o"),            # deep ink blue
     SeriesStyle("#b8641a", "--", "s"),           # burnt orange
     SeriesStyle("#d9a52b", (0, (2, 1)), "P"),    # mustard
-    SeriesStyle("#2c7a6b", "-.", "^"),           # sea green
-    SeriesStyle("#8a2f48", ":", "D"),            # wine
-    SeriesStyle("#6f6a5e", (0, (6, 2, 1, 2, 1, 2)), "v"),  # warm grey
-    SeriesStyle("#4b3b7a", (0, (8, 3)), "X"),    # indigo
+    SeriesStyle("#56a5dc", "-.", "^"),           # sky blue
+    SeriesStyle("#8a3f9e", ":", "D"),            # plum
+    SeriesStyle("#4e3324", (0, (6, 2, 1, 2, 1, 2)), "v"),  # dark umber
+    SeriesStyle("#9aab8a", (0, (8, 3)), "X"),    # sage
 )
 
 _BAND_ALPHA = 0.22
@@ -397,6 +400,37 @@ def concentration_figure(
     if title:
         figure.suptitle(_plain(title), fontsize=9)
     return figure
+
+
+def live_figure(table, signals: Sequence[str], curve: Mapping | None = None, *, sigma_suffix: str = "_stderr",
+                band: Mapping | None = None, title: str | None = None, start_label: str | None = None,
+                concentration_unit: str = "mol L⁻¹", width: str | float = "double") -> Figure:
+    """The live view's figure: the series so far with the current fit, in the report's style.
+
+    ``table`` needs ``time_s`` and a column per name in ``signals`` (``<name><sigma_suffix>``
+    optional, drawn as error bars); ``curve`` is ``{"time_s": [...], name: [...]}`` of the
+    fitted model and ``band`` ``{name: (low, high)}`` on the same times.  The residual panel
+    appears once a curve is given.  This is :func:`concentration_figure` over a table.
+    """
+    present = [name for name in signals if name in getattr(table, "columns", ())]
+    if not len(table) or not present:
+        figure = _new_figure(figure_width_in(width), 2.0)
+        ax = figure.add_subplot(1, 1, 1)
+        ax.text(0.5, 0.5, "waiting for the first spectrum", ha="center", va="center", transform=ax.transAxes)
+        ax.set_axis_off()
+        return figure
+    time_s = np.asarray(table["time_s"], float)
+    observed = {name: np.asarray(table[name], float) for name in present}
+    sigma = {name: np.asarray(table[f"{name}{sigma_suffix}"], float) for name in present
+             if f"{name}{sigma_suffix}" in table}
+    curve_t = curves = None
+    if curve:
+        curve_t = np.asarray(curve.get("time_s", []), float)
+        curves = {name: values for name, values in curve.items()
+                  if name != "time_s" and name in observed and len(values) == len(curve_t)}
+    return concentration_figure(time_s, observed, sigma=sigma or None, curve_time_s=curve_t if curves else None,
+                                curve=curves or None, band=band, concentration_unit=concentration_unit,
+                                title=title, width=width, start_label=start_label)
 
 
 # ---------------------------------------------------------------- temperature

@@ -7,11 +7,14 @@ table, some paragraphs); :func:`write_report` writes
     opens offline: CSS inline, figures inline as base64 PNG, no scripts and no external
     links; every piece of user text is HTML-escaped.
 ``report.pdf``
-    the same figures (vector) and the tables, provenance and cautions as text pages
-    (matplotlib ``PdfPages``, so no browser or external tool is needed).
+    typeset A4 (reportlab, pure Python from the package index): a summary page (key
+    results, warnings, the safety caution), then figures with numbered captions (vector,
+    placed with pypdf) and real tables; fonts are embedded TrueType subsets (no Type 3).
 ``tables/<name>.csv`` (and ``.parquet`` when pyarrow is importable)
-    each table exactly as handed in, plus the provenance tables.
-``figures/<name>.png``, ``config.toml``, ``provenance.json``
+    each table exactly as handed in (machine column names that carry units, full
+    precision), plus the provenance tables.  People read the tables with "quantity /
+    unit" headings and rounded numbers (:mod:`kinetics.numbers`).
+``figures/<name>.svg`` and ``figures/<name>.png`` (300 dpi), ``config.toml``, ``provenance.json``
 
 Every file is written to a temporary name in the same folder and renamed into place, so a
 reader never sees half a report.  Provenance (config text, package versions, input-file
@@ -287,13 +290,21 @@ def spectra_section(spectra, *, windows=None, time_s=None, heading: str = "Spect
     return Section(heading, (FigureBlock("Stacked spectra", figure, caption, name=f"{heading}_spectra"),))
 
 
+def _sentence(text) -> str:
+    """A message as a sentence of a caption: capital first letter, full stop."""
+    text = str(text).strip()
+    text = text[:1].upper() + text[1:]
+    return text if text.endswith((".", "!", "?")) else text + "."
+
+
 def _species_label(column: str) -> str:
     """``ester_concentration`` -> ``ester`` (the legend names the species, the axis the quantity)."""
     return column[: -len("_concentration")] if column.endswith("_concentration") and len(column) > 14 else column
 
 
 def fit_section(fit, *, heading: str = "Concentrations and fitted rate law", comparison=None,
-                concentration_unit: str = "mol L⁻¹", n_curve: int = 300, name: str = "fit") -> Section:
+                concentration_unit: str = "mol L⁻¹", n_curve: int = 300, name: str = "fit",
+                species: Mapping[str, Any] | None = None) -> Section:
     """Courses with fit, 95 % band and residuals, parameter and statistics tables.
 
     Parameters
@@ -305,6 +316,12 @@ def fit_section(fit, *, heading: str = "Concentrations and fitted rate law", com
         Candidate rate laws ranked by AICc (its ``verdict`` is shown when present).
     name : str
         Stem of the table and figure files.
+    species : mapping name -> values or (values, sigma), optional
+        Further measured series on the fit's time points (products, the standard, a mass
+        balance), each array shape (n,), drawn as points with their own marker and error bars
+        (no curve: the rate law did not fit them).  E.g. from the series table:
+        ``{"alcohol": (table["alcohol_concentration"], table["alcohol_concentration_sigma"]),
+        "mass balance": ester + alcohol}``.
     """
     time_s = np.asarray(fit.time_s, float)
     observed = np.atleast_2d(np.asarray(fit.observed, float))
@@ -314,9 +331,20 @@ def fit_section(fit, *, heading: str = "Concentrations and fitted rate law", com
     curve_t = np.linspace(float(time_s.min()), float(time_s.max()), n_curve)
     curve, low, high = (np.atleast_2d(np.asarray(a, float)) for a in fit.band(curve_t))
     columns = [_species_label(c) for c in columns]
+    observed_map = dict(zip(columns, observed))
+    sigma_map = {} if sigma_array is None else dict(zip(columns, np.atleast_2d(sigma_array)))
+    for label, values in (species or {}).items():
+        if isinstance(values, tuple) and len(values) == 2:
+            values, errors = values
+            if errors is not None:
+                sigma_map[_species_label(str(label))] = np.asarray(errors, float)
+        values = np.asarray(values, float)
+        if values.shape != time_s.shape:
+            raise ValueError(f"species {label!r}: {values.shape[0] if values.ndim else 0} values for "
+                             f"{time_s.size} time points")
+        observed_map[_species_label(str(label))] = values
     figure = plots.concentration_figure(
-        time_s, dict(zip(columns, observed)),
-        sigma=None if sigma_array is None else dict(zip(columns, np.atleast_2d(sigma_array))),
+        time_s, observed_map, sigma=sigma_map or None,
         curve_time_s=curve_t, curve=dict(zip(columns, curve)),
         band={c: (lo, hi) for c, lo, hi in zip(columns, low, high) if np.all(np.isfinite(lo))},
         fitted=dict(zip(columns, fitted)), concentration_unit=concentration_unit)
@@ -386,10 +414,11 @@ def temperature_section(result, *, heading: str = "Temperature dependence", n_li
     display["parameter"] = [numbers.column_heading(p).split(" / ")[0] for p in display["parameter"]]
     t_ref = summary.get("t_ref_kelvin")
     notes = [f"ΔG‡ at {t_ref:.2f} K." if isinstance(t_ref, (int, float)) else ""]
-    notes += [str(w) for w in summary.get("warnings", []) if str(w).strip()]
+    notes += [_sentence(w) for w in summary.get("warnings", []) if str(w).strip()]
     blocks = (
         FigureBlock("Arrhenius plot", arrhenius, band_note, name=f"{name}_arrhenius"),
-        FigureBlock("Eyring plot", eyring, band_note + " Transmission coefficient taken as 1.",
+        FigureBlock("Eyring plot", eyring, band_note.replace("ln k of each run", "ln(k/T) of each run")
+                    + " Transmission coefficient taken as 1.",
                     name=f"{name}_eyring"),
         TableBlock("Activation parameters", parameters, name=f"{name}_parameters",
                    caption=" ".join(n for n in notes if n) + " Value ± standard uncertainty; 95 % interval.",
@@ -444,6 +473,7 @@ h2 { color: var(--ink); font-size: 1.3rem; margin: .3rem 0 .6rem; }
 h3 { font-size: 1.05rem; margin: 1.2rem 0 .4rem; }
 figure { margin: .6rem 0 1.2rem; background: #fff; border: 1px solid var(--line); padding: .6rem; }
 figure img { display: block; max-width: 100%; height: auto; margin: 0 auto; }
+div.narrow { display: inline-block; vertical-align: top; width: calc(50% - .6rem); margin-right: .5rem; }
 figcaption { color: var(--muted); font-size: .85rem; margin-top: .4rem; }
 .table-wrap { overflow-x: auto; margin: .4rem 0 1rem; }
 table { border-collapse: collapse; font-size: .85rem; background: #fff; }
@@ -494,8 +524,13 @@ def _block_html(block, figure_png: Mapping[int, bytes], table_names: Mapping[int
         caption = f"<figcaption>{_e(block.caption)}</figcaption>" if block.caption else ""
         # The alt text says what the figure shows for screen readers and when images are off.
         alt = f"{block.heading}. {block.caption}" if block.caption else block.heading
-        return (f"<h3>{_e(block.heading)}</h3><figure><img src=\"data:image/png;base64,{data}\" "
-                f"alt=\"{_e(alt)}\">{caption}</figure>")
+        # shown at 1.6 times its print size (a single-column figure ~510 px, double ~1060 px),
+        # never wider than the page; single-column figures sit side by side
+        width_px = int(round(block.figure.get_size_inches()[0] * 96 * 1.6))
+        narrow = block.figure.get_size_inches()[0] * 2.54 < 12.0
+        inner = (f"<h3>{_e(block.heading)}</h3><figure><img src=\"data:image/png;base64,{data}\" "
+                 f"style=\"width:{width_px}px\" alt=\"{_e(alt)}\">{caption}</figure>")
+        return f'<div class="narrow">{inner}</div>' if narrow else inner
     if isinstance(block, TableBlock):
         caption = f'<p class="caption">{_e(block.caption)}</p>' if block.caption else ""
         return (f"<h3>{_e(block.heading)}</h3>{caption}{_html_table(_display_frame(block), block.digits)}"
@@ -598,6 +633,7 @@ def _styles() -> dict:
         "cell": ParagraphStyle("cell", parent=base, fontSize=7.2, leading=8.8, spaceAfter=0),
         "head": ParagraphStyle("head", parent=base, fontName=_FONT_BOLD, fontSize=7.2, leading=8.8, spaceAfter=0),
         "mono": ParagraphStyle("mono", parent=base, fontName=_FONT_MONO, fontSize=6.3, leading=7.6, spaceAfter=4),
+        "config": ParagraphStyle("config", parent=base, fontName=_FONT_MONO, fontSize=5.8, leading=6.9, spaceAfter=0),
         "caution": ParagraphStyle("caution", parent=base, fontSize=8, leading=10.2, leftIndent=8, bulletIndent=0),
     }
 
@@ -768,16 +804,12 @@ def _pdf_story(title, run_utc, summary, sections, config_text, packages, inputs,
                                "tables/provenance_inputs.csv and in report.html.", styles["small"]))
     story.append(Paragraph("Configuration", styles["h2"]))
     config_lines = (config_text or "(none recorded)").splitlines()
-    if 40 < len(config_lines) <= 180:
-        # two columns, split at the blank line nearest the middle, so a long config takes half the pages
-        blanks = [i for i, line in enumerate(config_lines) if not line.strip()] or [len(config_lines) // 2]
-        cut = min(blanks, key=lambda i: abs(i - len(config_lines) / 2))
-        halves = [Preformatted("\n".join(part), styles["mono"], maxLineLength=72)
-                  for part in (config_lines[:cut], config_lines[cut + 1:])]
-        columns = Table([halves], colWidths=[width_pt / 2] * 2, hAlign="LEFT")
-        columns.setStyle(TableStyle([("FONT", (0, 0), (-1, -1), _FONT, 7.2), ("VALIGN", (0, 0), (-1, -1), "TOP"),
-                                     ("LEFTPADDING", (0, 0), (-1, -1), 0)]))
-        story.append(columns)
+    if len(config_lines) > 40:
+        # two balanced columns (split across pages as needed), so a long config takes half the pages
+        from reportlab.platypus.flowables import BalancedColumns
+
+        story.append(BalancedColumns([Preformatted("\n".join(config_lines), styles["config"], maxLineLength=68)],
+                                     nCols=2, spaceBefore=0, spaceAfter=0, innerPadding=8))
     else:
         story.append(Preformatted("\n".join(config_lines), styles["mono"], maxLineLength=150))
     return story

@@ -63,17 +63,23 @@ signal (or group) and the choice that moves k most, and by how much.
 
 Decoupling: :func:`assess` takes the validated :class:`~kinetics.config.RunConfig`,
 a ``quantify(config) -> table`` callable and a ``fit(table) -> KEstimate`` callable.
-:class:`SpectraQuantifier` is the adapter over processed, aligned spectra (measure
-each spectrum under the variant config, then the series table, as
-``kinetics.series.measure_spectrum`` / ``table_from_measurements`` do);
-:func:`fitter_for` fits the run config's ``[fit]`` rate law.  :func:`assess_files` does
-all of it from the config's folder (reading and processing every file once).
+:class:`SpectraQuantifier` is the adapter over processed, aligned spectra: each spectrum
+is measured under the variant config (:func:`kinetics.series.measure_spectrum`, against
+:func:`kinetics.series.reference_from_spectrum` of the variant) and the series table
+formed (:func:`kinetics.series.series_table`); a fit group whose definitions a variant
+leaves alone keeps the fit already made on the same spectra (``fits``), so a window
+variant refits one group, not all.  :func:`fitter_for` fits the run config's ``[fit]``
+rate law.  :func:`assess_files` does all of it from the config's folder (reading and
+processing every file once, :func:`processed_run`).  ``assess(..., workers=n)``
+measures the variants in n forked processes (same results).
 
-A run engine, after its final fit (``table``, ``fit_result``), over the files it counted::
+The run engine does this after the final fit of every run (batch, a study's runs, a live
+run's final pass) over the spectra it processed and kept in memory
+(:mod:`kinetics.run.uncertainty`; no file is read twice)::
 
-    spectra, measurements, reference = sensitivity.processed_run(config, paths=files)
-    result = sensitivity.assess(config, sensitivity.SpectraQuantifier(spectra, measurements, reference),
-                                fit=lambda t: sensitivity.estimate_from_fit(refit_from_scratch(t)),
+    quantify = sensitivity.SpectraQuantifier(spectra, measurements, reference_spectrum, fits=run_fits)
+    result = sensitivity.assess(config, quantify,
+                                fit=lambda t: sensitivity.estimate_from_fit(refitter.fit_table(t)),
                                 base_table=table, base_estimate=sensitivity.estimate_from_fit(fit_result))
     result.combined_ci95, result.to_dict(), result.report(), result.warnings
 """
@@ -297,7 +303,7 @@ def neighbour_variants(config) -> list[Variant]:
                 add("baseline_order", "all fit windows", f"fit_baseline_order {order} -> {other}",
                     integration=replace(config.integration, fit_baseline_order=other))
     units: list[tuple[str, list[int]]] = [(s.name, [i]) for i, s in enumerate(signals) if s.method != "fit"]
-    units += [(name if len(idx) == 1 else "+".join(signals[i].name for i in idx), idx) for name, idx in groups.items()]
+    units += [("+".join(signals[i].name for i in idx), idx) for idx in groups.values()]  # signals, not groups
     for target, indices in units:
         for scale in WINDOW_SCALES:
             add("window", target, f"window x{scale:g}", _scaled_windows(signals, indices, scale))
@@ -307,7 +313,8 @@ def neighbour_variants(config) -> list[Variant]:
             sa, sb = _span(signals, groups[names[a]]), _span(signals, groups[names[b]])
             gap = max(sb[0] - sa[1], sa[0] - sb[1])
             narrower = min(sa[1] - sa[0], sb[1] - sb[0])
-            between = [s for s in signals if s.method != "fit" and _overlap(s.window_ppm, (min(sa[1], sb[1]), max(sa[0], sb[0])))]
+            gap_ppm = (min(sa[1], sb[1]), max(sa[0], sb[0]))
+            between = [s for s in signals if s.method != "fit" and _overlap(s.window_ppm, gap_ppm)]
             if gap < 0.5 * narrower and not between:
                 merged = f"{names[a]}+{names[b]}"
                 new = tuple(replace(s, group=merged) if s.method == "fit" and s.fit_group in (names[a], names[b]) else s
@@ -377,8 +384,8 @@ def assess(config, quantify: Callable, fit: Callable, variants: Sequence[Variant
             outcomes.append(VariantOutcome(v.choice, v.target, v.setting, math.nan, math.nan, error))
     family_sd, u_eff, u_sys, combined = combine(base_estimate, outcomes, noise_share)
     warnings = _warnings(base_estimate, family_sd, u_eff, outcomes)
-    for text in warnings:
-        log.warning(text)
+    for text in warnings:  # the caller shows them (a run's warnings); logged for the record
+        log.info(text)
     return SensitivityResult(base_estimate, tuple(outcomes), MappingProxyType(family_sd), u_eff, u_sys,
                              combined, tuple(warnings))
 
@@ -521,14 +528,21 @@ class SpectraQuantifier:
     reference_spectrum : Spectrum, optional
         The alignment reference (the run's first processed spectrum); default
         ``spectra[0]``.
+    fits : mapping, optional
+        The run's own series-wide fits from scratch on these spectra, keyed by
+        :func:`kinetics.series.global_fit_key` (reused by variants that keep a group).
     """
 
-    def __init__(self, spectra, measurements, reference_spectrum=None):
+    def __init__(self, spectra, measurements, reference_spectrum=None, fits=None):
         if len(spectra) != len(measurements):
             raise ValueError("one spectrum per measurement is needed")
         self.spectra = tuple(spectra)
         self.measurements = tuple(measurements)
         self.reference_spectrum = reference_spectrum if reference_spectrum is not None else self.spectra[0]
+        #: series-wide fits from scratch already made on these spectra
+        #: (:func:`kinetics.series.global_fit_key` -> fit): a variant that leaves a fit
+        #: group's definitions alone reuses its fit (the same data give the same fit)
+        self.fits = dict(fits or {})
 
     def __call__(self, config):
         from kinetics import series as se
@@ -539,7 +553,7 @@ class SpectraQuantifier:
         for spectrum, base in zip(self.spectra, self.measurements):
             noise, results, windows = se.measure_spectrum(spectrum, config, reference)
             measured.append(replace(base, signals=results, fit_windows=windows, noise_sigma=noise.sigma))
-        return se.table_from_measurements(measured, config)
+        return se.series_table(measured, config, cache=self.fits)[0]
 
 
 def reference_from_spectrum(spectrum, config):

@@ -5,10 +5,18 @@ takes folders, keeps the ledger and the in-memory state):
 
 * per file: ``reference, m = measure_first(path, config)`` for the run's first file (read
   once), then ``measure_file(path, config, reference)`` for each later one (a frozen
-  :class:`FileMeasurement`, safe to store);
+  :class:`FileMeasurement`, safe to store; its ``spectrum``, the processed aligned
+  spectrum, is kept in memory only); the steps are public for records already read:
+  :func:`process_record`, :func:`align`, :func:`measure_record`,
+  :func:`reference_from_spectrum`, :func:`measure_spectrum`;
 * per table: :func:`series_table` (``table_from_measurements``) whenever a table is
   wanted, warm-started from the previous table's global fits during a live run;
 * :func:`run_series` is a whole batch run through the engine, kept in memory.
+
+Per-spectrum findings (a signal at the edge of its window, a fit that failed or ended
+at a limit) are flags on each :class:`SignalResult`, summarised once per run in the
+table's warnings (:func:`spectrum_messages`: "signal X ... in 12 of 36 spectra (files):
+what to do"), which the run's fit carries into its warnings.
 
 Per file: read -> process (``[processing]``, the pipeline built once at config load) ->
 align to the reference spectrum (``[alignment]``) -> noise estimate -> region integrals
@@ -31,7 +39,6 @@ fractions in mode 'relative').  Integrals are ppm x intensity.
 from __future__ import annotations
 
 import logging
-import math
 import os
 import re
 from dataclasses import dataclass, field
@@ -569,8 +576,15 @@ def _apply_held_shapes(measurements, config: RunConfig, integral, sigma, shift, 
         notes.append(f"{group}: areas at the line shapes of the last series-wide fit (live turn)")
 
 
+def global_fit_key(members, config: RunConfig) -> tuple:
+    """What a fit group's series-wide fit from scratch depends on besides the spectra: its
+    members' definitions (windows, line shapes), the fit baseline order, the solvent lines."""
+    return (tuple(members), config.integration.fit_baseline_order, solvent_lines_ppm(config))
+
+
 def _apply_global_fits(measurements, config: RunConfig, integral, sigma, shift, flags, notes,
-                       start: Mapping | None = None, warnings: list | None = None) -> dict:
+                       start: Mapping | None = None, warnings: list | None = None,
+                       cache: dict | None = None) -> dict:
     """Series-wide deconvolution of every fit group (in place); returns group -> result.
 
     ``start`` (group -> a previous turn's DeconvolutionResult) warm-starts a live turn;
@@ -587,10 +601,15 @@ def _apply_global_fits(measurements, config: RunConfig, integral, sigma, shift, 
         shared_axis = np.allclose(ppm, ppm[0], rtol=0, atol=1e-12)
         previous = None if start is None else start.get(group)
         components = _warm_components(members, previous) if previous is not None else sg.components_for(members)
+        key = global_fit_key(members, config) if cache is not None and previous is None else None
         try:
-            fit = sg.deconvolve(ppm[0] if shared_axis else ppm, values, components,
-                                measurements[0].observe_mhz, config.integration.fit_baseline_order,
-                                solvent_ppm=solvent_lines_ppm(config))
+            fit = cache.get(key) if key is not None else None
+            if fit is None:
+                fit = sg.deconvolve(ppm[0] if shared_axis else ppm, values, components,
+                                    measurements[0].observe_mhz, config.integration.fit_baseline_order,
+                                    solvent_ppm=solvent_lines_ppm(config))
+                if key is not None:
+                    cache[key] = fit
         except FitError as error:
             notes.append(f"global fit of {group} failed: {error}")
             (notes if warnings is None else warnings).append(
@@ -757,7 +776,8 @@ def table_from_measurements(measurements: Sequence[FileMeasurement], config: Run
 
 
 def series_table(measurements: Sequence[FileMeasurement], config: RunConfig,
-                 start: Mapping | None = None, hold: bool = False) -> tuple[pd.DataFrame, dict]:
+                 start: Mapping | None = None, hold: bool = False,
+                 cache: dict | None = None) -> tuple[pd.DataFrame, dict]:
     """:func:`table_from_measurements` plus the global fits (group -> DeconvolutionResult).
 
     ``start`` warm-starts the global deconvolution from a previous table's fits (a live
@@ -765,6 +785,9 @@ def series_table(measurements: Sequence[FileMeasurement], config: RunConfig,
     a ``start`` covering every group) keeps the line shapes of ``start`` and solves only
     the areas (:func:`_apply_held_shapes`; a live turn between two refreshes).  With
     ``integration.global_fit`` off, the per-spectrum deconvolutions stand.
+    ``cache`` (:func:`global_fit_key` -> fit; for tables of the *same* spectra measured
+    under different signal definitions, :mod:`kinetics.sensitivity`) reuses a group's fit
+    from scratch whose definitions did not change, and keeps the new ones.
     """
     if not measurements:
         raise FitError("no measurements to tabulate")
@@ -792,7 +815,7 @@ def series_table(measurements: Sequence[FileMeasurement], config: RunConfig,
             fits = dict(start)
             _apply_held_shapes(ms, config, integral, sigma, shift, flags, notes, fits)
         else:
-            fits = _apply_global_fits(ms, config, integral, sigma, shift, flags, notes, start, warnings)
+            fits = _apply_global_fits(ms, config, integral, sigma, shift, flags, notes, start, warnings, cache)
     _saturation(config, integral, sigma, warnings)
     messages = spectrum_messages(config, flags, [x.file for x in ms])
     warnings.extend(messages)

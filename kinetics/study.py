@@ -37,7 +37,7 @@ validated by :func:`kinetics.config.load_study_config` into a frozen
 
 Outputs written to the output folder: ``runs.csv`` (per-run fits), ``arrhenius.csv``
 (per-run Arrhenius/Eyring table), ``comparison.csv`` (two-step vs global),
-``study.json`` (everything), ``arrhenius.png``, ``eyring.png`` and ``global_fit.png``.
+``study.json`` (everything), ``arrhenius``, ``eyring`` and ``global_fit`` figures (SVG and 300-dpi PNG).
 """
 
 from __future__ import annotations
@@ -49,6 +49,7 @@ from typing import Any
 
 import numpy as np
 
+from kinetics import plots
 from kinetics import temperature as temp
 from kinetics.config import StudyConfig, StudyRunConfig, is_study_config, load_study_config  # noqa: F401
 from kinetics.errors import ConfigError, InputFileError, KineticsError
@@ -324,104 +325,17 @@ def _write_outputs(result: StudyResult, model: temp.GlobalModel) -> list[Path]:
         pd.DataFrame(result.global_result.comparison()).to_csv(path, index=False)
         files.append(path)
     if result.temperature is not None:
-        files.append(arrhenius_plot(result.temperature, result.global_result, out / "arrhenius.png", result.name))
-        files.append(eyring_plot(result.temperature, out / "eyring.png", result.name))
+        g = result.global_result if (result.global_result is not None and result.global_result.success) else None
+        files += plots.save_figure(plots.arrhenius_figure(result.temperature, global_result=g, title=result.name or None),
+                                   out / "arrhenius").values()
+        files += plots.save_figure(plots.eyring_figure(result.temperature, global_result=g, title=result.name or None),
+                                   out / "eyring").values()
     if result.global_result is not None and result.global_result.success:
-        files.append(global_fit_plot(result.runs, result.global_result, model, out / "global_fit.png", result.name))
+        files += plots.save_figure(plots.global_fit_figure(list(result.runs), result.global_result, model,
+                                                           title=result.name or None), out / "global_fit").values()
     json_path = out / "study.json"
     files.append(json_path)
     payload = result.to_dict()
     payload["files"] = [str(p) for p in files]
     json_path.write_text(dumps(payload) + "\n")
     return files
-
-
-# ---------------------------------------------------------------- plots
-# Greyscale-readable: black points, a dark solid line for the two-step fit, a light grey
-# band, a dashed mid-grey line for the global fit; markers differ by run in the raw-data plot.
-_INK = "#1b1b1b"
-_LINE = "#3a4a6b"
-_BAND = "#c9ced8"
-_GLOBAL = "#8a5a2b"
-_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*")
-
-
-def _figure():
-    # a bare Figure (no pyplot): no global figure state, safe in threads and servers
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=(6.0, 4.2), dpi=120)
-    return fig, fig.add_subplot(1, 1, 1)
-
-
-def _line_plot(result: temp.TemperatureResult, line: temp.LineFit, y, ylabel: str, title: str, path: Path,
-               global_curve=None) -> Path:
-    fig, ax = _figure()
-    t = np.asarray(result.temperature_kelvin)
-    x = 1.0 / t
-    sigma = result._sigma_lnk() if result.k_stderr is not None else None
-    grid = np.linspace(x.min() - 0.05 * np.ptp(x), x.max() + 0.05 * np.ptp(x), 200)
-    fit, se = line.predict(grid, result.basis)
-    q = temp.quantile95(result.basis, line.dof)
-    ax.fill_between(1e3 * grid, fit - q * se, fit + q * se, color=_BAND, lw=0, label="95 % band of the line")
-    ax.plot(1e3 * grid, fit, color=_LINE, lw=1.6, label="weighted fit (two-step)")
-    if global_curve is not None:
-        ax.plot(1e3 * grid, global_curve(grid), color=_GLOBAL, lw=1.4, ls="--", label="global fit")
-    ax.errorbar(1e3 * x, y, yerr=sigma, fmt="o", color=_INK, ms=5, capsize=3, label="runs (± stderr)")
-    ax.set_xlabel("1000 / T (K$^{-1}$)")
-    ax.set_ylabel(ylabel)
-    ax.set_title(title, fontsize=10)
-    ax.legend(fontsize=8, frameon=False)
-    secondary = ax.secondary_xaxis("top", functions=(lambda v: 1e3 / np.maximum(v, 1e-9), lambda v: 1e3 / np.maximum(v, 1e-9)))
-    secondary.set_xlabel("T (K)")
-    fig.tight_layout()
-    fig.savefig(path)
-    return path
-
-
-def arrhenius_plot(result: temp.TemperatureResult, global_result: temp.GlobalFitResult | None, path: Path,
-                   name: str = "") -> Path:
-    """ln k against 1000/T with the weighted line, its 95 % band and the global fit line."""
-    curve = None
-    if global_result is not None and global_result.success:
-        curve = lambda x: np.log(global_result.k_at(1.0 / x))  # noqa: E731
-    ea = result.ea()
-    title = f"{name}\nArrhenius: Ea = {ea.value:.1f} ± {ea.stderr:.1f} kJ/mol".lstrip("\n")
-    return _line_plot(result, result.arrhenius, np.log(result.k), f"ln(k / {result.k_unit})", title, path, curve)
-
-
-def eyring_plot(result: temp.TemperatureResult, path: Path, name: str = "") -> Path:
-    """ln(k/T) against 1000/T with the weighted line and its 95 % band."""
-    dh, ds = result.dh(), result.ds()
-    title = (f"{name}\nEyring: dH‡ = {dh.value:.1f} ± {dh.stderr:.1f} kJ/mol, "
-             f"dS‡ = {ds.value:.0f} ± {ds.stderr:.0f} J/(mol K)").lstrip("\n")
-    y = np.log(np.asarray(result.k) / np.asarray(result.temperature_kelvin))
-    return _line_plot(result, result.eyring, y, f"ln(k / T) (k in {result.k_unit}, T in K)", title, path)
-
-
-def global_fit_plot(runs, global_result: temp.GlobalFitResult, model: temp.GlobalModel, path: Path,
-                    name: str = "") -> Path:
-    """Every run's concentration data with the globally fitted curves."""
-    fig, ax = _figure()
-    shades = np.linspace(0.0, 0.6, max(len(runs), 1))
-    for i, (run, params) in enumerate(zip(runs, global_result.nuisance)):
-        grey = str(shades[i])
-        marker = _MARKERS[i % len(_MARKERS)]
-        ax.plot(run.time_s, run.concentration_mol_per_l, marker, color=grey, ms=3.5, mfc="none",
-                label=f"{run.label} ({run.temperature_kelvin:.1f} K)")
-        grid = np.linspace(0.0, run.time_s.max(), 300)
-        k = float(global_result.k_at(run.temperature_kelvin))
-        ax.plot(grid, model.function(grid, k, **params), color=grey, lw=1.2)
-    ax.set_xlabel("time (s)")
-    ax.set_ylabel("concentration (mol/L)")
-    # Runs at different temperatures differ in time scale by orders of magnitude; a
-    # symmetric-log axis (linear near zero) keeps every run readable on one figure.
-    positive = np.concatenate([r.time_s[r.time_s > 0] for r in runs])
-    if positive.size:
-        ax.set_xscale("symlog", linthresh=float(positive.min()))
-    ax.set_title(f"{name}\nglobal fit: Ea = {global_result.ea.value:.1f} ± {global_result.ea.stderr:.1f} kJ/mol"
-                 .lstrip("\n"), fontsize=10)
-    ax.legend(fontsize=7, frameon=False)
-    fig.tight_layout()
-    fig.savefig(path)
-    return path

@@ -97,13 +97,17 @@ def test_each_file_read_once_pipeline_built_once_no_overwritten_fits(tmp_path, m
     assert summary.counts["processed"] == demo.SPECTRA_PER_RUN
     assert sorted(reads) == sorted(set(reads)) and len(reads) == demo.SPECTRA_PER_RUN  # the first one too
     assert builds == []  # built when the config was loaded
-    # one series-wide fit per group, none per spectrum: for the run, then for each processing
-    # variant of the final pass (which re-measures the spectra kept in memory: no file read again)
-    from kinetics import sensitivity
+    # one series-wide fit per group, none per spectrum: for the run, then for each group a
+    # processing variant of the final pass changes (it re-measures the spectra kept in memory:
+    # no file read again; a group a variant leaves alone keeps the run's own fit)
+    from kinetics import sensitivity, series
 
     variants = sensitivity.neighbour_variants(config)
     assert len(variants) >= 10
-    assert len(fits) == len(config.fit_groups) + sum(len(v.config.fit_groups) for v in variants)
+    run_keys = {series.global_fit_key(m, config) for m in config.fit_groups.values()}
+    variant_keys = {series.global_fit_key(m, v.config) for v in variants for m in v.config.fit_groups.values()}
+    assert len(variant_keys - run_keys) >= len(variants)  # each variant changes at least one group
+    assert len(fits) == len(config.fit_groups) + len(variant_keys - run_keys)
     assert summary.outcome.processing["assessed"] and summary.outcome.processing["spectra_read_again"] == 0
 
 
@@ -207,3 +211,40 @@ def test_shipped_run_configs_name_what_they_fit(name):
     config = run_config_from_dict(raw, ROOT / "configs" / name)
     assert config.unnamed == ()
     assert config.pipeline is not None
+
+
+def test_processing_variants_fitted_warm_equal_fits_from_scratch(tmp_path):
+    # the final pass fits each processing variant from the run's optimum, value only; a fit
+    # from scratch of the same variant table must give the same k (a least-squares optimum
+    # does not depend on where the search starts, for a first-order law's single minimum)
+    from kinetics import sensitivity as sens
+    from kinetics.run import uncertainty
+    from kinetics.run.engine import RunState, ready_files
+
+    config = load_run_config(ROOT / "configs" / "demo_run.toml")
+    summary = batch_run(plan_from_config(config), tmp_path / "out", parallel=False, outputs=False)
+    warm = {(v["choice"], v["target"], v["setting"]): v["k"] for v in summary.outcome.processing["variants"]}
+    plan = plan_from_config(config)
+    state = RunState(plan, None)
+    state.take(ready_files(plan.spec))
+    spectra, measurements, reference, reread = uncertainty.run_spectra(
+        config, state.source.measurements(), plan.measure.reference)
+    assert reread == 0
+    quantify = sens.SpectraQuantifier(spectra, measurements, reference)
+    variants = sens.neighbour_variants(config)
+    assert len(warm) == len(variants)
+    for variant in variants:
+        scratch = sens.estimate_from_fit(plan.refit.fit_table(quantify(variant.config))).value
+        assert warm[(variant.choice, variant.target, variant.setting)] == pytest.approx(scratch, rel=1e-6)
+    state.close()
+
+
+def test_a_config_without_processing_choices_says_the_systematic_term_is_zero(tmp_path, monkeypatch):
+    from kinetics import sensitivity
+
+    monkeypatch.setattr(sensitivity, "neighbour_variants", lambda config: [])
+    config = load_run_config(ROOT / "configs" / "demo_run.toml")
+    summary = batch_run(plan_from_config(config), tmp_path / "out", parallel=False, outputs=False)
+    doc = summary.outcome.processing
+    assert doc["assessed"] and doc["systematic"]["stderr"] == 0 and "no processing choice applies" in doc["reason"]
+    assert summary.outcome.k["ci95"] == summary.outcome.k["ci95_statistical"] == doc["ci95"]

@@ -135,3 +135,11 @@ def test_headings_have_units_and_csv_names_stay():
     assert list(shown.columns) == ["run", "k ± u / 10⁻³ s⁻¹", "95 % interval"]
     assert list(shown.iloc[:, 1]) == ["0.1493 ± 0.0008", "1.465 ± 0.008"]
     assert list(frame.columns) == ["label", "k", "k_stderr", "ci95_low", "ci95_high"]  # untouched
+
+
+def test_summary_line_from_the_project_shape():
+    # the demo's 25 °C rate constant as fit.to_dict() gives it (issue 12's worked example)
+    entry = {"value": 1.4934289e-4, "stderr": 8.003e-7, "ci95": [1.4771538e-4, 1.5097822e-4], "unit": "s^-1"}
+    assert numbers.format_estimate(entry) == "(1.493 ± 0.008) × 10⁻⁴ s⁻¹ (95 %: (1.477 to 1.510) × 10⁻⁴ s⁻¹)"
+    entry = {"value": -119.34, "stderr": 0.34, "ci95": [-120.8, -117.9], "unit": "J/(mol K)"}
+    assert numbers.format_estimate(entry) == "−119.34 ± 0.34 J mol⁻¹ K⁻¹ (95 %: −120.8 to −117.9 J mol⁻¹ K⁻¹)"

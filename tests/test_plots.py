@@ -184,3 +184,127 @@ def test_png_output(tmp_path):
     path = plots.save_png(figure, tmp_path / "sub" / "arrhenius.png")
     assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert [p.name for p in path.parent.iterdir()] == ["arrhenius.png"]  # no temporary left
+
+
+# ---------------------------------------------------------------- shared figures for report, study, live view
+def _study():
+    """Simulated first-order runs at four temperatures (the test sets Ea = 80 kJ/mol)."""
+    from kinetics.temperature import KineticRun, analyse_temperatures, global_fit
+
+    rng = np.random.default_rng(5)
+    t_k, k, _ = _temperature_data()
+    runs = []
+    for temperature, rate in zip(t_k, k):
+        time_s = np.linspace(0.0, 3.0 / rate, 25)
+        conc = 0.4 * np.exp(-rate * time_s) + rng.normal(0.0, 0.002, time_s.size)
+        runs.append(KineticRun(f"{temperature - 273.15:g} °C", float(temperature), time_s, conc,
+                               np.full(time_s.size, 0.002)))
+    result = global_fit(runs, "first", profile=False)
+    return runs, result.two_step or analyse_temperatures(t_k, k, 0.04 * k), result
+
+
+def test_arrhenius_and_eyring_from_results_with_the_global_line():
+    runs, two_step, global_result = _study()
+    figure = plots.arrhenius_figure(two_step, global_result=global_result)
+    _check_labelled(figure)
+    ax = figure.axes[0]
+    np.testing.assert_allclose(ax.containers[0].lines[0].get_ydata(), np.log(two_step.k))
+    dashed = [line for line in ax.lines if line.get_label() == "global fit"]
+    assert len(dashed) == 1 and dashed[0].get_linestyle() == "--"
+    # the dashed line is ln k(T) of the global fit at the plotted temperatures
+    x = np.asarray(dashed[0].get_xdata())
+    np.testing.assert_allclose(dashed[0].get_ydata(), np.log(global_result.k_at(1000.0 / x)), rtol=1e-10)
+    box = [t.get_text() for t in ax.texts if t.get_text().startswith("Ea = ")]
+    assert box and "±" in box[0] and "kJ mol⁻¹" in box[0]
+    eyring = plots.eyring_figure(two_step, global_result=global_result)
+    text = [t.get_text() for t in eyring.axes[0].texts if "ΔS‡" in t.get_text()][0]
+    assert "± 0 " not in text + " "  # the defect of issue 12: "dS‡ = -119 ± 0"
+
+
+def test_global_fit_figure_panels_and_residuals():
+    runs, _, global_result = _study()
+    figure = plots.global_fit_figure(runs, global_result)
+    labels = [label for ax in figure.axes for label in (ax.get_xlabel(), ax.get_ylabel()) if label]
+    assert all(_UNIT_LABEL.fullmatch(label) for label in labels), labels
+    assert figure.axes[0].get_ylabel() and figure.axes[1].get_ylabel()  # the shared y axes, named once
+    assert len(figure.axes) == 2 * len(runs)  # a course and a residual panel per run
+    from kinetics.temperature import resolve_model
+
+    model = resolve_model("first")
+    for i, run in enumerate(runs):
+        ax_res = figure.axes[2 * i + 1]
+        scale = {"s": 1.0, "min": 60.0, "h": 3600.0}[ax_res.get_xlabel().split(" / ")[1]]
+        k = float(global_result.k_at(run.temperature_kelvin))
+        expected = (run.concentration_mol_per_l - model.function(run.time_s, k, **global_result.nuisance[i])) * 1e3
+        points = ax_res.containers[0].lines[0]
+        np.testing.assert_allclose(points.get_xdata(), run.time_s / scale)
+        np.testing.assert_allclose(points.get_ydata(), expected, rtol=1e-9, atol=1e-12)
+
+
+def test_print_sizes_and_vector_output_without_type3_fonts():
+    t_k, k, k_se = _temperature_data()
+    single = plots.arrhenius_figure(t_k, k, k_se)
+    double = plots.concentration_figure([0, 60, 120], {"A": [1.0, 0.6, 0.3]})
+    assert single.get_size_inches()[0] * 2.54 == pytest.approx(8.5)
+    assert double.get_size_inches()[0] * 2.54 == pytest.approx(17.5)
+    pdf = plots.pdf_bytes(single)
+    assert pdf.startswith(b"%PDF") and b"/Type3" not in pdf and b"/FontFile2" in pdf  # TrueType, embedded
+    assert plots.svg_bytes(single).lstrip().startswith(b"<?xml")
+    assert matplotlib_rc_unchanged()
+
+
+def matplotlib_rc_unchanged() -> bool:
+    import matplotlib
+
+    return matplotlib.rcParams["pdf.fonttype"] == matplotlib.rcParamsDefault["pdf.fonttype"]
+
+
+def test_live_figure_from_a_series_table():
+    import pandas as pd
+
+    time_s = np.linspace(0.0, 1800.0, 10)
+    table = pd.DataFrame({"time_s": time_s, "ester": np.exp(-1e-3 * time_s), "ester_stderr": np.full(10, 0.01)})
+    curve_t = time_s  # the curve at the measured times: residuals are exactly zero
+    figure = plots.live_figure(table, ["ester", "absent"], {"time_s": curve_t, "ester": np.exp(-1e-3 * curve_t)})
+    _check_labelled(figure)
+    main, residual = figure.axes
+    assert residual.get_xlabel() == "time / min"  # raw seconds no more (issue 12)
+    np.testing.assert_allclose(residual.containers[0].lines[0].get_ydata(), 0.0, atol=1e-12)
+    assert main.get_legend() is not None
+    empty = plots.live_figure(table.iloc[:0], ["ester"])
+    assert plots.png_bytes(empty).startswith(b"\x89PNG")
+
+
+def test_palette_stays_distinct_for_colour_blind_readers():
+    # Colour-vision deficiency simulated with the Machado, Oliveira & Fernandes (2009)
+    # matrices for severity 1.0 (values from memory), applied in linear sRGB; distances are
+    # CIE 1976 ΔE*ab (D65).  ~10 is "clearly different" at a glance (common practice); the
+    # palette keeps every pair above 15 under normal, deutan, protan and tritan vision.
+    from matplotlib.colors import to_rgb
+
+    vision = {
+        "normal": np.eye(3),
+        "deuteranopia": [[0.367322, 0.860646, -0.227968], [0.280085, 0.672501, 0.047413],
+                         [-0.011820, 0.042940, 0.968881]],
+        "protanopia": [[0.152286, 1.052583, -0.204868], [0.114503, 0.786281, 0.099216],
+                       [-0.003882, -0.048116, 1.051998]],
+        "tritanopia": [[1.255528, -0.076749, -0.178779], [-0.078411, 0.930809, 0.147602],
+                       [0.004733, 0.691367, 0.303900]],
+    }
+
+    def linear(c):
+        c = np.asarray(c)
+        return np.where(c <= 0.04045, c / 12.92, ((c + 0.055) / 1.055) ** 2.4)
+
+    def lab(rgb_linear):  # sRGB -> XYZ (D65) -> CIELAB
+        xyz = np.array([[0.4124, 0.3576, 0.1805], [0.2126, 0.7152, 0.0722], [0.0193, 0.1192, 0.9505]]) @ rgb_linear
+        t = xyz / np.array([0.95047, 1.0, 1.08883])
+        f = np.where(t > 0.008856, np.cbrt(t), 7.787 * t + 16 / 116)
+        return np.array([116 * f[1] - 16, 500 * (f[0] - f[1]), 200 * (f[1] - f[2])])
+
+    colours = [to_rgb(s.colour) for s in plots.SERIES_STYLES]
+    for name, matrix in vision.items():
+        points = [lab(np.clip(np.asarray(matrix) @ linear(c), 0, 1)) for c in colours]
+        closest = min(np.linalg.norm(points[i] - points[j])
+                      for i in range(len(points)) for j in range(i + 1, len(points)))
+        assert closest > 15, (name, closest)

@@ -248,3 +248,39 @@ def test_dollar_signs_in_user_text_do_not_break_the_pdf(tmp_path):
     shown = " ".join(p.extract_text() for p in PdfReader(files.pdf).pages)
     assert shown.count(r"$\frac$") >= 4  # title, summary, headings and text, printed as written
     assert report._e(text) in files.html.read_text(encoding="utf-8")
+
+
+def test_fit_section_draws_every_species_and_says_how_many_spectra(tmp_path):
+    # simulated first order A -> P (truth set here): reactant fitted, product and mass balance drawn too
+    from kinetics.rates.fit import fit_arrays
+
+    time_s = np.linspace(0.0, 3600.0, 20)
+    a = 0.4 * np.exp(-8e-4 * time_s)
+    fit = fit_arrays(time_s, a + np.random.default_rng(2).normal(0, 0.002, time_s.size), "first")
+    section = report.fit_section(fit, species={"P": (0.4 - a, np.full(20, 0.002)), "mass balance": np.full(20, 0.4)})
+    main = section.blocks[0].figure.axes[0]
+    assert len(main.containers) == 3  # reactant, product, mass balance, each with its own marker
+    assert len({c.lines[0].get_marker() for c in main.containers}) == 3
+    assert "Half-life" in section.blocks[0].caption and " min" in section.blocks[0].caption
+    text = [b for b in section.blocks if isinstance(b, report.TextBlock)][0].paragraphs[0]
+    assert "<arrays>" not in text  # issue 12: "data <arrays>" in fit reports
+    ppm = np.linspace(5.0, 0.0, 200)
+    picked = report.spectra_section([(ppm, np.exp(-((ppm - 2) / 0.05) ** 2))] * 12, total=36)
+    assert picked.blocks[0].caption.startswith("12 of 36 spectra")
+    alone = report.spectra_section([(ppm, np.exp(-((ppm - 2) / 0.05) ** 2))] * 12)
+    assert alone.blocks[0].caption.startswith("12 spectra,")  # never "12 of 12"
+
+
+def test_temperature_section_caption_and_headings():
+    from kinetics.temperature import analyse_temperatures
+
+    t_k = np.array([298.15, 308.15, 318.15, 328.15])
+    k = 1.0e11 * np.exp(-80_000.0 / (8.314462618 * t_k))  # Ea = 80 kJ/mol set here
+    k *= np.exp(np.random.default_rng(4).normal(0.0, 0.02, k.size))  # scatter as runs have
+    section = report.temperature_section(analyse_temperatures(t_k, k, 0.03 * k))
+    table = [b for b in section.blocks if isinstance(b, report.TableBlock) and b.name.endswith("parameters")][0]
+    assert table.caption.startswith("ΔG‡ at 298.15 K. ") and "K;" not in table.caption  # issue 12: "dG‡ at 298.15 K;"
+    shown = report._display_frame(table)
+    assert list(shown["parameter"])[:1] == ["Ea"] and "ea_kj_per_mol" in set(table.frame["parameter"])
+    runs = [b for b in section.blocks if isinstance(b, report.TableBlock) and b.name.endswith("runs")][0]
+    assert "T / K" in report._display_frame(runs).columns

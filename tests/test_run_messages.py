@@ -58,3 +58,17 @@ def test_demo_run_has_no_processing_warning_and_summarises_in_json(tmp_path):
     lo, hi = summary.outcome.k["ci95"]
     assert lo <= truth <= hi
     assert summary.outcome.k["ci95_statistical"] == doc["statistical"]["ci95"]
+
+
+def test_kinetics_run_json_and_summary_carry_the_breakdown(tmp_path):
+    from kinetics.cli import _job_text
+    from kinetics.run.job import run_single
+
+    job = run_single(ROOT / "configs" / "demo_run.toml", tmp_path / "out", report=False)
+    run = job.to_dict()["runs"][0]
+    pu = run["processing_uncertainty"]
+    assert {"statistical", "systematic", "ci95", "breakdown"} <= set(pu)
+    assert run["k_per_s"]["ci95"] == pu["ci95"] and run["k_per_s"]["ci95_statistical"] == pu["statistical"]["ci95"]
+    assert isinstance(run["warnings"], list)
+    text = _job_text(job)
+    assert "statistical 95 %" in text and "systematic (processing choices)" in text

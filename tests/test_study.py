@@ -51,7 +51,8 @@ def test_example_study_runs_and_writes_everything(example, tmp_path):
     assert result.success, result.message
     names = {p.name for p in result.files}
     assert names == {"runs.csv", "arrhenius.csv", "comparison.csv", "study.json",
-                     "arrhenius.png", "eyring.png", "global_fit.png"}
+                     "arrhenius.png", "eyring.png", "global_fit.png",
+                     "arrhenius.svg", "eyring.svg", "global_fit.svg"}
     for path in result.files:
         assert path.exists() and path.stat().st_size > 0
     data = json.loads((out / "study.json").read_text())

@@ -256,7 +256,9 @@ def watch_command(args) -> dict:
             "out_dir": str(summary.out_dir),
             "k": None if outcome is None else outcome.k,
             "conversion": None if outcome is None else outcome.conversion,
-            "fit": None if outcome is None else outcome.fit}
+            "fit": None if outcome is None else outcome.fit,
+            "processing_uncertainty": None if outcome is None else outcome.processing,
+            "warnings": [] if outcome is None else outcome.warnings}
 
 
 __all__ = ["LiveOptions", "run_live", "target_reached", "watch_command"]

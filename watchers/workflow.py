@@ -18,7 +18,7 @@ from kinetics import report as rp
 from kinetics.errors import InputFileError
 from kinetics.run.job import (STACKED_TRACES, JobOutcome, RunOutcome, inputs_of,  # noqa: F401
                               is_study_file, outcome_of, run_sections, run_single,
-                              run_study_config, study_sections, summary_of)
+                              run_study_config, run_warnings, study_sections, summary_of)
 
 log = logging.getLogger(__name__)
 
@@ -125,7 +125,7 @@ def run_demo(out_dir: str | Path, data_dir: str | Path | None = None, interval_s
                                  + first.config_path.read_text(encoding="utf-8"),
                                  input_files=inputs_of(runs), run_utc=datetime.now(timezone.utc),
                                  extra={"demo data": where}),
-        summary=summary_of(runs, study))
+        summary=summary_of(runs, study), warnings=run_warnings(runs))
     return JobOutcome("demo", out_dir, files.html, files.pdf, runs=tuple(runs), study=study,
                       notes=tuple(notes), truth=truth)
 

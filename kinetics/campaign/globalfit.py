@@ -14,7 +14,9 @@ known (the run's design factors) or fitted (``fit_initial``; named ``c0_<species
 When the runs differ in temperature every rate constant follows Arrhenius in the
 reference-temperature form ``k(T) = k_ref exp(-(Ea/R)(1/T - 1/T_ref))`` (R from
 ``scipy.constants``; ``T_ref`` defaults to the harmonic mean of the runs' temperatures, which
-nearly decorrelates ``k_ref`` and ``Ea``).
+nearly decorrelates ``k_ref`` and ``Ea``), or, for the power law on request, Eyring:
+``k(T) = (k_B T/h) exp(dS/R) exp(-dH/(R T))`` (transmission coefficient 1, standard state
+1 mol L^-1 for a k of overall order n != 1; k_B, h from ``scipy.constants``).
 
 Statistics: weighted least squares over the pooled courses (``(y - f)/sigma``, sigma from
 the runs when every course used has one, else equal weights with the noise estimated from
@@ -47,6 +49,7 @@ from kinetics.rates.laws import CONC_UNIT
 log = logging.getLogger(__name__)
 
 GAS_CONSTANT = constants.R  # J mol^-1 K^-1
+_KB_OVER_H = constants.k / constants.h  # s^-1 K^-1
 ORDER_BOUNDS = (-2.0, 5.0)
 _SAME_TEMPERATURE_KELVIN = 0.05
 
@@ -142,6 +145,12 @@ def _temperatures(runs, reference):
 
 def _arrhenius_factor(ea, t, t_ref):
     return math.exp(-(ea / GAS_CONSTANT) * (1.0 / t - 1.0 / t_ref))
+
+
+def eyring_k(dh_j_per_mol, ds_j_per_mol_k, temperature_kelvin):
+    """``k = (k_B T/h) exp(dS/R) exp(-dH/(R T))`` (transmission coefficient 1)."""
+    return (_KB_OVER_H * temperature_kelvin * math.exp(ds_j_per_mol_k / GAS_CONSTANT)
+            * math.exp(-dh_j_per_mol / (GAS_CONSTANT * temperature_kelvin)))
 
 
 def _data_blocks(runs, species_for_run):
@@ -373,7 +382,7 @@ def _ssq_function(runs, params, predict_run, species_for_run):
 # ---------------------------------------------------------------- power rate law
 def fit_power_law(runs: Sequence[CampaignRun], law: PowerLaw | None = None, *, species=None,
                   fit_initial=(), temperature_reference_kelvin=None, absolute_sigma=False, profile=True,
-                  order_bounds=ORDER_BOUNDS, start_orders=None) -> GlobalFitResult:
+                  order_bounds=ORDER_BOUNDS, start_orders=None, temperature_law="arrhenius") -> GlobalFitResult:
     """Fit ``rate = k prod [i]^{n_i}`` to every run at once with shared ``k`` and orders.
 
     Parameters
@@ -394,10 +403,26 @@ def fit_power_law(runs: Sequence[CampaignRun], law: PowerLaw | None = None, *, s
         Take the runs' sigmas as known (chi-square threshold) rather than relative.
     profile : bool
         Profile intervals for the rate constant(s) and the orders.
+    temperature_law : "arrhenius" or "eyring"
+        How k depends on temperature when the runs differ in it: ``k_ref`` and
+        ``ea_j_per_mol``, or ``dh_j_per_mol`` and ``ds_j_per_mol_k`` (started from the
+        Arrhenius fit: ``dH = Ea - R T_ref``).
     """
     runs = check_campaign(runs)
     law = law if law is not None else PowerLaw()
+    if temperature_law not in ("arrhenius", "eyring"):
+        raise ConfigError("temperature_law", f"{temperature_law!r}: use 'arrhenius' or 'eyring'")
     temperatures, t_ref = _temperatures(runs, temperature_reference_kelvin)
+    eyring_start = None
+    if temperatures is not None and temperature_law == "eyring":
+        first = fit_power_law(runs, law, species=species, fit_initial=fit_initial,
+                              temperature_reference_kelvin=temperature_reference_kelvin,
+                              absolute_sigma=absolute_sigma, profile=False, order_bounds=order_bounds,
+                              start_orders=start_orders)
+        values = first.values
+        dh = values["ea_j_per_mol"] - GAS_CONSTANT * t_ref
+        ds = GAS_CONSTANT * (math.log(values["k_ref"] / (_KB_OVER_H * t_ref)) + dh / (GAS_CONSTANT * t_ref))
+        eyring_start = dict(values, dh_j_per_mol=dh, ds_j_per_mol_k=ds)
     changing = [name for name, nu in law.coefficients.items() if nu != 0]
     wanted = tuple(species) if species is not None else None
     fit_initial = tuple(fit_initial)
@@ -434,9 +459,12 @@ def fit_power_law(runs: Sequence[CampaignRun], law: PowerLaw | None = None, *, s
         order_params.append(_Param(f"K_{name}", 1.0 / scale, 0.0, math.inf, "L mol^-1"))
     if temperatures is None:
         rate_params = [_Param("k", 1.0, 0.0, math.inf, law.k_unit({f"order_{s}": 1.0 for s in law.free}))]
-    else:
+    elif eyring_start is None:
         rate_params = [_Param("k_ref", 1.0, 0.0, math.inf, law.k_unit({f"order_{s}": 1.0 for s in law.free})),
                        _Param("ea_j_per_mol", 50e3, -100e3, 500e3, "J mol^-1")]
+    else:
+        rate_params = [_Param("dh_j_per_mol", 50e3, -100e3, 500e3, "J mol^-1"),
+                       _Param("ds_j_per_mol_k", -50.0, -1000.0, 1000.0, "J mol^-1 K^-1")]
 
     def initial_of(run, values):
         initial = {}
@@ -452,6 +480,8 @@ def fit_power_law(runs: Sequence[CampaignRun], law: PowerLaw | None = None, *, s
         orders = {name: values[f"order_{name}"] for name in law.free}
         if temperatures is None:
             k = values["k"]
+        elif eyring_start is not None:
+            k = eyring_k(values["dh_j_per_mol"], values["ds_j_per_mol_k"], run.temperature_kelvin)
         else:
             k = values["k_ref"] * _arrhenius_factor(values["ea_j_per_mol"], run.temperature_kelvin, t_ref)
         binding = {name: values[f"K_{name}"] for name in law.free_binding}
@@ -469,9 +499,12 @@ def fit_power_law(runs: Sequence[CampaignRun], law: PowerLaw | None = None, *, s
             f0 *= (c or 0.0) ** order
         return f0, initial.get(law.reactant, 1.0) or 1.0
 
-    k0 = _k_start(runs, initial_rate_factor, 1.0)
-    params[0] = _Param(params[0].name, k0, 0.0, math.inf, params[0].unit)
-    params = _scan_start(params, 0, _ssq_function(runs, params, predict_run, species_for_run))
+    if eyring_start is None:
+        k0 = _k_start(runs, initial_rate_factor, 1.0)
+        params[0] = _Param(params[0].name, k0, 0.0, math.inf, params[0].unit)
+        params = _scan_start(params, 0, _ssq_function(runs, params, predict_run, species_for_run))
+    else:
+        params = [_Param(p.name, float(eyring_start[p.name]), p.lower, p.upper, p.unit, p.profile) for p in params]
     guards = _design_guardrails(runs, law)
     result = _fit_pooled(law.describe(), runs, params, predict_run, species_for_run,
                          absolute_sigma=absolute_sigma, profile=profile, extra_guardrails=guards, t_ref=t_ref)

@@ -368,17 +368,22 @@ class FitResult:
         lines = [f"model       {self.model_name}: {self.description}",
                  f"data        {where}({', '.join(self.columns)}; {self.n_points} points)",
                  f"status      {'converged' if self.converged else 'NOT CONVERGED'}: {self.message}"]
-        lines.append(f"{'parameter':<12}{'value':>14}{'stderr':>12}  {'95% interval':<28}{'unit'}")
+        # value ± standard uncertainty rounded together (GUM 7.2.6), interval to the same place
+        lines.append(f"{'parameter':<12}{'value ± u':<30}{'95 % interval':<32}{'unit'}")
         for p in self.params:
+            unit = numbers.unit_text(p.unit)
             if not p.vary:
-                lines.append(f"{p.name:<12}{p.value:>14.6g}{'(fixed)':>12}  {'':<28}{p.unit}")
+                lines.append(f"{p.name:<12}{numbers.format_value(p.value, 6) + ' (fixed)':<30}{'':<32}{unit}")
                 continue
             ci = p.ci95
-            ci_text = "-" if ci is None else "[" + ", ".join(
-                f"{end:.5g}" if np.isfinite(end) else "unbounded" for end in ci) + "]"
-            stderr = f"{p.stderr:.3g}" if p.stderr is not None else "-"
-            lines.append(f"{p.name:<12}{p.value:>14.6g}{stderr:>12}  {ci_text:<28}{p.unit}"
-                         + ("  (at bound)" if p.at_bound else ""))
+            if ci is None:
+                ci_text = "-"
+            elif all(np.isfinite(ci)):
+                ci_text = numbers.format_interval(ci[0], ci[1])
+            else:
+                ci_text = " to ".join(numbers.format_value(end) if np.isfinite(end) else "unbounded" for end in ci)
+            value = numbers.format_uncertain(p.value, p.stderr)
+            lines.append(f"{p.name:<12}{value:<30}{ci_text:<32}{unit}" + ("  (at bound)" if p.at_bound else ""))
         lines.append(f"chi-square  {self.chi_square:.6g}   reduced {self.reduced_chi_square:.4g}   "
                      f"AICc {self.aicc:.4g}   BIC {self.bic:.4g}   dof {self.dof}")
         d = self.diagnostics

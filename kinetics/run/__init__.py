@@ -9,6 +9,8 @@ studies given as run configs and campaigns.
   :func:`batch_run`;
 * :mod:`kinetics.run.state` - the in-memory, incremental series state and its measurer;
 * :mod:`kinetics.run.refit` - the rate-law refit, warm-started during a live run;
+* :mod:`kinetics.run.uncertainty` - the processing uncertainty of a run's final fit
+  (k under neighbouring processing choices, :mod:`kinetics.sensitivity`);
 * :mod:`kinetics.run.outputs` - the ledger lock, ``series.csv``, ``fit.json``, the figure
   and the page;
 * :mod:`kinetics.run.job` - ``kinetics run`` end to end (run or study config, report).

@@ -23,7 +23,10 @@ Steps of a turn (:meth:`RunState.take` then :meth:`RunState.refit` and
    ``index.html`` at most once per refresh interval (the rate fit's guardrail checks run
    at the same pace) — are written atomically.
 
-The final table and fit of every run are computed from scratch.
+The final table and fit of every run are computed from scratch
+(:meth:`RunState.final_fit`), then k's processing uncertainty is assessed over the
+spectra kept in memory (:mod:`kinetics.run.uncertainty`): the interval a run quotes
+combines the statistical and the systematic parts.
 
 The library never watches folders or sleeps: the loop, the stop conditions and the views
 are in ``watchers/``.
@@ -414,7 +417,8 @@ class RunState:
         self.known = self.ledger.latest_stat()
         self._png: bytes | None = None
         self._drawn_at: float | None = None
-        #: measure the processing variants in worker processes (a batch run; a live
+        #: measure the processing variants in worker processes (a batch run of at least
+        #: PARALLEL_MIN_FILES spectra: below, forking costs more than it saves; a live
         #: run's final pass measures them here)
         self.parallel_assessment = False
 
@@ -471,14 +475,18 @@ class RunState:
         measure = self.plan.measure
         try:
             reference = measure.reference
-            if reference is None and measure.reference_path is not None:
+            reference_path = measure.reference_path or (self.ledger.first_record() or {}).get("reference")
+            if reference is None and reference_path is not None:  # a restart that measured nothing new
                 from kinetics import series
 
-                reference = series.make_reference(self.source.folder / measure.reference_path, self.plan.config)
+                reference = series.make_reference(self.source.folder / reference_path, self.plan.config)
+            many = self.parallel_assessment and len(self.source) >= PARALLEL_MIN_FILES
+            workers = worker_count() if many else 1
             with small_linear_algebra():
                 k, doc, warnings, text = assess_outcome(
                     self.plan.config, self.plan.refit, self.source.measurements(), reference, self.table,
-                    outcome, workers=worker_count() if self.parallel_assessment else 1)
+                    outcome, workers=workers,
+                    fits=self.source.final_fits())
         except (KineticsError, ValueError, ArithmeticError) as error:
             log.warning("the processing uncertainty could not be assessed: %s", error)
             k, doc, warnings, text = outcome.k, {"assessed": False, "reason": f"failed: {error}"}, [], None

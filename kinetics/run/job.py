@@ -71,8 +71,11 @@ class RunOutcome:
         stat, sys_, value = doc["statistical"], doc["systematic"], doc.get("value")
         lo, hi = stat["ci95"]
         rel = (lambda x: f" ({100 * x / abs(value):.2g} %)") if value else (lambda x: "")
-        text = (f"statistical 95 %: {lo:.4g} .. {hi:.4g}; systematic (processing choices) "
-                f"sd {sys_['stderr']:.2g}{rel(sys_['stderr'])}")
+        if sys_["stderr"] > 0:
+            systematic = f"sd {sys_['stderr']:.2g}{rel(sys_['stderr'])}"
+        else:
+            systematic = "0: the variants' spread is no more than noise alone gives"
+        text = f"statistical 95 %: {lo:.4g} .. {hi:.4g}; systematic (processing choices) {systematic}"
         largest = (doc.get("breakdown") or [None])[0]
         if largest and largest.get("stderr") and sys_["stderr"] > 0:
             text += f"; most from {largest['choice'].replace('_', ' ')} of {largest['target']}"
@@ -295,3 +298,20 @@ def is_study_file(config_path: str | Path) -> bool:
     except UnicodeDecodeError:
         raise InputFileError(path, "not a text file", hint="give the .toml config") from None
     return is_study_config(raw)
+
+
+# ---------------------------------------------------------------- campaign
+def is_campaign_file(config_path: str | Path) -> bool:
+    """True when the TOML file is a campaign (a top-level ``[campaign]`` table)."""
+    from kinetics.campaign.config import is_campaign_file as check
+
+    return check(config_path)
+
+
+def run_campaign_config(config_path: str | Path, out_dir: str | Path, *, scheduler: str | None = None,
+                        workers: int | None = None):
+    """A campaign config (:func:`kinetics.campaign.runner.run_campaign`): the runs as tasks, then
+    the global fit, VTNA, the same-excess check and initial rates; returns a CampaignOutcome."""
+    from kinetics.campaign.runner import run_campaign
+
+    return run_campaign(config_path, out_dir, scheduler=scheduler, workers=workers)

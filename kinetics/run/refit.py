@@ -139,6 +139,22 @@ class RatesRefitter:
         """The series table's fit from scratch (a FitResult), as the final fit makes it."""
         return self.fit_from_scratch(self._data(table)[1])
 
+    def fit_value(self, previous, table: pd.DataFrame) -> float:
+        """The rate constant of ``table``'s fit started at ``previous``'s optimum, value
+        only (no interval, no guardrail checks): for re-fits of slightly changed tables
+        (the processing variants), whose intervals nobody reads."""
+        from kinetics.rates.fit import fit_model
+
+        opts = previous.options
+        start = {name: previous.values[name] for name in previous.varying}
+        result = fit_model(self._data(table)[1], previous.model, start=start, fixed=opts.fixed, bounds=opts.bounds,
+                           profile=False, bootstrap=0, absolute_sigma=opts.absolute_sigma, tol=opts.tol,
+                           max_nfev=opts.max_nfev, warm=True, weighting=opts.weighting, guardrails=False)
+        if not result.converged:
+            raise KineticsError(f"the fit did not converge: {result.message}")
+        name = next(n for n in result.varying if n.startswith("k"))
+        return float(result.values[name])
+
     def fit_from_scratch(self, data):
         from kinetics.rates.fit import fit_law, fit_mechanism
 

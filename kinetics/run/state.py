@@ -152,6 +152,7 @@ class SeriesState:
         self._changed = True
         self._held = False  # the table's fit groups are at held line shapes
         self._spectra_bytes = 0
+        self._final_fits: dict = {}
         self.keep_spectra = True  # False once past KEEP_SPECTRA_BYTES
 
     def __len__(self) -> int:
@@ -178,6 +179,10 @@ class SeriesState:
             else:
                 self._measurements.pop(row.path, None)
             self._changed = True
+
+    def final_fits(self) -> dict:
+        """Group -> series-wide fit from scratch of the last final table ({} otherwise)."""
+        return dict(self._final_fits)
 
     def _keep(self, value: series.FileMeasurement) -> series.FileMeasurement:
         """Keep the measurement's spectrum while within :data:`KEEP_SPECTRA_BYTES`."""
@@ -210,6 +215,7 @@ class SeriesState:
             hold = not final and not refresh
             self._table, fits = series.series_table(list(self._measurements.values()), self.config, start, hold)
             self._fits = fits if fits else self._fits
+            self._final_fits = dict(fits) if final else {}
             self._held = hold and bool(self._fits)
             self._changed = False
         return self._table

@@ -21,6 +21,7 @@ choice to vary says that the systematic term is zero for that reason.
 from __future__ import annotations
 
 import logging
+import math
 from dataclasses import replace
 
 from kinetics import sensitivity as sens
@@ -41,15 +42,18 @@ def run_spectra(config, measurements, reference):
     """
     missing = [m for m in measurements if m.spectrum is None]
     reread = {}
+    reference_spectrum = None if reference is None else reference.spectrum
     if missing:
         log.info("processing uncertainty: %d spectra not in memory are read again", len(missing))
-        spectra, again, _ = sens.processed_run(config, paths=[m.path for m in missing], reference=reference)
+        spectra, again, made = sens.processed_run(config, paths=[m.path for m in missing], reference=reference)
         reread = {m.path: s for m, s in zip(missing, spectra)}
+        reference_spectrum = made if reference_spectrum is None else reference_spectrum
     spectra = [m.spectrum if m.spectrum is not None else reread[m.path] for m in measurements]
-    return spectra, [replace(m, spectrum=None) for m in measurements], reference.spectrum, len(missing)
+    return spectra, [replace(m, spectrum=None) for m in measurements], reference_spectrum, len(missing)
 
 
-def assess_outcome(config, refitter, measurements, reference, table, outcome, workers: int = 1):
+def assess_outcome(config, refitter, measurements, reference, table, outcome, workers: int = 1,
+                   fits=None):
     """The processing uncertainty of a run's final fit.
 
     Parameters
@@ -62,6 +66,9 @@ def assess_outcome(config, refitter, measurements, reference, table, outcome, wo
     table, outcome : the run's final table and fit outcome
     workers : int
         Variants measured in forked worker processes (see :func:`kinetics.sensitivity.assess`).
+    fits : mapping, optional
+        Group -> the final table's series-wide fit from scratch, reused by variants that
+        leave the group alone.
 
     Returns
     -------
@@ -91,9 +98,18 @@ def assess_outcome(config, refitter, measurements, reference, table, outcome, wo
     spectra, ms, ref_spectrum, reread = run_spectra(config, measurements, reference)
 
     def fit(t):
-        return sens.estimate_from_fit(refitter.fit_table(t))
+        # k of a variant: the fit started at the run's optimum, value only (the variants'
+        # own intervals are not used; tests/test_engine.py checks this equals a fit from
+        # scratch)
+        value = refitter.fit_value(outcome.state, t)
+        return sens.KEstimate(value, math.nan, (math.nan, math.nan), base.quantile, base.unit, base.name)
 
-    result = sens.assess(config, sens.SpectraQuantifier(spectra, ms, ref_spectrum), fit, variants=variants,
+    from kinetics import series
+
+    known = {series.global_fit_key(members, config): fits[group]
+             for group, members in config.fit_groups.items() if fits and group in fits}
+    quantify = sens.SpectraQuantifier(spectra, ms, ref_spectrum, fits=known)
+    result = sens.assess(config, quantify, fit, variants=variants,
                          base_table=table, base_estimate=base, workers=workers)
     doc = {"assessed": True, **result.to_dict(), "spectra_read_again": reread}
     new_k = {**k, "ci95": list(result.combined_ci95), "ci95_statistical": list(base.ci95),

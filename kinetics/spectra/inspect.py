@@ -111,7 +111,8 @@ def inspect_file(path: str | Path) -> dict[str, Any]:
     -------
     dict
         ``format`` ("jcamp-dx" | "delimited"), ``kind`` ("spectrum" | "fid"), ``title``,
-        ``nucleus``, ``observe_mhz``, ``points`` (points in the file), ``ppm_range``
+        ``nucleus``, ``observe_mhz``, ``decoupler`` (as the file states it, or None),
+        ``points`` (points in the file), ``ppm_range``
         [high, low] of the spectrum (the transformed one for an FID), ``acquired`` (ISO
         8601 UTC or None), ``n_scans``, ``sha256``, ``peaks`` (see :func:`pick_peaks`),
         and for an FID also ``dwell_s``, ``spectrum_points`` and ``transform``.
@@ -130,6 +131,7 @@ def inspect_file(path: str | Path) -> dict[str, Any]:
         "title": record.header.get("TITLE") or record.header.get("title"),
         "nucleus": record.nucleus,
         "observe_mhz": record.observe_mhz,
+        "decoupler": record.decoupler,
         "points": record.n_points,
         "acquired": record.acquired_utc.isoformat() if record.acquired_utc else None,
         "n_scans": record.n_scans,

@@ -1,0 +1,566 @@
+"""``kinetics run CAMPAIGN.toml``: load every run (as Dask tasks or here), then analyse them together.
+
+Stages
+------
+1. **Runs** (:func:`load_run`, one task per run): a series table is read; a run config goes
+   through the run engine (:func:`kinetics.run.engine.batch_run`) with its own ledger in
+   ``<out>/runs/<slug>/``, written by the one worker that runs the task.  The task returns
+   plain arrays (:class:`LoadedRun`); the :class:`~kinetics.campaign.design.CampaignRun`
+   records are built here, after gathering.
+2. **Analysis** (here, on the gathered runs): the same-excess check (RPKA), the global fit
+   (power law or written mechanism) -- without the runs the same-excess check names as
+   slower when ``exclude_flagged_runs`` (the fit of every run is kept beside it) -- VTNA on
+   the runs that share the modal ``[reactant]0`` and initial rates.
+3. **Outputs**: CSV tables, PNG and SVG figures and ``summary.json`` in the out folder.
+
+Scale-out
+---------
+``scheduler = "none"`` runs the tasks in this process; ``"local"`` starts a
+``distributed.LocalCluster`` (worker processes, one thread each, bound to 127.0.0.1, no
+dashboard, as many workers as cores unless ``workers`` says otherwise); an address
+(``tcp://host:8786``) uses an existing cluster, whose workers must see the same paths.
+The client (and a local cluster) lives only inside :func:`run_campaign` (context managers):
+the library keeps no global state.  A run whose task fails is reported (which run, why) and
+the others go on.  A worker lost mid-task has its tasks redone by the scheduler; a redone
+run opens its own ledger folder again, where the ledger (keyed by file content) recognises
+the files already counted and does not count them twice, and results are gathered by run
+label, once each.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import os
+import time
+from contextlib import ExitStack
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+from kinetics.campaign.config import SCHEDULER_LOCAL, SCHEDULER_NONE, CampaignConfig, CampaignRunConfig
+from kinetics.campaign.design import CampaignRun
+from kinetics.errors import ConfigError, FitError, InputFileError, KineticsError
+
+log = logging.getLogger(__name__)
+
+#: initial rates over the first 15 % of conversion (a straight line; its bias, ~7 % at
+#: first order, is stated in kinetics.campaign.initial_rates)
+INITIAL_RATE_MAX_CONVERSION = 0.15
+_SAME_START_REL = 0.05
+
+
+@dataclass(frozen=True)
+class LoadedRun:
+    """A run's measured courses as plain values (what a task sends back)."""
+
+    label: str
+    time_s: np.ndarray
+    observed: dict
+    sigma: dict
+    source: str
+    counts: dict | None = None
+    ledger: str | None = None
+    warnings: tuple = ()
+
+
+@dataclass(frozen=True)
+class RunFailure:
+    label: str
+    source: str
+    reason: str
+
+
+def _slug(text: str) -> str:
+    return "".join(c if c.isalnum() else "_" for c in text).strip("_").lower() or "run"
+
+
+# ---------------------------------------------------------------- stage 1: one run (a task)
+def _series_frame(run: CampaignRunConfig, runs_dir: Path) -> tuple[pd.DataFrame, str, dict | None, str | None]:
+    if run.config is not None:
+        from kinetics.config import load_run_config
+        from kinetics.run.engine import batch_run, plan_from_config
+
+        plan = plan_from_config(load_run_config(run.config), folder=run.folder, require_named=False)
+        out = Path(runs_dir) / _slug(run.label)
+        summary = batch_run(plan, out, parallel=False, figures=False, processing_uncertainty=False)
+        table = summary.table if summary.table is not None else pd.DataFrame()
+        return table, str(run.folder or run.config), dict(summary.counts), str(out / "ledger.sqlite")
+    from kinetics.rates.table import read_rows
+
+    path = run.table
+    if not path.is_file():
+        raise InputFileError(path, "series table not found", hint=f"named by {run.key}.table")
+    header, rows, lines, header_line = read_rows(path)
+    cells = {}
+    for j, name in enumerate(header):
+        values = []
+        for row, line in zip(rows, lines):
+            if len(row) != len(header):
+                raise InputFileError(path, f"{len(row)} cells but the header has {len(header)}", line=line)
+            text = row[j].strip()
+            if text == "" or text.lower() in ("nan", "na", "n/a"):
+                values.append(math.nan)
+                continue
+            try:
+                values.append(float(text))
+            except ValueError:
+                values.append(text)  # text is an error only in a column the campaign reads
+        cells[name] = values
+    frame = pd.DataFrame(cells)
+    frame.attrs["lines"] = list(lines)
+    return frame, str(path), None, None
+
+
+def _numeric(frame: pd.DataFrame, name: str, source: str) -> np.ndarray:
+    column = frame[name]
+    lines = frame.attrs.get("lines")
+    values = pd.to_numeric(column, errors="coerce").to_numpy(float)
+    bad = np.flatnonzero(np.isnan(values) & column.notna().to_numpy() & (column.astype(str) != "nan").to_numpy())
+    if bad.size:
+        i = int(bad[0])
+        raise InputFileError(source, f"column '{name}' holds {column.iloc[i]!r}, not a number",
+                             line=None if lines is None else lines[i],
+                             hint="use a dot as decimal separator and no units in cells")
+    return values
+
+
+def load_run(run: CampaignRunConfig, runs_dir: str, species: tuple) -> LoadedRun:
+    """One run's courses: its series table read, or its run config through the run engine.
+
+    ``species`` are the names whose ``<species>_concentration`` columns are read when
+    present (the run's own ``species`` list, when given, must all be present).  Rows with an
+    empty cell in a column read are dropped, with a warning.
+    """
+    frame, source, counts, ledger = _series_frame(run, Path(runs_dir))
+    if run.time_column not in frame:
+        raise InputFileError(source, f"no column '{run.time_column}' (asked for by {run.key}.time_column)",
+                             hint="columns are: " + ", ".join(map(str, frame.columns)))
+    wanted = run.species if run.species is not None else species
+    names = [s for s in wanted if f"{s}_concentration" in frame]
+    missing = [s for s in (run.species or ()) if s not in names]
+    if missing or not names:
+        raise InputFileError(source, f"no column '{(missing or list(wanted) or ['?'])[0]}_concentration' for run "
+                             f"{run.label!r}", hint="columns are: " + ", ".join(map(str, frame.columns)))
+    time_s = _numeric(frame, run.time_column, source) * run.time_factor_s
+    observed = {s: _numeric(frame, f"{s}_concentration", source) for s in names}
+    sigma = {s: _numeric(frame, f"{s}_concentration_sigma", source) for s in names
+             if f"{s}_concentration_sigma" in frame}
+    keep = np.isfinite(time_s)
+    for values in list(observed.values()) + list(sigma.values()):
+        keep &= np.isfinite(values)
+    warnings = list(run.temperature_warnings)
+    if not keep.all():
+        warnings.append(f"run {run.label}: {int((~keep).sum())} row(s) with an empty cell skipped ({source})")
+    return LoadedRun(run.label, time_s[keep], {s: v[keep] for s, v in observed.items()},
+                     {s: v[keep] for s, v in sigma.items()}, source, counts, ledger, tuple(warnings))
+
+
+def _task(loader, run, runs_dir, species):
+    """What a worker runs: errors the user can fix come back as a message (they are
+    reported per run and do not stop the others)."""
+    started = time.perf_counter()
+    try:
+        return "ok", loader(run, runs_dir, species), time.perf_counter() - started
+    except KineticsError as error:
+        return "error", str(error), time.perf_counter() - started
+
+
+# ---------------------------------------------------------------- executing the tasks
+def _workers_for(config: CampaignConfig, workers: int | None) -> int:
+    n = workers or config.workers or os.cpu_count() or 1
+    return max(1, int(n))
+
+
+def execute(config: CampaignConfig, runs_dir: Path, *, scheduler: str | None = None, workers: int | None = None,
+            loader: Callable = load_run) -> tuple[dict, list, dict]:
+    """Run every run's task; returns ``({label: LoadedRun}, [RunFailure], info)``.
+
+    ``scheduler`` overrides ``[campaign] scheduler``; ``workers`` the local cluster's size
+    (``workers = 1`` with the default scheduler runs in this process).  ``info`` says
+    where the tasks ran and the seconds spent in tasks and in all.
+    """
+    if scheduler is not None:
+        from kinetics.campaign.config import _scheduler
+
+        scheduler = _scheduler(scheduler, "--scheduler")
+    scheduler = scheduler or config.scheduler
+    if scheduler == SCHEDULER_LOCAL and workers == 1:
+        scheduler = SCHEDULER_NONE
+    species = config.model_species()
+    started = time.perf_counter()
+    outcomes = {}
+    if scheduler == SCHEDULER_NONE:
+        for run in config.runs:
+            try:
+                outcomes[run.label] = _task(loader, run, str(runs_dir), species)
+            except Exception as error:  # noqa: BLE001 - a run that breaks is reported, the others go on
+                outcomes[run.label] = ("error", f"{type(error).__name__}: {error}", 0.0)
+        where = "in this process"
+    else:
+        outcomes, where = _execute_dask(config, runs_dir, scheduler, workers, loader, species)
+    loaded, failures, task_s = {}, [], 0.0
+    for run in config.runs:
+        status, value, seconds = outcomes[run.label]
+        task_s += seconds
+        if status == "ok":
+            loaded[run.label] = value
+        else:
+            failures.append(RunFailure(run.label, run.source, value))
+    info = {"where": where, "task_seconds": task_s, "wall_seconds": time.perf_counter() - started}
+    return loaded, failures, info
+
+
+def _execute_dask(config, runs_dir, scheduler, workers, loader, species):
+    try:
+        from distributed import Client, LocalCluster, as_completed
+    except ImportError:  # pragma: no cover - a declared dependency
+        raise ConfigError("campaign.scheduler", "dask.distributed is not installed",
+                          hint='install it (pip install distributed) or use scheduler = "none"') from None
+    with ExitStack() as stack:
+        if scheduler == SCHEDULER_LOCAL:
+            n = _workers_for(config, workers)
+            cluster = stack.enter_context(LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
+                                                       host="127.0.0.1", dashboard_address=None))
+            client = stack.enter_context(Client(cluster))
+            where = f"local Dask cluster of {n} worker process(es)"
+        else:
+            try:
+                client = stack.enter_context(Client(scheduler, timeout="20s"))
+            except (OSError, TimeoutError, ValueError) as error:
+                raise ConfigError("campaign.scheduler", f"no Dask scheduler answers at {scheduler} ({error})",
+                                  hint="start one (dask scheduler) or use \"local\"") from None
+            where = f"Dask scheduler {scheduler}"
+        futures = {}
+        for i, run in enumerate(config.runs):
+            future = client.submit(_task, loader, run, str(runs_dir), species, pure=False,
+                                   key=f"campaign-run-{i}-{_slug(run.label)}-{os.getpid()}-{time.time_ns()}")
+            futures[future] = run.label
+        outcomes = {}
+        for future in as_completed(list(futures)):
+            label = futures[future]
+            try:
+                outcomes[label] = future.result()
+            except Exception as error:  # noqa: BLE001 - e.g. KilledWorker: reported per run
+                outcomes[label] = ("error", f"{type(error).__name__}: {error}", 0.0)
+    return outcomes, where
+
+
+# ---------------------------------------------------------------- stage 2: analysis
+@dataclass(frozen=True, eq=False)
+class CampaignOutcome:
+    """Everything ``kinetics run CAMPAIGN.toml`` found (the CLI prints it, ``--json`` dumps it)."""
+
+    config: CampaignConfig
+    out_dir: Path
+    runs: tuple  # CampaignRun, in config order, the runs that loaded
+    loaded: dict = field(repr=False)
+    failures: tuple = ()
+    fit: object = None  # GlobalFitResult (headline)
+    fit_all: object = None  # GlobalFitResult of every run, when runs were left out
+    excluded: tuple = ()
+    same_excess: tuple = ()
+    vtna: object = None
+    initial_rates: object = None
+    warnings: tuple = ()
+    notes: tuple = ()
+    info: dict = field(default_factory=dict)
+    files: tuple = ()
+
+    @property
+    def success(self) -> bool:
+        return self.fit is not None and bool(self.fit.converged) and not self.failures
+
+    def to_dict(self) -> dict:
+        runs = []
+        for run in self.config.runs:
+            entry = {"label": run.label, "source": run.source, "loaded": run.label in self.loaded,
+                     "excluded_from_fit": run.label in self.excluded,
+                     "temperature_kelvin": run.temperature_kelvin, "catalyst_mol_per_l": run.catalyst_mol_per_l,
+                     "initial_mol_per_l": run.initial_dict(), "factors": run.factors_dict()}
+            got = self.loaded.get(run.label)
+            if got is not None:
+                entry.update(n_points=int(got.time_s.size), observed=sorted(got.observed), counts=got.counts,
+                             ledger=got.ledger)
+            runs.append(entry)
+        return {
+            "kind": "campaign", "name": self.config.name, "out_dir": str(self.out_dir), "success": self.success,
+            "runs": runs, "failures": [{"run": f.label, "source": f.source, "reason": f.reason}
+                                       for f in self.failures],
+            "excluded_runs": list(self.excluded),
+            "global_fit": None if self.fit is None else self.fit.to_dict(),
+            "global_fit_all_runs": None if self.fit_all is None else self.fit_all.to_dict(),
+            "same_excess": [r.to_dict() for r in self.same_excess],
+            "vtna": None if self.vtna is None else self.vtna.to_dict(),
+            "initial_rates": None if self.initial_rates is None else self.initial_rates.to_dict(),
+            "warnings": list(self.warnings), "notes": list(self.notes), "execution": dict(self.info),
+            "files": [str(p) for p in self.files],
+        }
+
+    def text(self) -> str:
+        """The terminal summary: orders and constants with 95 % intervals, warnings in words."""
+        lines = [f"campaign '{self.config.name}': {len(self.runs)} of {len(self.config.runs)} run(s) loaded "
+                 f"({self.info.get('where', '')})"]
+        for failure in self.failures:
+            lines.append(f"  run {failure.label} FAILED ({failure.source}): {failure.reason}")
+        if self.fit is not None:
+            left = f", without {', '.join(self.excluded)}" if self.excluded else ""
+            lines.append("")
+            lines.append(f"global fit{left}: {self.fit.description}"
+                         + ("" if self.fit.converged else f"  (NOT converged: {self.fit.message})"))
+            lines.extend(_parameter_lines(self.fit))
+        if self.fit_all is not None:
+            lines.append(f"global fit of every run (for comparison): {self.fit_all.description}")
+            lines.extend(_parameter_lines(self.fit_all))
+        if self.same_excess:
+            lines.append("")
+            lines.append("same-excess check (RPKA):")
+            for r in self.same_excess:
+                state = "DO NOT overlay" if r.flagged else "overlay"
+                lines.append(f"  {r.early} / {r.late}: {state} (rate ratio {r.rate_ratio:.3g}, p = {r.p:.2g})")
+        if self.vtna is not None:
+            lines.append("")
+            lines.append(f"VTNA on runs {', '.join(self.vtna.labels)}:")
+            for name, order in self.vtna.orders.items():
+                lo, hi = self.vtna.intervals.get(name, (math.nan, math.nan))
+                lines.append(f"  order in {name:<12} {order:.3g}  (95 %: {lo:.3g} .. {hi:.3g})")
+        if self.initial_rates is not None:
+            lines.append("")
+            lines.append("initial rates (log-log):")
+            for estimate in self.initial_rates.orders:
+                lines.append(f"  {estimate.name:<22} {_value_ci(estimate)}")
+        for note in self.notes:
+            lines.append(f"note: {note}")
+        for warning in self.warnings:
+            lines.append(f"warning: {warning}")
+        lines.append("")
+        lines.append(f"outputs: {self.out_dir}")
+        return "\n".join(lines)
+
+
+def _value_ci(estimate) -> str:
+    data = estimate.to_dict()
+    ci = data.get("ci95") or (None, None)
+    interval = "" if None in ci else f"  (95 %: {ci[0]:.4g} .. {ci[1]:.4g})"
+    unit = "" if data.get("unit") in (None, "1") else f" {data['unit']}"
+    return f"{data['value']:.4g}{unit}{interval}"
+
+
+def _parameter_lines(fit) -> list:
+    return [f"  {p.name:<22} {_value_ci(p)}" for p in fit.parameters if "@" not in p.name]
+
+
+def _campaign_run(run: CampaignRunConfig, got: LoadedRun) -> CampaignRun:
+    return CampaignRun(run.label, got.time_s, got.observed, got.sigma, run.initial_dict(), run.catalyst_mol_per_l,
+                       run.temperature_kelvin, run.factors_dict(), got.source)
+
+
+def _global_fit(config: CampaignConfig, runs):
+    from kinetics.campaign.globalfit import fit_mechanism_campaign, fit_power_law
+
+    if config.mechanism is not None:
+        return fit_mechanism_campaign(runs, config.mechanism, catalyst_species=config.catalyst,
+                                      fit_initial=config.fit_initial,
+                                      temperature_reference_kelvin=config.reference_temperature_kelvin)
+    return fit_power_law(runs, config.power_law(), species=config.observed, fit_initial=config.fit_initial,
+                         temperature_reference_kelvin=config.reference_temperature_kelvin,
+                         temperature_law=config.temperature_law)
+
+
+def _vtna_runs(config, runs):
+    """The largest group of runs that share ``[reactant]0`` (within 5 %) and a temperature."""
+    groups = []
+    for run in runs:
+        a0 = run.initial(config.reactant)
+        if a0 is None or config.reactant not in run.observed_mol_per_l:
+            continue
+        for group in groups:
+            ref = group[0]
+            if (abs(ref.initial(config.reactant) - a0) <= _SAME_START_REL * max(a0, 1e-12)
+                    and ref.temperature_kelvin == run.temperature_kelvin):
+                group.append(run)
+                break
+        else:
+            groups.append([run])
+    return max(groups, key=len) if groups else []
+
+
+def analyse(config: CampaignConfig, runs: list) -> dict:
+    """The campaign methods on the loaded runs; problems become warnings, not a crash."""
+    from kinetics.campaign.design import varied_factors
+    from kinetics.campaign.initial_rates import orders_from_initial_rates
+    from kinetics.campaign.rpka import same_excess_pairs
+    from kinetics.campaign.vtna import vtna
+
+    found = {"warnings": [], "notes": [], "same_excess": (), "excluded": (), "fit": None, "fit_all": None,
+             "vtna": None, "initial_rates": None}
+    warnings, notes = found["warnings"], found["notes"]
+    if len(runs) < 2:
+        warnings.append(f"only {len(runs)} run(s) could be loaded: no campaign analysis")
+        return found
+    reactant, partner = config.reactant, config.partner
+    if partner is not None:
+        try:
+            found["same_excess"] = tuple(same_excess_pairs(runs, reactant, partner))
+        except KineticsError as error:
+            notes.append(f"same-excess check skipped: {error}")
+    slower = tuple(dict.fromkeys(r.slower for r in found["same_excess"] if r.flagged and r.slower))
+    for r in found["same_excess"]:
+        if r.flagged:
+            warnings.append(f"runs {r.early} and {r.late} have the same excess but do not overlay: {r.message}")
+    fit_runs = runs
+    if slower and config.exclude_flagged_runs and len(runs) - len(slower) >= 2:
+        fit_runs = [run for run in runs if run.label not in slower]
+        found["excluded"] = slower
+        warnings.append(f"the global fit leaves out {', '.join(slower)} (slower than its same-excess partner at the "
+                        "same composition); the fit of every run is reported beside it")
+    try:
+        found["fit"] = _global_fit(config, fit_runs)
+        warnings.extend(found["fit"].warnings)
+    except KineticsError as error:
+        warnings.append(f"the global fit failed: {error}")
+    if found["excluded"]:
+        try:
+            found["fit_all"] = _global_fit(config, runs)
+        except KineticsError as error:
+            notes.append(f"the fit of every run failed: {error}")
+    clean = [run for run in runs if run.label not in found["excluded"]]
+    law_species = [s for s, _ in config.orders if s != reactant]
+    group = _vtna_runs(config, clean)
+    if len(group) >= 2:
+        names = []
+        for name in law_species:
+            factor = "catalyst" if name == config.catalyst else name
+            if varied_factors(group, [factor])[factor]:
+                names.append(name)
+        if names:
+            try:
+                found["vtna"] = vtna(group, names[:3], reactant, catalyst=config.catalyst or "cat")
+            except KineticsError as error:
+                notes.append(f"VTNA skipped: {error}")
+    factors = []
+    for name in [reactant] + law_species:
+        factor = "catalyst" if name == config.catalyst else name
+        if varied_factors(clean, [factor])[factor]:
+            factors.append(factor)
+    if factors and len(clean) > len(factors) + 1:
+        try:
+            found["initial_rates"] = orders_from_initial_rates(clean, factors, reactant,
+                                                               max_conversion=INITIAL_RATE_MAX_CONVERSION)
+        except KineticsError as error:
+            notes.append(f"initial rates skipped: {error}")
+    return found
+
+
+# ---------------------------------------------------------------- stage 3: outputs
+def _save(figure, out_dir: Path, name: str) -> list:
+    paths = []
+    for suffix in ("png", "svg"):
+        path = out_dir / f"{name}.{suffix}"
+        figure.savefig(path, dpi=120 if suffix == "png" else None)
+        paths.append(path)
+    return paths
+
+
+def write_outputs(outcome: CampaignOutcome) -> list:
+    """Tables (CSV), figures (PNG, SVG) and ``summary.json`` into the out folder."""
+    from kinetics.campaign import figures as fg
+    from kinetics.jsonio import dumps
+
+    out, files = outcome.out_dir, []
+    config = outcome.config
+    design = pd.DataFrame([{"run": r["label"], "loaded": r["loaded"], "excluded_from_fit": r["excluded_from_fit"],
+                            "temperature_kelvin": r["temperature_kelvin"],
+                            "catalyst_mol_per_l": r["catalyst_mol_per_l"],
+                            **{f"initial_{k}_mol_per_l": v for k, v in r["initial_mol_per_l"].items()},
+                            **r["factors"], "n_points": r.get("n_points"), "source": r["source"]}
+                           for r in outcome.to_dict()["runs"]])
+    files.append(out / "runs.csv")
+    design.to_csv(files[-1], index=False)
+    by_label = {run.label: run for run in outcome.runs}
+    for name, fit in (("global_fit", outcome.fit), ("global_fit_all_runs", outcome.fit_all)):
+        if fit is None:
+            continue
+        rows = [{"parameter": p.name, **{k: v for k, v in p.to_dict().items() if k != "ci95"},
+                 "ci95_low": (p.to_dict().get("ci95") or (None, None))[0],
+                 "ci95_high": (p.to_dict().get("ci95") or (None, None))[1]} for p in fit.parameters]
+        files.append(out / f"{name}.csv")
+        pd.DataFrame(rows).to_csv(files[-1], index=False)
+        used = [by_label[label] for label in dict.fromkeys(b[0] for b in fit.blocks)]
+        try:
+            files += _save(fg.global_fit_figure(fit, used, config.reactant), out, name)
+        except (KineticsError, KeyError, ValueError) as error:
+            log.warning("figure %s skipped: %s", name, error)
+    if outcome.same_excess:
+        files.append(out / "same_excess.csv")
+        pd.DataFrame([{k: v for k, v in r.to_dict().items() if k != "rate_ratio_ci95"}
+                      | {"rate_ratio_ci95_low": r.rate_ratio_ci95[0], "rate_ratio_ci95_high": r.rate_ratio_ci95[1]}
+                      for r in outcome.same_excess]).to_csv(files[-1], index=False)
+        for i, r in enumerate(outcome.same_excess, start=1):
+            files += _save(fg.same_excess_figure(r, by_label[r.early], by_label[r.late], config.reactant), out,
+                           f"same_excess_{i}")
+    if outcome.vtna is not None:
+        files.append(out / "vtna.csv")
+        pd.DataFrame([{"species": name, "order": order, "ci95_low": outcome.vtna.intervals.get(name, (None,))[0],
+                       "ci95_high": outcome.vtna.intervals.get(name, (None, None))[1]}
+                      for name, order in outcome.vtna.orders.items()]).to_csv(files[-1], index=False)
+        files += _save(fg.vtna_figure(outcome.vtna, [by_label[label] for label in outcome.vtna.labels]), out, "vtna")
+    if outcome.initial_rates is not None:
+        files.append(out / "initial_rates.csv")
+        pd.DataFrame([{"run": r.label, "rate_mol_per_l_s": r.rate_mol_per_l_s, "stderr": r.stderr,
+                       "n_points": r.n_points} for r in outcome.initial_rates.rates]).to_csv(files[-1], index=False)
+        files += _save(fg.initial_rates_figure(outcome.initial_rates), out, "initial_rates")
+    files.append(out / "summary.json")
+    document = outcome.to_dict()
+    document["files"] = [str(p) for p in files]
+    files[-1].write_text(dumps(document) + "\n", encoding="utf-8")
+    return files
+
+
+# ---------------------------------------------------------------- the whole job
+def run_campaign(config: CampaignConfig | str | Path, out_dir: str | Path, *, scheduler: str | None = None,
+                 workers: int | None = None, loader: Callable = load_run, outputs: bool = True) -> CampaignOutcome:
+    """Load every run (tasks), analyse them together, write the outputs (see the module docstring).
+
+    ``loader(run, runs_dir, species) -> LoadedRun`` is the task (tests wrap it to inject faults).
+    """
+    from dataclasses import replace
+
+    from kinetics.campaign.config import load_campaign_config
+    from kinetics.run.outputs import prepare_out_dir
+
+    if not isinstance(config, CampaignConfig):
+        config = load_campaign_config(config)
+    out = prepare_out_dir(Path(out_dir))
+    runs_dir = out / "runs"
+    loaded, failures, info = execute(config, runs_dir, scheduler=scheduler, workers=workers, loader=loader)
+    runs, warnings = [], []
+    for run in config.runs:
+        got = loaded.get(run.label)
+        if got is None:
+            continue
+        try:
+            runs.append(_campaign_run(run, got))
+        except KineticsError as error:
+            failures.append(RunFailure(run.label, run.source, str(error)))
+            loaded.pop(run.label)
+            continue
+        warnings.extend(got.warnings)
+    for failure in failures:
+        warnings.insert(0, f"run {failure.label} could not be used ({failure.source}): {failure.reason}")
+    started = time.perf_counter()
+    found = analyse(config, runs)
+    info["analysis_seconds"] = time.perf_counter() - started
+    outcome = CampaignOutcome(config, out, tuple(runs), loaded, tuple(failures), found["fit"], found["fit_all"],
+                              found["excluded"], found["same_excess"], found["vtna"], found["initial_rates"],
+                              tuple(dict.fromkeys(warnings + found["warnings"])), tuple(found["notes"]), info)
+    if outputs:
+        outcome = replace(outcome, files=tuple(write_outputs(outcome)))
+    return outcome
+
+
+__all__ = ["CampaignOutcome", "LoadedRun", "RunFailure", "analyse", "execute", "load_run", "run_campaign",
+           "write_outputs"]
