@@ -660,3 +660,93 @@ def _bench_signals(quick: bool) -> list[BenchRow]:
 
 
 SECTIONS.append(("signals", lambda quick: _bench_signals(quick) + _bench_32k_integrals(quick)))
+
+
+# ---------------------------------------------------------------- campaign (issue 13)
+def _campaign_config(n_runs: int, folder):
+    """A campaign of ``n_runs`` run configs over the demo spectra (the four demo folders in
+    turn), first order in the ester, each run with its own ledger."""
+    from pathlib import Path
+
+    from kinetics.campaign.config import campaign_config_from_dict
+
+    root = Path(__file__).resolve().parents[1]
+    temperatures = {"run_25C": 25, "run_35C": 35, "run_45C": 45, "run_55C": 55}
+    runs = []
+    for i in range(n_runs):
+        name = list(temperatures)[i % 4]
+        runs.append({"label": f"run {i + 1:02d} {name}", "config": str(root / "configs" / "demo_run.toml"),
+                     "folder": str(root / "demo_series" / name), "temperature_c": temperatures[name],
+                     "initial": {"ester": 0.40}})
+    raw = {"campaign": {"name": "bench", "reactant": "ester", "orders": {"ester": 1},
+                        "stoichiometry": {"ester": -1, "alcohol": 1}, "scheduler": "none"}, "runs": runs}
+    return campaign_config_from_dict(raw, Path(folder) / "bench_campaign.toml")
+
+
+def campaign_noop_task(run, runs_dir, species):
+    """A task that does no work (the bench's measure of scheduling overhead)."""
+    from kinetics.campaign.runner import LoadedRun
+
+    t = np.arange(3.0)
+    return LoadedRun(run.label, t, {"ester": t}, {}, "none")
+
+
+def _bench_campaign(quick: bool) -> list[BenchRow]:
+    """The runs of a campaign as tasks: in this process (1 worker) and on a local Dask cluster
+    of 2 worker processes (cluster start-up excluded: it is paid once per campaign, a few
+    seconds, and is timed in its own row); the scheduling overhead per run from tasks that
+    do no work.  Each run is a run config through the run engine (36 demo spectra) with a
+    fresh ledger.  Floor of the cluster rows: the in-process time divided by the 2 workers."""
+    import os
+    import tempfile
+
+    from kinetics.campaign.runner import execute
+
+    try:
+        from distributed import Client, LocalCluster
+    except ImportError:  # pragma: no cover - a declared dependency
+        return [BenchRow("campaign", "dask.distributed not installed: skipped", 0.0, 0.0, 0)]
+    n_runs = 4 if quick else 16
+    repeats = 1 if quick else 3
+    rows = []
+    with tempfile.TemporaryDirectory() as tmp:
+        config = _campaign_config(n_runs, tmp)
+        counter = iter(range(10**6))
+
+        def campaign(scheduler, workers=None):
+            loaded, failures, _ = execute(config, f"{tmp}/runs-{next(counter)}", scheduler=scheduler, workers=workers)
+            assert not failures, failures
+            return loaded
+
+        one, one_p95 = time_runs(lambda: campaign("none"), repeats, warmup=0 if quick else 1)
+        rows.append(BenchRow("campaign", f"{n_runs}-run campaign (engine), 1 worker, in process", one, one_p95,
+                             repeats, note=f"{one / n_runs * 1e3:.0f} ms per run"))
+        started = time.perf_counter()
+        with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                          dashboard_address=None) as cluster, Client(cluster):
+            startup = time.perf_counter() - started
+            address = cluster.scheduler_address
+            campaign(address)  # warm the workers (imports)
+            two, two_p95 = time_runs(lambda: campaign(address), repeats, warmup=0)
+            rows.append(BenchRow("campaign", "  same, local Dask cluster of 2 workers", two, two_p95, repeats,
+                                 one / 2, f"speed-up {one / two:.2f}x on 2 workers; floor = 1-worker time / 2; "
+                                 f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.1f} "
+                                 "(other work on the cores lowers the speed-up)"))
+            n_noop = 64
+            noop_config = _campaign_config(n_noop, tmp)
+
+            def noops(scheduler):
+                execute(noop_config, f"{tmp}/noop", scheduler=scheduler, loader=campaign_noop_task)
+
+            noop, noop_p95 = time_runs(lambda: noops(address), repeats, warmup=1)
+            here, _ = time_runs(lambda: noops("none"), repeats, warmup=1)
+            rows.append(BenchRow("campaign", f"scheduling overhead per run ({n_noop} no-op tasks, 2 workers)",
+                                 noop / n_noop, noop_p95 / n_noop, repeats, here / n_noop,
+                                 "floor = the same no-op task called in process"))
+        rows.append(BenchRow("campaign", "local cluster start-up (2 worker processes)",
+                             startup, startup, 1,
+                             note="paid once per campaign on the default scheduler"))
+    return rows
+
+
+SECTIONS.append(("campaign", _bench_campaign))

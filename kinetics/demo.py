@@ -139,6 +139,9 @@ def make_demo_data(folder: str | Path) -> list[Path]:
         }
         (path / "truth.json").write_text(json.dumps(truth, indent=2) + "\n")
         written.append(path)
+    from kinetics.campaign.demo import write_series as write_campaign_series
+
+    write_campaign_series(folder / "campaign")  # the demo campaign's series tables (their own seed)
     return written
 
 

@@ -132,7 +132,8 @@ class CampaignConfig:
             return PowerLaw(dict(self.orders), dict(self.stoichiometry), reactant=self.reactant,
                             catalyst=self.catalyst or "cat", inhibitors=dict(self.inhibitors))
         except ConfigError as error:
-            raise ConfigError(f"campaign.{error.key}", error.problem, error.hint) from None
+            key = error.key.replace("coefficients", "stoichiometry", 1)
+            raise ConfigError(f"campaign.{key}", error.problem, error.hint) from None
 
     def model_species(self) -> tuple:
         """Species whose concentration columns a run may carry (the law's or the mechanism's)."""
@@ -196,6 +197,11 @@ def _workers(value, key: str) -> int:
     if isinstance(value, bool) or not isinstance(value, int) or value < 1:
         raise ConfigError(key, f"expected a whole number of workers >= 1, got {value!r}")
     return int(value)
+
+
+def run_folder_name(label: str) -> str:
+    """The folder (under ``<out>/runs/``) of a run's ledger: its label in letters, digits and _."""
+    return "".join(c if c.isalnum() else "_" for c in label).strip("_").lower() or "run"
 
 
 def _campaign_run(raw, index: int, base: Path) -> CampaignRunConfig:
@@ -301,6 +307,15 @@ def campaign_config_from_dict(raw: Mapping[str, Any], path: str | Path) -> Campa
     for i, label in enumerate(labels):
         if label in labels[:i]:
             raise ConfigError(f"runs[{i}].label", f"two runs are labelled {label!r}", hint="labels must be unique")
+    folders = {}
+    for run in runs:
+        if run.config is None:
+            continue
+        slug = run_folder_name(run.label)
+        if slug in folders:
+            raise ConfigError(f"{run.key}.label", f"runs {folders[slug]!r} and {run.label!r} would share the ledger "
+                              f"folder runs/{slug}", hint="give labels that differ in letters or digits")
+        folders[slug] = run.label
     if catalyst is not None and any(name == catalyst for name, _ in orders):
         for run in runs:
             if run.catalyst_mol_per_l is None:

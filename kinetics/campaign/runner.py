@@ -41,9 +41,10 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from kinetics.campaign.config import SCHEDULER_LOCAL, SCHEDULER_NONE, CampaignConfig, CampaignRunConfig
+from kinetics.campaign.config import (SCHEDULER_LOCAL, SCHEDULER_NONE, CampaignConfig, CampaignRunConfig,
+                                      run_folder_name)
 from kinetics.campaign.design import CampaignRun
-from kinetics.errors import ConfigError, FitError, InputFileError, KineticsError
+from kinetics.errors import ConfigError, InputFileError, KineticsError
 
 log = logging.getLogger(__name__)
 
@@ -74,8 +75,7 @@ class RunFailure:
     reason: str
 
 
-def _slug(text: str) -> str:
-    return "".join(c if c.isalnum() else "_" for c in text).strip("_").lower() or "run"
+_slug = run_folder_name
 
 
 # ---------------------------------------------------------------- stage 1: one run (a task)
@@ -403,10 +403,20 @@ def analyse(config: CampaignConfig, runs: list) -> dict:
         return found
     reactant, partner = config.reactant, config.partner
     if partner is not None:
-        try:
-            found["same_excess"] = tuple(same_excess_pairs(runs, reactant, partner))
-        except KineticsError as error:
-            notes.append(f"same-excess check skipped: {error}")
+        # same-excess pairs are compared at one temperature only
+        by_temperature = {}
+        for run in runs:
+            key = None if run.temperature_kelvin is None else round(run.temperature_kelvin / 0.05)
+            by_temperature.setdefault(key, []).append(run)
+        pairs = []
+        for group in by_temperature.values():
+            if len(group) < 2:
+                continue
+            try:
+                pairs.extend(same_excess_pairs(group, reactant, partner))
+            except KineticsError as error:
+                notes.append(f"same-excess check skipped: {error}")
+        found["same_excess"] = tuple(pairs)
     slower = tuple(dict.fromkeys(r.slower for r in found["same_excess"] if r.flagged and r.slower))
     for r in found["same_excess"]:
         if r.flagged:
