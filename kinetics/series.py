@@ -51,7 +51,7 @@ import numpy as np
 import pandas as pd
 
 from kinetics import lineshapes, quantify, signals as sg
-from kinetics.config import IntegrationConfig, RunConfig, load_run_config
+from kinetics.config import IntegrationConfig, RunConfig
 from kinetics.errors import ConfigError, FitError, InputFileError
 from kinetics.spectra.spectrum import Spectrum, sha256_of_file
 
@@ -885,46 +885,6 @@ def _derived(config, species_c, species_s, names, table, warnings) -> None:
         table["mass_balance_flag"] = balance.flagged
         # a flagged balance reaches the fit's warnings through the engine's refit
         # (kinetics.rates.diagnostics.mass_balance_note over this column and the file names)
-
-
-@dataclass(frozen=True)
-class SeriesRun:
-    """A batch run: the table and the per-file measurements behind it."""
-
-    table: pd.DataFrame
-    measurements: tuple[FileMeasurement, ...]
-    reference: Reference
-    config: RunConfig = field(repr=False)
-
-
-def run_series(config: RunConfig) -> SeriesRun:
-    """Batch path without output files: the folder through the run engine, in memory.
-
-    The same engine as ``kinetics run`` (:func:`kinetics.run.engine.batch_run`), with an
-    in-memory ledger: the same reference spectrum, the same table.  A file that cannot be
-    measured is quarantined (left out of the table) as in any run.
-    """
-    from kinetics.run.engine import RunState, plan_from_config, ready_files
-
-    list_files(config)  # a clear error for a missing folder or no matching file
-    plan = plan_from_config(config, require_named=False)
-    state = RunState(plan, None)
-    try:
-        state.take(ready_files(plan.spec))
-        table = state.source.table(final=True)
-        measured = state.source.measurements()
-    finally:
-        state.close()
-    if not measured:
-        raise FitError("no file of the run could be measured")
-    by_file = {m.file: m for m in measured}
-    ordered = tuple(by_file[name] for name in table["file"])
-    return SeriesRun(table, ordered, plan.measure.reference, config)
-
-
-def run_config_to_table(path: str | Path) -> pd.DataFrame:
-    """Load a single-run TOML config and return its tidy table."""
-    return run_series(load_run_config(path)).table
 
 
 def write_table(df: pd.DataFrame, path: str | Path) -> list[Path]:

@@ -16,7 +16,8 @@ from kinetics import simulate as sim
 from kinetics.cli import main
 from kinetics.config import run_config_from_dict
 from kinetics.errors import ConfigError
-from kinetics.series import (list_files, make_reference, measure_file, run_config_to_table, run_series,
+from kinetics.run import run_config_to_table, run_series
+from kinetics.series import (list_files, make_reference, measure_file,
                              table_from_measurements, write_table)
 from kinetics.spectra.spectrum import sha256_of_file
 

@@ -7,7 +7,7 @@ import pytest
 
 from kinetics import lineshapes, simulate as sim
 from kinetics.config import run_config_from_dict
-from kinetics.series import run_series
+from kinetics.run import run_series
 from kinetics.signals import Component, LineShape, deconvolve
 
 C0 = 0.5  # mol/L of the reactant at t = 0 (the test's truth)

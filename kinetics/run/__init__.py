@@ -16,12 +16,12 @@ studies given as run configs and campaigns.
 * :mod:`kinetics.run.job` - ``kinetics run`` end to end (run or study config, report).
 """
 
-from kinetics.run.engine import (LedgerTable, RunPlan, RunState, RunSummary, batch_run, plan_from_config,
-                                 process_ready, ready_files)
+from kinetics.run.engine import (LedgerTable, RunPlan, RunState, RunSummary, SeriesRun, batch_run, plan_from_config,
+                                 process_ready, ready_files, run_config_to_table, run_series)
 from kinetics.run.files import ReadyFile, WatchSpec
 from kinetics.run.refit import FitOutcome, RatesRefitter, refitter_from_config
 from kinetics.run.state import SeriesMeasurer, SeriesState
 
-__all__ = ["FitOutcome", "LedgerTable", "RatesRefitter", "ReadyFile", "RunPlan", "RunState", "RunSummary",
+__all__ = ["FitOutcome", "LedgerTable", "RatesRefitter", "ReadyFile", "RunPlan", "RunState", "RunSummary", "SeriesRun",
            "SeriesMeasurer", "SeriesState", "WatchSpec", "batch_run", "plan_from_config", "process_ready",
-           "ready_files", "refitter_from_config"]
+           "ready_files", "refitter_from_config", "run_config_to_table", "run_series"]

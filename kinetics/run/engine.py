@@ -46,7 +46,8 @@ from typing import Callable, Protocol
 import pandas as pd
 
 from kinetics.config import RunConfig, load_run_config
-from kinetics.errors import ConfigError, InputFileError, KineticsError
+from kinetics import series
+from kinetics.errors import ConfigError, FitError, InputFileError, KineticsError
 from kinetics.linalg import small_linear_algebra
 from kinetics.run.files import ReadyFile, WatchSpec, acquisition_sort_key, check_folder, list_wanted
 from kinetics.run.outputs import (LEDGER_NAME, RunLock, figure_png, prepare_out_dir, remove_stale_temporaries,
@@ -477,7 +478,6 @@ class RunState:
             reference = measure.reference
             reference_path = measure.reference_path or (self.ledger.first_record() or {}).get("reference")
             if reference is None and reference_path is not None:  # a restart that measured nothing new
-                from kinetics import series
 
                 reference = series.make_reference(self.source.folder / reference_path, self.plan.config)
             many = self.parallel_assessment and len(self.source) >= PARALLEL_MIN_FILES
@@ -582,3 +582,42 @@ def batch_run(plan: RunPlan | RunConfig | str | Path, out_dir: Path, *, parallel
 
 __all__ = ["LedgerTable", "Measurer", "PARALLEL_MIN_FILES", "RunPlan", "RunState", "RunSummary",
            "TableSource", "batch_run", "plan_from_config", "process_ready", "ready_files"]
+
+
+# ---------------------------------------------------------------- in memory
+@dataclass(frozen=True)
+class SeriesRun:
+    """A batch run: the table and the per-file measurements behind it."""
+
+    table: pd.DataFrame
+    measurements: tuple[series.FileMeasurement, ...]
+    reference: series.Reference
+    config: RunConfig = field(repr=False)
+
+
+def run_series(config: RunConfig) -> SeriesRun:
+    """Batch path without output files: the folder through the run engine, in memory.
+
+    The same engine as ``kinetics run`` (:func:`kinetics.run.engine.batch_run`), with an
+    in-memory ledger: the same reference spectrum, the same table.  A file that cannot be
+    measured is quarantined (left out of the table) as in any run.
+    """
+    series.list_files(config)  # a clear error for a missing folder or no matching file
+    plan = plan_from_config(config, require_named=False)
+    state = RunState(plan, None)
+    try:
+        state.take(ready_files(plan.spec))
+        table = state.source.table(final=True)
+        measured = state.source.measurements()
+    finally:
+        state.close()
+    if not measured:
+        raise FitError("no file of the run could be measured")
+    by_file = {m.file: m for m in measured}
+    ordered = tuple(by_file[name] for name in table["file"])
+    return SeriesRun(table, ordered, plan.measure.reference, config)
+
+
+def run_config_to_table(path: str | Path) -> pd.DataFrame:
+    """Load a single-run TOML config and return its tidy table."""
+    return run_series(load_run_config(path)).table

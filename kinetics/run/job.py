@@ -22,6 +22,7 @@ import numpy as np
 import pandas as pd
 
 from kinetics import report as rp
+from kinetics.numbers import format_estimate
 from kinetics.errors import InputFileError, KineticsError
 
 log = logging.getLogger(__name__)
@@ -145,7 +146,7 @@ def run_sections(run: RunOutcome, config, with_spectra: bool, comparison: bool) 
             windows = [(sig.name, min(sig.window_ppm), max(sig.window_ppm)) for sig in config.signals]
             times = run.table["time_s"].to_numpy(float)
             sections.append(rp.spectra_section([s for _, s in picked], windows=windows,
-                                               time_s=[times[i] for i, _ in picked],
+                                               time_s=[times[i] for i, _ in picked], total=len(files),
                                                heading=f"Spectra through time: {run.label}"))
     if run.fit is not None:
         ranking = None
@@ -177,40 +178,36 @@ def inputs_of(runs: list[RunOutcome]) -> pd.DataFrame:
 
 
 def summary_of(runs: list[RunOutcome], study=None) -> dict[str, str]:
+    """The report's key results, value and uncertainty rounded together (:mod:`kinetics.numbers`)."""
     summary = {}
     for run in runs:
         k = run.k()
         if k and k.get("value") is not None and k.get("ci95"):
-            lo, hi = k["ci95"]
-            summary[f"k, {run.label}"] = f"{k['value']:.4g} {k['unit']} (95 %: {lo:.4g} to {hi:.4g})"
+            summary[f"k, {run.label}"] = format_estimate(k)
             if run.breakdown():
                 summary[f"k, {run.label}"] += f"; {run.breakdown()}"
+        elif run.fit is not None:
+            summary[f"k, {run.label}"] = f"no rate constant quoted: {run.fit.message}"
     if study is not None and study.temperature is not None:
         data = study.temperature.to_dict()
         for key, label in (("ea_kj_per_mol", "Ea"), ("dh_kj_per_mol", "dH‡"), ("ds_j_per_mol_k", "dS‡")):
             entry = data.get(key) or {}
             if entry.get("value") is not None and entry.get("ci95"):
-                summary[label] = (f"{entry['value']:.4g} {entry['unit']} (95 %: {entry['ci95'][0]:.4g} "
-                                  f"to {entry['ci95'][1]:.4g})")
+                summary[label] = format_estimate(entry)
     return summary
 
 
 def study_sections(study) -> list:
     sections = []
+    global_result = study.global_result if (study.global_result is not None and study.global_result.success) else None
     if study.temperature is not None:
-        sections.append(rp.temperature_section(study.temperature, heading="Temperature dependence (two-step)"))
+        sections.append(rp.temperature_section(study.temperature, heading="Temperature dependence (two-step)",
+                                               global_result=global_result))
     if study.global_result is not None:
-        blocks = []
         try:
-            blocks.append(rp.TableBlock("Two-step and global estimates compared",
-                                        pd.DataFrame(study.global_result.comparison()),
-                                        name="two_step_vs_global",
-                                        caption="Global: every concentration of every run fitted at once with "
-                                                "k(T) = k_ref exp(-(Ea/R)(1/T - 1/T_ref))."))
-        except KineticsError as error:
-            log.warning("global-fit comparison table skipped: %s", error)
-        blocks.append(rp.TextBlock("Global fit report", (study.global_result.report(),), preformatted=True))
-        sections.append(rp.Section("Global fit across temperature", tuple(blocks)))
+            sections.append(rp.global_section(study.global_result, list(study.runs)))
+        except KineticsError as error:  # a failed global fit must not lose the rest of the report
+            log.warning("global-fit section skipped: %s", error)
     return sections
 
 

@@ -16,12 +16,10 @@ from __future__ import annotations
 import base64
 import fcntl
 import html
-import io
 import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 
 from kinetics.atomic import write_atomic
@@ -173,33 +171,10 @@ def render_png(table: pd.DataFrame, signals: list[str], curve: dict | None = Non
     curve : dict, optional
         ``{"time_s": [...], name: [...]}`` of the fitted model.
     """
-    from matplotlib.figure import Figure  # no pyplot: no global state, no window
+    from kinetics import plots  # the one figure style; imported here to keep matplotlib off the import path
 
-    figure = Figure(figsize=(7.0, 4.0), dpi=90)
-    axes = figure.add_subplot()
-    if len(table):
-        for name in signals:
-            if name not in table:
-                continue
-            stderr = table.get(f"{name}{sigma_suffix}")
-            axes.errorbar(table["time_s"], table[name],
-                          yerr=None if stderr is None else stderr.to_numpy(dtype=float),
-                          fmt="o", markersize=3, capsize=0, label=name)
-    if curve:
-        time_s = np.asarray(curve.get("time_s", []), dtype=float)
-        for name, values in curve.items():
-            if name != "time_s" and len(values) == len(time_s):
-                axes.plot(time_s, values, "-", linewidth=1.2, label=f"{name} fit")
-    axes.set_xlabel("time from start / s")
-    axes.set_ylabel("concentration")
-    if title:
-        axes.set_title(title, fontsize=10)
-    if axes.get_legend_handles_labels()[0]:
-        axes.legend(fontsize=8)
-    figure.tight_layout()
-    buffer = io.BytesIO()
-    figure.savefig(buffer, format="png")
-    return buffer.getvalue()
+    figure = plots.live_figure(table, signals, curve, sigma_suffix=sigma_suffix, title=title or None)
+    return plots.png_bytes(figure, dpi=110)
 
 
 # ---------------------------------------------------------------- page
