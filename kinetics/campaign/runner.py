@@ -451,6 +451,8 @@ def analyse(config: CampaignConfig, runs: list) -> dict:
                 found["vtna"] = vtna(group, names[:3], reactant, catalyst=config.catalyst or "cat")
             except KineticsError as error:
                 notes.append(f"VTNA skipped: {error}")
+    if found["vtna"] is not None and found["fit"] is not None:
+        found["warnings"] += _methods_disagree(found["vtna"], found["fit"])
     factors = []
     for name in [reactant] + law_species:
         factor = "catalyst" if name == config.catalyst else name
@@ -463,6 +465,32 @@ def analyse(config: CampaignConfig, runs: list) -> dict:
         except KineticsError as error:
             notes.append(f"initial rates skipped: {error}")
     return found
+
+
+def _methods_disagree(vtna_result, fit) -> list[str]:
+    """A warning for each order on which VTNA and the global fit exclude each other.
+
+    Both are estimates of the same order from the same runs; when their 95 % intervals do
+    not overlap, at least one of the models behind them (the power law of the fit, the
+    overlay of VTNA) does not describe the data, and neither number should be quoted alone.
+    """
+    messages = []
+    for name, order in vtna_result.orders.items():
+        lo_v, hi_v = vtna_result.intervals.get(name, (math.nan, math.nan))
+        try:
+            estimate = fit.param(f"order_{name}")
+        except KeyError:
+            continue
+        interval = estimate.ci_profile or estimate.ci_covariance
+        if interval is None or not all(math.isfinite(x) for x in (lo_v, hi_v, *interval)):
+            continue
+        if hi_v < interval[0] or lo_v > interval[1]:
+            messages.append(
+                f"the order in {name} from VTNA ({order:.3g}, 95 %: {lo_v:.3g} .. {hi_v:.3g}) and from the "
+                f"global fit ({estimate.value:.3g}, 95 %: {interval[0]:.3g} .. {interval[1]:.3g}) exclude each "
+                f"other: the rate law or the overlay does not describe every run; look at the per-run residuals "
+                f"and the VTNA overlay before quoting either")
+    return messages
 
 
 # ---------------------------------------------------------------- stage 3: outputs
