@@ -6,7 +6,11 @@
 * :mod:`~kinetics.campaign.vtna` -- Variable Time Normalization Analysis;
 * :mod:`~kinetics.campaign.rpka` -- Reaction Progress Kinetic Analysis (same / different excess);
 * :mod:`~kinetics.campaign.initial_rates` -- initial rates and log-log orders;
-* :mod:`~kinetics.campaign.figures` -- one figure per method.
+* :mod:`~kinetics.campaign.smoothing` -- smoothed courses and their derivatives;
+* :mod:`~kinetics.campaign.figures` -- one figure per method;
+* :mod:`~kinetics.campaign.config` -- the campaign config, validated once into records;
+* :mod:`~kinetics.campaign.runner` -- ``kinetics run CAMPAIGN.toml``: runs as Dask tasks, then the fits;
+* :mod:`~kinetics.campaign.demo` -- the invented demo campaign.
 """
 
 from kinetics.campaign.design import CampaignRun, check_campaign, varied_factors
