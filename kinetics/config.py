@@ -885,18 +885,33 @@ def study_config_from_dict(raw: Mapping[str, Any], path: str | Path) -> StudyCon
         interval_basis=basis, runs=records)
 
 
-def load_study_config(path: str | Path) -> StudyConfig:
-    """Read and validate a temperature-study TOML file (errors name the file)."""
+def read_toml(path: str | Path) -> dict:
+    """A TOML file as a dict: the one reader of study and campaign configs and of config-kind checks.
+
+    Unreadable or invalid files raise :class:`~kinetics.errors.InputFileError` naming the
+    file (and the line of a syntax error) and what to do.
+    """
     from kinetics.errors import InputFileError
 
     path = Path(path)
     try:
         with open(path, "rb") as handle:
-            raw = tomllib.load(handle)
+            return tomllib.load(handle)
     except FileNotFoundError:
-        raise InputFileError(path, "study config not found") from None
+        raise InputFileError(path, "config file not found", hint="check the path") from None
+    except IsADirectoryError:
+        raise InputFileError(path, "is a folder, not a config file", hint="give the .toml file") from None
     except tomllib.TOMLDecodeError as error:
-        raise InputFileError(path, f"not valid TOML ({error})", line=getattr(error, "lineno", None)) from None
+        raise InputFileError(path, f"not valid TOML: {error}", line=getattr(error, "lineno", None),
+                             hint="fix the syntax at the place named") from None
+    except UnicodeDecodeError:
+        raise InputFileError(path, "not a text file", hint="give the .toml config") from None
+
+
+def load_study_config(path: str | Path) -> StudyConfig:
+    """Read and validate a temperature-study TOML file (errors name the file)."""
+    path = Path(path)
+    raw = read_toml(path)
     try:
         return study_config_from_dict(raw, path)
     except ConfigError as error:

@@ -40,12 +40,11 @@ Keys
 from __future__ import annotations
 
 import math
-import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Mapping
 
-from kinetics.config import TIME_UNITS_S, _bool, _check_keys, _choice, _number, _string, _table
+from kinetics.config import TIME_UNITS_S, _bool, _check_keys, _choice, _number, _string, _table, read_toml
 from kinetics.errors import ConfigError, InputFileError
 
 SCHEDULER_LOCAL = "local"
@@ -333,22 +332,6 @@ def campaign_config_from_dict(raw: Mapping[str, Any], path: str | Path) -> Campa
         scheduler=scheduler, workers=workers, runs=runs)
     config.power_law()  # the law's own checks (a species with an order but no coefficient ...)
     return config
-
-
-def read_toml(path: str | Path) -> dict:
-    """A TOML file as a dict; unreadable or invalid files raise InputFileError naming the file."""
-    path = Path(path)
-    try:
-        with open(path, "rb") as handle:
-            return tomllib.load(handle)
-    except FileNotFoundError:
-        raise InputFileError(path, "config file not found", hint="check the path") from None
-    except IsADirectoryError:
-        raise InputFileError(path, "is a folder, not a config file", hint="give the .toml file") from None
-    except tomllib.TOMLDecodeError as error:
-        raise InputFileError(path, f"not valid TOML: {error}", hint="fix the syntax at the place named") from None
-    except UnicodeDecodeError:
-        raise InputFileError(path, "not a text file", hint="give the .toml config") from None
 
 
 def is_campaign_file(path: str | Path) -> bool:

@@ -13,7 +13,6 @@ plain record the CLI prints; none prints itself.
 from __future__ import annotations
 
 import logging
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -280,21 +279,9 @@ def run_study_config(config_path: str | Path, out_dir: str | Path, report: bool 
 
 def is_study_file(config_path: str | Path) -> bool:
     """True when the TOML file is a temperature study (a top-level ``[study]`` table)."""
-    from kinetics.config import is_study_config
+    from kinetics.config import is_study_config, read_toml
 
-    path = Path(config_path)
-    try:
-        with open(path, "rb") as handle:
-            raw = tomllib.load(handle)
-    except FileNotFoundError:
-        raise InputFileError(path, "config file not found", hint="check the path") from None
-    except IsADirectoryError:
-        raise InputFileError(path, "is a folder, not a config file", hint="give the .toml file") from None
-    except tomllib.TOMLDecodeError as error:
-        raise InputFileError(path, f"not valid TOML: {error}", hint="fix the syntax at the place named") from None
-    except UnicodeDecodeError:
-        raise InputFileError(path, "not a text file", hint="give the .toml config") from None
-    return is_study_config(raw)
+    return is_study_config(read_toml(config_path))
 
 
 # ---------------------------------------------------------------- campaign
