@@ -224,7 +224,8 @@ def _execute_dask(config, runs_dir, scheduler, workers, loader, species):
         if scheduler == SCHEDULER_LOCAL:
             n = _workers_for(config, workers)
             cluster = stack.enter_context(LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
-                                                       host="127.0.0.1", dashboard_address=None))
+                                                       host="127.0.0.1", dashboard_address=None,
+                                                       silence_logs=logging.WARNING))
             client = stack.enter_context(Client(cluster))
             where = f"local Dask cluster of {n} worker process(es)"
         else:
