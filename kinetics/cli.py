@@ -270,8 +270,6 @@ def _cmd_run(args) -> int:
             from kinetics.errors import ConfigError
 
             raise ConfigError("--workers", f"{args.workers} workers", hint="give 1 or more")
-        if not getattr(args, "verbose", False):  # Dask logs its cluster's life at INFO (workers too)
-            os.environ.setdefault("DASK_LOGGING__DISTRIBUTED", "warning")
         campaign = workflow.run_campaign_config(args.config, out, scheduler=args.scheduler, workers=args.workers)
         if args.json:
             _print_json(campaign.to_dict())
@@ -453,6 +451,8 @@ def main(argv: list[str] | None = None) -> int:
         format="%(levelname)s %(name)s: %(message)s",
         stream=sys.stderr,
     )
+    if not args.verbose:  # Dask logs its cluster's life at INFO (workers too); read when it is imported
+        os.environ.setdefault("DASK_LOGGING__DISTRIBUTED", "warning")
     try:
         return int(args.func(args) or 0)
     except KineticsError as error:
