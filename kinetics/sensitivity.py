@@ -56,7 +56,7 @@ a quartet 0.7 ppm away, acetyl singlets 0.12 ppm apart at 45:1, drift, phase err
 40 or 60 MHz) each with a reasonable config drawn at random, this interval held the
 true k in 95.0 % (statistical interval alone: 93.5 %; before solvent tails were modelled
 in the fit windows: 97.5 % against 81 %).  ``tests/test_independent_sensitivity.py``
-repeats a 30-run sample in CI; ``.notes/independent_coverage.py`` measures the 200.
+repeats a 30-run sample in CI; ``tools/independent_coverage.py`` measures the 200.
 
 Warnings: when ``q u_sys_eff`` exceeds the statistical half-width, a warning names the
 signal (or group) and the choice that moves k most, and by how much.
