@@ -143,6 +143,9 @@ def _add_watch(sub) -> None:
                    "(default: <config name>.live next to the config)")
     p.add_argument("--poll", action="store_true",
                    help="list the folder instead of file events (network shares)")
+    p.add_argument("--folder", type=Path, default=None, metavar="DIR",
+                   help="watch this folder instead of the config's [run] folder "
+                   "(with --replay: the folder the replay writes into; created if missing)")
     p.add_argument("--replay", type=Path, metavar="DIR",
                    help="feed this finished folder into the watched folder, as an instrument would")
     p.add_argument("--interval", type=float, default=2.0, metavar="S",

@@ -307,6 +307,35 @@ def _string(value, key: str) -> str:
     return value
 
 
+#: Longest name (signal, species, standard, group) a config may give, in characters.
+MAX_NAME_LENGTH = 200
+
+
+def _name(value, key: str) -> str:
+    """A signal or species name: a non-empty string of at most :data:`MAX_NAME_LENGTH` characters."""
+    value = _string(value, key)
+    if len(value) > MAX_NAME_LENGTH:
+        raise ConfigError(key, f"a name of {len(value)} characters; at most {MAX_NAME_LENGTH}",
+                          hint="use a short name (it labels tables, plots and the report)")
+    return value
+
+
+def _pattern(value, key: str = "run.pattern") -> str:
+    """A glob relative to the run folder that cannot leave it (no absolute path, no ``..``)."""
+    value = _string(value, key)
+    if len(value) > 1000 or "\0" in value:
+        raise ConfigError(key, "not a usable glob pattern", hint="e.g. '*.jdx'")
+    parts = re.split(r"[/\\]", value)
+    if (value.startswith(("/", "\\", "~")) or re.match(r"^[A-Za-z]:", value)
+            or Path(value).is_absolute()):
+        raise ConfigError(key, f"{value!r} is an absolute path; the pattern is relative to run.folder",
+                          hint="put the folder in run.folder and a glob such as '*.jdx' here")
+    if any(".." in part for part in parts):
+        raise ConfigError(key, f"{value!r} could match files outside run.folder ('..')",
+                          hint="point run.folder at the spectra and use a glob such as '*.jdx'")
+    return value
+
+
 def _choice(value, key: str, choices) -> str:
     if value not in choices:
         raise ConfigError(key, f"unknown choice {value!r}", hint=f"use one of {', '.join(choices)}")
@@ -344,6 +373,11 @@ def _ppm_range(value, key: str) -> tuple[float, float]:
     return (min(a, b), max(a, b))
 
 
+#: Years a reaction start may fall in (a sanity bound: times become float seconds downstream).
+_YEARS = (1900, 2999)
+_YEAR_HINT = f"give a UTC time between {_YEARS[0]} and {_YEARS[1]}, e.g. 2026-01-01T09:00:00Z"
+
+
 def parse_utc(value, key: str) -> datetime:
     """A TOML datetime or ISO 8601 string -> timezone-aware UTC datetime (naive = UTC)."""
     if isinstance(value, str):
@@ -356,7 +390,13 @@ def parse_utc(value, key: str) -> datetime:
         raise ConfigError(key, f"expected a date-time, got {value!r}")
     if value.tzinfo is None:
         value = value.replace(tzinfo=timezone.utc)
-    return value.astimezone(timezone.utc)
+    try:
+        value = value.astimezone(timezone.utc)
+    except (OverflowError, ValueError) as error:
+        raise ConfigError(key, f"{value.isoformat()} is out of range", hint=_YEAR_HINT) from error
+    if not _YEARS[0] <= value.year <= _YEARS[1]:
+        raise ConfigError(key, f"year {value.year} is not a plausible reaction time", hint=_YEAR_HINT)
+    return value
 
 
 # ---------------------------------------------------------------- sections
@@ -462,7 +502,7 @@ def signal_from_table(raw: Mapping, key: str) -> SignalDefinition:
     for required in ("name", "window_ppm", "nuclei"):
         if required not in raw:
             raise ConfigError(f"{key}.{required}", "missing")
-    name = _string(raw["name"], f"{key}.name")
+    name = _name(raw["name"], f"{key}.name")
     nuclei = raw["nuclei"]
     if isinstance(nuclei, bool) or not isinstance(nuclei, int) or nuclei < 1:
         raise ConfigError(f"{key}.nuclei", f"number of nuclei must be a whole number >= 1, got {nuclei!r}")
@@ -478,14 +518,14 @@ def signal_from_table(raw: Mapping, key: str) -> SignalDefinition:
     if conc is not None:
         conc = _number(conc, f"{key}.concentration_mol_per_l", 0, strict=True)
     return SignalDefinition(
-        name=name, species=_string(raw.get("species", name), f"{key}.species"),
+        name=name, species=_name(raw.get("species", name), f"{key}.species"),
         window_ppm=_ppm_range(raw["window_ppm"], f"{key}.window_ppm"), nuclei=nuclei, method=method,
         lineshape=None if shape is None else _lineshape(shape, f"{key}.lineshape"),
         concentration_mol_per_l=conc,
         concentration_sigma_mol_per_l=_number(raw.get("concentration_sigma_mol_per_l", 0.0),
                                               f"{key}.concentration_sigma_mol_per_l", 0),
         tolerance_ppm=_number(raw.get("tolerance_ppm", 0.0), f"{key}.tolerance_ppm", 0),
-        group=str(raw.get("group", "")),
+        group=_name(str(raw["group"]), f"{key}.group") if raw.get("group", "") != "" else "",
         correct_truncation=_bool(raw.get("correct_truncation", False), f"{key}.correct_truncation"),
     )
 
@@ -507,6 +547,8 @@ def _quantify_section(raw: Mapping, signals) -> QuantifyConfig:
     names = {s.name: i for i, s in enumerate(signals)}
     species = {s.species for s in signals}
     standard = raw.get("standard")
+    if standard is not None:
+        standard = _name(standard, "quantify.standard")
     if mode == "standard":
         if standard is None:
             if len(standards) != 1:
@@ -519,6 +561,8 @@ def _quantify_section(raw: Mapping, signals) -> QuantifyConfig:
             raise ConfigError(f"signals[{names[standard]}].concentration_mol_per_l",
                               f"signal {standard!r} is the standard but has no concentration")
     initial_species = raw.get("initial_species")
+    if initial_species is not None:
+        initial_species = _name(initial_species, "quantify.initial_species")
     c0 = raw.get("initial_concentration_mol_per_l")
     if mode == "initial":
         if initial_species not in species:
@@ -540,8 +584,12 @@ def _quantify_section(raw: Mapping, signals) -> QuantifyConfig:
     if flip > 180:
         raise ConfigError("quantify.flip_angle_deg", f"must be in (0, 180], got {flip}")
     for role in ("reactant", "product"):
-        if raw.get(role) is not None and raw[role] not in species:
-            raise ConfigError(f"quantify.{role}", f"{raw[role]!r} is not a tracked species")
+        if raw.get(role) is not None and _name(raw[role], f"quantify.{role}") not in species:
+            raise ConfigError(f"quantify.{role}", f"{raw[role]!r} is not a tracked species",
+                              hint=f"one of {', '.join(sorted(species))}")
+    if raw.get("reactant") is not None and raw.get("reactant") == raw.get("product"):
+        raise ConfigError("quantify.product", f"{raw['product']!r} is also quantify.reactant",
+                          hint="the product is the species formed, not the one consumed")
     stoich = _table(raw.get("stoichiometry"), "quantify.stoichiometry")
     for name, value in stoich.items():
         if name not in species:
@@ -586,6 +634,10 @@ FIT_KEYS = {
 }
 
 
+#: Longest ``[fit] mechanism`` text, in characters.
+MAX_MECHANISM_LENGTH = 5000
+
+
 def _species_order(signals) -> list[str]:
     seen: list[str] = []
     for sig in signals:
@@ -603,6 +655,9 @@ def _fit_section(raw: Mapping, signals, quantify: QuantifyConfig) -> FitConfig:
 
         if not isinstance(mechanism, str) or not mechanism.strip():
             raise ConfigError("fit.mechanism", "expected reaction text such as \"A -> B\"")
+        if len(mechanism) > MAX_MECHANISM_LENGTH:
+            raise ConfigError("fit.mechanism", f"{len(mechanism)} characters; at most {MAX_MECHANISM_LENGTH}",
+                              hint="a mechanism of a few steps, e.g. \"A -> B; B -> C\"")
         names = parse_mechanism(mechanism).species
         wanted = raw.get("observed_species") or [sp for sp in names if sp in measured]
         if not isinstance(wanted, list) or not wanted:
@@ -615,8 +670,10 @@ def _fit_section(raw: Mapping, signals, quantify: QuantifyConfig) -> FitConfig:
                                   "and a species of the mechanism")
         initial = raw.get("initial_mol_per_l", {}) or {}
         if not isinstance(initial, Mapping) or any(
-                isinstance(v, bool) or not isinstance(v, (int, float)) or v < 0 for v in initial.values()):
-            raise ConfigError("fit.initial_mol_per_l", "expected a table species = concentration >= 0")
+                isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v) or v < 0
+                for v in initial.values()):
+            raise ConfigError("fit.initial_mol_per_l", "expected a table species = concentration >= 0 "
+                              "(finite numbers)")
         return FitConfig(mechanism=mechanism, species=str(wanted[0]),
                          observed_species=tuple(str(sp) for sp in wanted),
                          initial_mol_per_l=tuple((str(k), float(v)) for k, v in initial.items()))
@@ -629,6 +686,8 @@ def _fit_section(raw: Mapping, signals, quantify: QuantifyConfig) -> FitConfig:
     if observed not in ("reactant", "product"):
         raise ConfigError("fit.observed", f"expected reactant or product, got {observed!r}")
     species = raw.get("species") or quantify.reactant or measured[0]
+    if raw.get("species"):
+        species = _name(species, "fit.species")
     if species not in measured:
         raise ConfigError("fit.species", f"{species!r} is not a measured species",
                           hint=f"measured: {', '.join(measured)}")
@@ -677,6 +736,37 @@ def _unnamed(raw: Mapping, signals, quantify: QuantifyConfig) -> tuple[str, ...]
     return tuple(keys)
 
 
+#: Chemical-shift spans (ppm) that hold the shifts of each supported nucleus, generously
+#: widened (values from memory, common practice: 1H about -5 to 20 ppm, 13C about 0 to 230,
+#: 19F about -400 to 250, 31P about -500 to 250).  Only a sanity bound on the config.
+SHIFT_SPAN_PPM = {"1H": (-10.0, 25.0), "2H": (-10.0, 25.0), "13C": (-50.0, 260.0),
+                  "19F": (-450.0, 300.0), "31P": (-550.0, 300.0)}
+
+
+def _check_reference(reference, signals) -> None:
+    """The ``[processing] reference`` shifts and every signal window on one nucleus's scale.
+
+    A reference at 500 ppm beside 1H windows (or on no nucleus's scale at all) is a typo,
+    not a spectrum: refused, naming ``processing.reference.ppm`` (or ``.target_ppm``).
+    """
+    if not reference:
+        return
+    nuclei = reference.get("nuclei") or tuple(SHIFT_SPAN_PPM)
+    lows = [s.window_ppm[0] for s in signals]
+    highs = [s.window_ppm[1] for s in signals]
+    for name in ("ppm", "target_ppm"):
+        shift = reference.get(name)
+        if shift is None:
+            continue
+        fits = [n for n in nuclei if n in SHIFT_SPAN_PPM
+                and SHIFT_SPAN_PPM[n][0] <= min([shift, *lows]) and max([shift, *highs]) <= SHIFT_SPAN_PPM[n][1]]
+        if not fits:
+            raise ConfigError(f"processing.reference.{name}",
+                              f"{shift:g} ppm is on no nucleus's shift scale together with the signal "
+                              f"windows ({min(lows):g} to {max(highs):g} ppm)",
+                              hint="give the reference peak's shift on the spectrum's scale (TMS: 0 ppm)")
+
+
 _OTHER_SECTIONS = {"processing"}
 _OWN_SECTIONS = {"run", "time", "integration", "quantify", "alignment", "signals", "fit", "live"}
 
@@ -700,10 +790,11 @@ def run_config_from_dict(raw: Mapping[str, Any], path: str | Path | None = None)
     from kinetics.processing import Pipeline
 
     pipeline = Pipeline.from_config(_table(sections.get("processing"), "processing"))
+    _check_reference(getattr(pipeline, "reference", None), signals)
     quantify = _quantify_section(_table(raw.get("quantify"), "quantify"), signals)
     return RunConfig(
         path=None if path is None else Path(path), folder=folder,
-        pattern=_string(run.get("pattern", "*.jdx"), "run.pattern"),
+        pattern=_pattern(run.get("pattern", "*.jdx")),
         order=_choice(run.get("order", "name"), "run.order", ORDERS),
         time=_time_section(_table(raw.get("time"), "time")),
         integration=_integration_section(_table(raw.get("integration"), "integration")),

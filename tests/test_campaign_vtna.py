@@ -95,3 +95,60 @@ def test_runs_that_do_not_share_a0_get_a_note_and_missing_species_an_error():
     assert vtna(runs, ["cat"], intervals=False).notes
     with pytest.raises(ConfigError, match="does not measure it"):
         vtna(runs, ["cat"], observed="P")
+
+
+def _runs_without_b(rng, design, *, k=0.2, b_order=0.5, n=40, t_end_s=3600.0, noise=0.001):
+    """Runs in which only [A] is measured (B is not): generator written here, the law
+    r = k [A][B]^b_order [cat] integrated with solve_ivp, seeded Gaussian noise on [A]."""
+    from scipy.integrate import solve_ivp
+
+    from kinetics.campaign import CampaignRun
+
+    runs = []
+    for i, (a0, b0, cat) in enumerate(design):
+        def rhs(_t, y, cat=cat):
+            a, b = np.maximum(y, 0.0)
+            rate = k * a * b**b_order * cat
+            return [-rate, -rate]
+
+        t = np.linspace(t_end_s / n, t_end_s, n)
+        exact = solve_ivp(rhs, (0.0, t_end_s), [a0, b0], t_eval=t, method="LSODA", rtol=1e-10, atol=1e-14)
+        assert exact.success
+        runs.append(CampaignRun(f"run{i + 1}", t, {"A": exact.y[0] + rng.normal(0.0, noise, n)},
+                                {"A": np.full(n, noise)}, {"A": a0, "B": b0}, cat))
+    return runs
+
+
+def test_unmeasured_co_reactant_follows_the_mass_balance_in_tau():
+    # A + B -> P, B not measured: [B] = B0 - (A0 - [A]) exactly (1:1 stoichiometry); with
+    # noiseless [A] the tau of order 1 in B is the trapezoid of that course.
+    from kinetics.campaign import CampaignRun
+
+    t = np.linspace(10.0, 1000.0, 100)
+    a = 0.1 * np.exp(-t / 300.0)
+    run = CampaignRun("x", t, {"A": a}, {}, {"A": 0.1, "B": 0.25}, 0.01)
+    b = 0.25 - (0.1 - a)
+    from scipy.integrate import cumulative_trapezoid
+    expected = cumulative_trapezoid(np.concatenate([[0.25], b]), np.concatenate([[0.0], t]), initial=0.0)[1:]
+    got = normalised_time(run, {"B": 1.0}, observed="A", stoichiometry={"A": -1, "B": -1})
+    assert np.allclose(got, expected, rtol=1e-12)
+    # without the stoichiometry B enters as its constant [B]0 (the old behaviour): 0.25 t
+    assert np.allclose(normalised_time(run, {"B": 1.0}), 0.25 * t, rtol=1e-12)
+
+
+def test_order_in_an_unmeasured_consumed_co_reactant_is_recovered():
+    # The demo's layout: only [A] measured, B consumed 1:1 and not in excess (B0/A0 1.5..5).
+    # Taking [B] as constant [B]0 in tau biased its order upwards and the 95 % interval
+    # excluded the truth (0.5); the mass-balance course recovers it.
+    design = ((0.1, 0.15, 0.010), (0.1, 0.30, 0.010), (0.1, 0.15, 0.020), (0.1, 0.50, 0.005))
+    runs = _runs_without_b(np.random.default_rng(1313), design)
+    before = vtna(runs, ["B", "cat"])
+    lo, hi = before.intervals["B"]
+    assert not lo <= 0.5 <= hi, before.intervals  # the failure this guards against
+    assert any("not measured" in note for note in before.notes)
+    after = vtna(runs, ["B", "cat"], stoichiometry={"A": -1, "B": -1})
+    for name, truth in (("B", 0.5), ("cat", 1.0)):
+        lo, hi = after.intervals[name]
+        assert lo <= truth <= hi, (name, after.orders, after.intervals)
+        assert hi - lo < 0.3
+    assert not after.notes

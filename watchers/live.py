@@ -209,6 +209,17 @@ def _loop(state: RunState, watcher: FolderWatcher, options: LiveOptions, stop: _
 
 
 # ---------------------------------------------------------------- the command
+def _make_watched_folder(folder: Path, key: str) -> None:
+    """Create the folder a ``--replay`` writes into; a ConfigError naming ``key`` if impossible."""
+    from kinetics.errors import ConfigError
+
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as error:
+        raise ConfigError(key, f"cannot create the watched folder {folder}: {error.strerror or error}",
+                          hint="give --folder DIR, a writable place for --replay") from error
+
+
 def watch_command(args) -> dict:
     """``kinetics watch``: build the run plan from the config, run live, return a summary."""
     from kinetics.config import load_run_config
@@ -217,7 +228,10 @@ def watch_command(args) -> dict:
 
     out_dir = args.out or Path(args.config).with_suffix(".live")
     config = load_run_config(args.config)
-    plan = plan_from_config(config, Path(out_dir) / LEDGER_NAME)
+    folder_override = getattr(args, "folder", None)
+    if folder_override is not None and args.replay is not None:
+        _make_watched_folder(Path(folder_override), "--folder")  # before the plan resolves it
+    plan = plan_from_config(config, Path(out_dir) / LEDGER_NAME, folder=folder_override)
     settings = config.live
     if args.target_conversion is not None:
         if not 0.0 < args.target_conversion < 1.0:
@@ -234,12 +248,8 @@ def watch_command(args) -> dict:
         folder = Path(plan.spec.folder)
         if Path(args.replay).resolve() == folder.resolve():
             raise ConfigError("--replay", "the replay source is the watched folder itself",
-                              hint="replay a finished copy into the run's folder")
-        try:
-            folder.mkdir(parents=True, exist_ok=True)
-        except OSError as error:
-            raise ConfigError("run.folder", f"cannot create the watched folder {folder}: {error.strerror or error}",
-                              hint="point [run] folder at a writable place for --replay") from error
+                              hint="give --folder DIR, an empty folder for the replay to write into")
+        _make_watched_folder(folder, "--folder" if folder_override is not None else "run.folder")
         replayer = ReplayThread(args.replay, folder, args.interval, plan.spec.include)
         replayer.start()
     try:

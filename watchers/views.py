@@ -7,7 +7,7 @@
 * :func:`render_html` (library code in :mod:`kinetics.run.outputs`, re-exported) — one HTML file with the plot inline as a base64 PNG and a
   ``<meta http-equiv="refresh">`` so any browser opened on the file follows the run
   without a server.  The final page of a run drops the refresh and says why it stopped.
-* :class:`PageServer` — optional: serves the output folder on 127.0.0.1 only.
+* :class:`PageServer` — optional: serves the live page and its assets on 127.0.0.1 only.
 * :class:`LivePlot` — optional matplotlib window (``--plot``); never used in tests.
 """
 
@@ -15,7 +15,6 @@ from __future__ import annotations
 
 import logging
 import threading
-from functools import partial
 
 import pandas as pd
 
@@ -80,17 +79,57 @@ class TerminalView:
 
 # ---------------------------------------------------------------- optional server
 class PageServer:
-    """Serves the output folder over HTTP on 127.0.0.1 only, from a daemon thread."""
+    """Serves the live page and its assets over HTTP on 127.0.0.1 only, from a daemon thread.
+
+    Only the names in :data:`kinetics.run.outputs.OUTPUT_NAMES` (``index.html``,
+    ``series.png``, ``fit.json``, ``series.csv``) directly inside ``folder`` are served,
+    and ``/`` answers with ``index.html``.  Everything else — the ledger, any other file,
+    a directory listing, a path leaving the folder — is 404.
+    """
 
     def __init__(self, folder, port: int = 0):
-        from http.server import SimpleHTTPRequestHandler, ThreadingHTTPServer
+        from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
+        from pathlib import Path
+        from urllib.parse import unquote, urlsplit
 
-        class QuietHandler(SimpleHTTPRequestHandler):
+        from kinetics.run.outputs import OUTPUT_NAMES
+
+        root = Path(folder)
+        types = {".html": "text/html; charset=utf-8", ".png": "image/png",
+                 ".json": "application/json", ".csv": "text/csv; charset=utf-8"}
+
+        class PageHandler(BaseHTTPRequestHandler):
             def log_message(self, *args) -> None:  # keep the terminal view clean
                 pass
 
-        handler = partial(QuietHandler, directory=str(folder))
-        self.server = ThreadingHTTPServer(("127.0.0.1", port), handler)
+            def _answer(self, head_only: bool) -> None:
+                path = unquote(urlsplit(self.path).path)
+                name = "index.html" if path == "/" else path[1:] if path.startswith("/") else ""
+                body = None
+                if name in OUTPUT_NAMES:  # an exact name: no '/', no '..', no ledger
+                    page = root / name
+                    try:  # the run writes regular files; a link could point anywhere
+                        body = None if page.is_symlink() else page.read_bytes()
+                    except OSError:
+                        body = None
+                if body is None:
+                    self.send_error(404, "not found")
+                    return
+                self.send_response(200)
+                self.send_header("Content-Type", types[Path(name).suffix])
+                self.send_header("Content-Length", str(len(body)))
+                self.send_header("Cache-Control", "no-store")
+                self.end_headers()
+                if not head_only:
+                    self.wfile.write(body)
+
+            def do_GET(self) -> None:
+                self._answer(head_only=False)
+
+            def do_HEAD(self) -> None:
+                self._answer(head_only=True)
+
+        self.server = ThreadingHTTPServer(("127.0.0.1", port), PageHandler)
         self.thread = threading.Thread(target=self.server.serve_forever, daemon=True)
 
     @property

@@ -449,7 +449,8 @@ def analyse(config: CampaignConfig, runs: list) -> dict:
                 names.append(name)
         if names:
             try:
-                found["vtna"] = vtna(group, names[:3], reactant, catalyst=config.catalyst or "cat")
+                found["vtna"] = vtna(group, names[:3], reactant, catalyst=config.catalyst or "cat",
+                                     stoichiometry=dict(config.stoichiometry))
             except KineticsError as error:
                 notes.append(f"VTNA skipped: {error}")
     if found["vtna"] is not None and found["fit"] is not None:

@@ -5,7 +5,8 @@ Idea: if ``-d[A]/dt = k [A]^a [B]^b [cat]^c``, then against the normalised time
 ``tau = int_0^t [B]^b [cat]^c dt'`` every run's ``[A]`` follows the same curve ``dA/dtau =
 -k [A]^a``, whatever its ``[B]0`` or loading, when (and only when) ``b`` and ``c`` are right.
 The integral is the trapezoid rule over the measured ``[B]`` (starting from the design
-``[B]0`` at ``t = 0``); a species that is not measured (the catalyst) enters as its constant
+``[B]0`` at ``t = 0``), or, when ``[B]`` is not measured, over its course by mass balance
+from ``[A]`` and the stoichiometry; a species that is not measured (the catalyst) enters as its constant
 concentration, ``[cat]^c t``.
 
 Overlay score (defined here): the weighted residual sum of squares of ONE cubic spline
@@ -82,12 +83,35 @@ class VtnaResult:
                 "score": self.score, "dof": self.dof, "notes": list(self.notes)}
 
 
-def normalised_time(run: CampaignRun, orders: Mapping, catalyst: str = "cat") -> np.ndarray:
+def derived_course(run: CampaignRun, species: str, observed: str, stoichiometry: Mapping):
+    """Course of an unmeasured ``species`` from the measured ``[observed]`` by mass balance.
+
+    ``[X](t) = [X]0 + (nu_X / nu_A) ([A](t) - [A]0)`` with ``nu`` the stoichiometric
+    coefficients (``nu_A`` defaults to -1, the reactant).  Assumes one reaction, no
+    intermediate holding material, and the design ``[X]0``/``[A]0`` (``[A]0`` the first
+    measured value when not given).  None when ``species`` has no coefficient, no ``[X]0``
+    or ``[observed]`` is not measured.
+    """
+    nu_x = stoichiometry.get(species)
+    x0 = run.initial(species)
+    if not nu_x or x0 is None or observed not in run.observed_mol_per_l:
+        return None
+    a = np.asarray(run.observed_mol_per_l[observed], dtype=float)
+    a0 = float(run.initial(observed, float(a[0])))
+    nu_a = float(stoichiometry.get(observed) or -1.0)
+    return float(x0) + (float(nu_x) / nu_a) * (a - a0)
+
+
+def normalised_time(run: CampaignRun, orders: Mapping, catalyst: str = "cat", *, observed: str | None = None,
+                    stoichiometry: Mapping | None = None) -> np.ndarray:
     """``tau(t) = int_0^t prod_X [X]^{n_X} dt'`` at the run's times (trapezoid rule).
 
     A species measured in the run uses its measured course, starting at its design initial
-    concentration at ``t = 0`` (or, without one, the first measured value); the catalyst
-    (``catalyst``) and species not measured use their constant concentration.
+    concentration at ``t = 0`` (or, without one, the first measured value).  A species not
+    measured but consumed with ``observed`` (a coefficient in ``stoichiometry``) uses its
+    course by mass balance (:func:`derived_course`) -- a co-reactant is used up during
+    the run, and taking it as constant ``[X]0`` biases its order.  The catalyst
+    (``catalyst``) and other species not measured use their constant concentration.
     """
     t = np.concatenate([[0.0], run.time_s]) if run.time_s[0] > 0 else np.asarray(run.time_s)
     integrand = np.ones_like(t)
@@ -96,8 +120,13 @@ def normalised_time(run: CampaignRun, orders: Mapping, catalyst: str = "cat") ->
             if run.catalyst_mol_per_l is None:
                 raise ConfigError(f"runs.{run.label}.catalyst_mol_per_l", "VTNA in the catalyst needs the loading")
             integrand = integrand * float(run.catalyst_mol_per_l) ** order
-        elif species in run.observed_mol_per_l:
-            measured = np.maximum(run.observed_mol_per_l[species], 0.0)
+        elif species in run.observed_mol_per_l or (
+                observed is not None and stoichiometry
+                and derived_course(run, species, observed, stoichiometry) is not None):
+            course = run.observed_mol_per_l.get(species)
+            if course is None:
+                course = derived_course(run, species, observed, stoichiometry)
+            measured = np.maximum(course, 0.0)
             if t.size > run.time_s.size:
                 start = run.initial(species, float(measured[0]))
                 measured = np.concatenate([[start], measured])
@@ -115,8 +144,9 @@ def normalised_time(run: CampaignRun, orders: Mapping, catalyst: str = "cat") ->
 
 
 class _Score:
-    def __init__(self, runs, observed, species, catalyst, n_interior):
+    def __init__(self, runs, observed, species, catalyst, n_interior, stoichiometry=None):
         self.runs, self.observed, self.species, self.catalyst = runs, observed, tuple(species), catalyst
+        self.stoichiometry = dict(stoichiometry or {})
         self.n_interior = n_interior
         self.y = np.concatenate([run.observed_mol_per_l[observed] for run in runs])
         sigmas = [run.sigma(observed) for run in runs]
@@ -126,7 +156,8 @@ class _Score:
 
     def taus(self, values):
         orders = dict(zip(self.species, values))
-        return [normalised_time(run, orders, self.catalyst) for run in self.runs]
+        return [normalised_time(run, orders, self.catalyst, observed=self.observed, stoichiometry=self.stoichiometry)
+                for run in self.runs]
 
     def __call__(self, values):
         try:
@@ -164,7 +195,8 @@ def _minimise(score, start, bounds, free, tol=1e-4, rounds=6):
 
 
 def vtna(runs: Sequence[CampaignRun], species: Sequence[str], observed: str = "A", *,
-         order_range=DEFAULT_RANGE, catalyst: str = "cat", n_interior: int = 6, intervals: bool = True) -> VtnaResult:
+         order_range=DEFAULT_RANGE, catalyst: str = "cat", n_interior: int = 6, intervals: bool = True,
+         stoichiometry: Mapping | None = None) -> VtnaResult:
     """Automatic VTNA search for the orders in ``species`` (see the module docstring).
 
     Parameters
@@ -173,6 +205,8 @@ def vtna(runs: Sequence[CampaignRun], species: Sequence[str], observed: str = "A
     species : the components whose orders are sought (a measured co-reactant, the catalyst)
     observed : the species whose course is overlaid (every run must measure it)
     order_range : (lo, hi) searched for each order
+    stoichiometry : species -> coefficient (-1 consumed 1:1 with ``observed``); a co-reactant
+        that is not measured follows ``observed`` by mass balance (see :func:`normalised_time`)
     """
     runs = check_campaign(runs, min_runs=2)
     species = tuple(species)
@@ -187,7 +221,14 @@ def vtna(runs: Sequence[CampaignRun], species: Sequence[str], observed: str = "A
     if max(starts) > 1.05 * min(starts):
         notes.append(f"the runs start at different [{observed}]0 ({min(starts):.3g} to {max(starts):.3g} mol/L): "
                      "VTNA overlays runs that share it; compare like runs (different excess) for a clean answer")
-    score = _Score(runs, observed, species, catalyst, n_interior)
+    stoichiometry = dict(stoichiometry or {})
+    for name in species:
+        if name == catalyst or any(name in run.observed_mol_per_l for run in runs):
+            continue
+        if any(derived_course(run, name, observed, stoichiometry) is None for run in runs):
+            notes.append(f"[{name}] is not measured and has no stoichiometric coefficient: it enters tau as its "
+                         f"constant initial concentration, which biases its order if it is consumed")
+    score = _Score(runs, observed, species, catalyst, n_interior, stoichiometry)
     grid_axis = np.linspace(order_range[0], order_range[1], GRID_POINTS)
     mesh = np.array(np.meshgrid(*[grid_axis] * len(species), indexing="ij")).reshape(len(species), -1).T
     if mesh.shape[0] > 2000:
@@ -243,7 +284,7 @@ def vtna(runs: Sequence[CampaignRun], species: Sequence[str], observed: str = "A
 
 
 def bootstrap_orders(runs, species, observed="A", *, rng: np.random.Generator, n_samples: int = 50,
-                     order_range=DEFAULT_RANGE, catalyst="cat") -> np.ndarray:
+                     order_range=DEFAULT_RANGE, catalyst="cat", stoichiometry=None) -> np.ndarray:
     """Orders refound on ``n_samples`` resamples (points drawn with replacement within each run,
     kept in time order); shape ``(n_ok, len(species))``.  Percentiles give an interval that
     does not assume independent Gaussian noise."""
@@ -260,7 +301,8 @@ def bootstrap_orders(runs, species, observed="A", *, rng: np.random.Generator, n
                 {k: v[picks] for k, v in run.sigma_mol_per_l.items()}, dict(run.initial_mol_per_l),
                 run.catalyst_mol_per_l, run.temperature_kelvin, dict(run.factors), run.source))
         try:
-            found = vtna(resampled, species, observed, order_range=order_range, catalyst=catalyst, intervals=False)
+            found = vtna(resampled, species, observed, order_range=order_range, catalyst=catalyst, intervals=False,
+                         stoichiometry=stoichiometry)
         except FitError:
             continue
         samples.append([found.orders[s] for s in species])

@@ -566,6 +566,9 @@ def batch_run(plan: RunPlan | RunConfig | str | Path, out_dir: Path, *, parallel
         plan = plan_from_config(plan, Path(out_dir) / LEDGER_NAME)
     folder = check_folder(plan.spec.folder)
     plan = replace(plan, spec=replace(plan.spec, folder=folder))
+    if not list_wanted(plan.spec):  # a finished folder with nothing to take: a config error
+        raise ConfigError("run.pattern", f"no file in {folder} matches {' or '.join(plan.spec.include)!r}",
+                          hint="check run.folder and run.pattern (e.g. '*.jdx'; live.exclude also applies)")
     out_dir = prepare_out_dir(out_dir)
     with RunLock(out_dir):
         state = RunState(plan, out_dir)
