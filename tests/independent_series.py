@@ -193,6 +193,18 @@ def mean_ester(start_s: float, duration_s: float, sc: Scenario) -> float:
 
 
 # ---------------------------------------------------------------- lines
+def _course(sc):
+    """Scan start and mid times, the last mid time, and the ester and acid concentrations
+    averaged over each scan (the acid grows as the ester falls, from acid0)."""
+    starts = sc.first_start_s + sc.interval_s * np.arange(sc.n_spectra)
+    mids = starts + sc.scan_duration_s / 2.0
+    t_end = float(mids[-1]) or 1.0
+    ester = np.array([mean_ester(s, sc.scan_duration_s, sc) for s in starts])
+    acid0 = sc.ester0_mol_per_l / sc.initial_ratio
+    acid = acid0 + (sc.ester0_mol_per_l - ester)
+    return starts, mids, t_end, ester, acid0, acid
+
+
 def _lines(mult: Multiplet, concentration: float) -> list[tuple[float, float, float]]:
     """(offset from the multiplet centre in Hz, amplitude, FWHM Hz) of each line."""
     n = mult.lines
@@ -358,12 +370,7 @@ def write_series(folder: str | Path, scenario: Scenario, seed: int) -> Truth:
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     start = datetime.fromisoformat(sc.reaction_start_utc)
-    starts = sc.first_start_s + sc.interval_s * np.arange(sc.n_spectra)
-    mids = starts + sc.scan_duration_s / 2.0
-    t_end = float(mids[-1]) or 1.0
-    ester = np.array([mean_ester(s, sc.scan_duration_s, sc) for s in starts])
-    acid0 = sc.ester0_mol_per_l / sc.initial_ratio
-    acid = acid0 + (sc.ester0_mol_per_l - ester)
+    starts, mids, t_end, ester, acid0, acid = _course(sc)
     sigma = _noise_sigma(sc, sc.ester0_mol_per_l, acid0)
     wander = rng.uniform(0, 2 * math.pi)
     files, p0s, p1s, drifts = [], [], [], []
@@ -475,12 +482,7 @@ def spectrum_records(scenario: Scenario, seed: int):
     sc = replace(scenario, kind="spectrum")
     rng = np.random.default_rng(seed)
     start = datetime.fromisoformat(sc.reaction_start_utc)
-    starts = sc.first_start_s + sc.interval_s * np.arange(sc.n_spectra)
-    mids = starts + sc.scan_duration_s / 2.0
-    t_end = float(mids[-1]) or 1.0
-    ester = np.array([mean_ester(s, sc.scan_duration_s, sc) for s in starts])
-    acid0 = sc.ester0_mol_per_l / sc.initial_ratio
-    acid = acid0 + (sc.ester0_mol_per_l - ester)
+    starts, mids, t_end, ester, acid0, acid = _course(sc)
     sigma = _noise_sigma(sc, sc.ester0_mol_per_l, acid0) * math.sqrt(sc.n_points)
     ppm = sc.carrier_ppm + frequency_grid_hz(sc) / sc.observe_mhz
     wander = rng.uniform(0, 2 * math.pi)
