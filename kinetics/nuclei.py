@@ -162,6 +162,29 @@ INTERNAL_REFERENCES: tuple[ReferenceCompound, ...] = (
 _SOLVENT_BACKGROUND = ("1H", "2H", "13C")
 
 
+#: Largest coupling expected inside one multiplet of each nucleus's spectrum, Hz (values
+#: from memory, common practice): 1H, H-H couplings up to 12-18 Hz (trans-alkene, geminal)
+#: plus 10 % for digitisation; 19F, geminal 2J(H,F) of a CHF2 or CH2F group is about
+#: 45-57 Hz and 19F-19F couplings of aromatic and CF3/CF2 groups stay below that; 31P,
+#: 2J(P,P), 2J/3J(P,H) and 3J(P,F) below about 30 Hz (the one-bond P-H coupling of several
+#: hundred Hz is left to the user: such a doublet is drafted as two lines).
+_LARGEST_COUPLING_HZ = {"1H": 18.0, "2H": 18.0, "19F": 60.0, "31P": 30.0}
+
+
+def largest_coupling_hz(nucleus: str) -> float:
+    """Largest coupling one multiplet of ``nucleus`` may hold (Hz; 18 Hz for a nucleus not
+    in the table, the 1H value)."""
+    return _LARGEST_COUPLING_HZ.get(known_nucleus(nucleus) or "", 18.0)
+
+
+def bare_doublets_span_couplings(nucleus: str) -> bool:
+    """True when two lone lines of equal height within the largest coupling are more likely
+    one doublet than two species: 19F and 31P, whose shifts spread over hundreds of ppm, so
+    that unrelated lines seldom fall within 60 Hz of each other (common practice).  In
+    crowded 1H spectra two such lines stay two singlets."""
+    return known_nucleus(nucleus) in ("19F", "31P")
+
+
 def scale_reference(nucleus: str) -> ReferenceCompound | None:
     """The compound at 0 ppm of ``nucleus``'s scale (None for a nucleus not in the table)."""
     return SCALE_REFERENCES.get(known_nucleus(nucleus) or "")

@@ -576,3 +576,31 @@ def test_unequal_or_unlike_lines_are_not_a_doublet():
     # the same pair 0.12 ppm apart at 500 MHz is 60 Hz: never one multiplet
     even = [Peak(2.10, 1.0, 1.0, 900.0), Peak(1.98, 1.0, 1.0, 900.0)]
     assert len(group_peaks(even, 500.0, 12.8)) == 2 and len(group_peaks(even, 60.0, 12.8)) == 1
+
+
+def test_19f_chf2_doublet_is_one_window_at_its_own_coupling():
+    # Invented 19F spectrum at 56.46 MHz (truth set here): a CHF2 group whose geminal
+    # 2J(H,F) of 56 Hz (from memory: 45-57 Hz for CHF2 groups) splits it into a doublet at
+    # -110 ppm, beside a CF3 singlet at -63.7 ppm.  With the 19F coupling limit the doublet
+    # is one window holding both lines and reported as "d" with J = 56 Hz; with the 1H
+    # limit of 18 Hz (the control) it falls apart into two one-line windows.
+    from kinetics.init import propose_windows
+    from kinetics.nuclei import largest_coupling_hz
+
+    mhz = 56.46
+    chf2 = simulate.SpeciesSignals("chf2", (simulate.Multiplet(-110.0, 2, (56.0,), (2,), width_hz=2.0),))
+    cf3 = simulate.SpeciesSignals("cf3", (simulate.Multiplet(-63.7, 3, width_hz=2.0),))
+    acquisition = simulate.Acquisition(observe_mhz=mhz, n_points=32768, spectral_width_ppm=120.0,
+                                       carrier_ppm=-90.0, nucleus="19F")
+    spectrum = simulate.simulate_spectrum([chf2, cf3], {"chf2": 1.0, "cf3": 1.0}, np.random.default_rng(5),
+                                          acquisition, snr=300.0)
+    doublet = -110.0 + np.array([28.0, -28.0]) / mhz
+    assert largest_coupling_hz("19F") > 56.0 > largest_coupling_hz("1H")
+    for limit in ("nucleus", 18.0):
+        *_, windows = propose_windows(spectrum, large_coupling_hz=limit)
+        holders = [w for w in windows if any(w.window_ppm[0] < x < w.window_ppm[1] for x in doublet)]
+        if limit == "nucleus":
+            assert len(holders) == 1 and holders[0].pattern.code == "d", [w.window_ppm for w in holders]
+            assert holders[0].pattern.j_hz[0] == pytest.approx(56.0, abs=1.0)
+        else:
+            assert len(holders) == 2, [w.window_ppm for w in holders]

@@ -14,13 +14,13 @@ import math
 
 import numpy as np
 
-from kinetics.nuclei import has_solvent_background
+from kinetics.nuclei import bare_doublets_span_couplings, has_solvent_background, largest_coupling_hz
 from kinetics.proposals.change import local_heights, merge_series, near_any, placeholder_species
 from kinetics.proposals.nuclei_count import nuclei_unit, whole_number_misfit
 from kinetics.proposals.records import Group, ProposedWindow
 from kinetics.proposals.roles import assign_roles, pick_reference_candidate, residual_solvents
 from kinetics.signals.lines import Peak, pick_peaks
-from kinetics.signals.multiplets import LARGE_COUPLING_HZ, SIMPLE_PATTERNS, group_peaks
+from kinetics.signals.multiplets import SIMPLE_PATTERNS, group_peaks
 from kinetics.solvents import solvent_named
 from kinetics.spectra.spectrum import Spectrum
 
@@ -83,7 +83,7 @@ def _tail_reach_ppm(peak: Peak, noise: float, observe_mhz: float, cap_ppm: float
 
 def propose_windows(spectrum: Spectrum, *, later: Spectrum | None = None, snr_threshold: float = 8.0,
                     coupling_hz: float = 8.0, gap_factor: float = 1.6, margin_hz: float = 10.0,
-                    min_relative_height: float = 0.02, large_coupling_hz: float | None = LARGE_COUPLING_HZ):
+                    min_relative_height: float = 0.02, large_coupling_hz: float | None | str = "nucleus"):
     """Peaks, noise and proposed windows of one spectrum, or of a series' first and last
     (no files touched).
 
@@ -101,8 +101,10 @@ def propose_windows(spectrum: Spectrum, *, later: Spectrum | None = None, snr_th
         Largest spacing between adjacent lines of an unexplained cluster "m", Hz.
     gap_factor : float
         Adjacent lines of an "m" lie within ``gap_factor * coupling_hz``.
-    large_coupling_hz : float or None
-        Largest coupling of a recognised pattern (x 1.1); None: ``gap_factor * coupling_hz``.
+    large_coupling_hz : float, None or "nucleus"
+        Largest coupling of a recognised pattern (x 1.1); None: ``gap_factor * coupling_hz``;
+        "nucleus" (default): :func:`kinetics.nuclei.largest_coupling_hz` of the spectrum's
+        nucleus (18 Hz for 1H, 60 Hz for 19F, whose CHF2 doublets span about 56 Hz).
     margin_hz : float
         Least margin beyond the outer lines of a window (6 line widths when wider), Hz.
 
@@ -113,16 +115,20 @@ def propose_windows(spectrum: Spectrum, *, later: Spectrum | None = None, snr_th
     windows : list of ProposedWindow, high shift first
     """
     mhz = spectrum.observe_mhz
+    if isinstance(large_coupling_hz, str):
+        large_coupling_hz = largest_coupling_hz(spectrum.nucleus)
+    doublet_max = large_coupling_hz if large_coupling_hz and bare_doublets_span_couplings(spectrum.nucleus) else None
     peaks, noise, threshold = pick_peaks(spectrum, snr_threshold, min_relative_height)
     later_peaks, offset = [], 0.0
     max_gap = gap_factor * coupling_hz
     groups = [Group(lines, pattern) for lines, pattern in
-              group_peaks(peaks, mhz, max_gap, large_coupling_hz, resolution_hz=spectrum.spacing_hz)]
+              group_peaks(peaks, mhz, max_gap, large_coupling_hz, resolution_hz=spectrum.spacing_hz,
+                          doublet_max_hz=doublet_max)]
     if later is not None and len(groups):
         later_peaks, _, _ = pick_peaks(later, snr_threshold, min_relative_height)
         later_groups = [Group(lines, pattern) for lines, pattern in
                         group_peaks(later_peaks, later.observe_mhz, max_gap, large_coupling_hz,
-                                    resolution_hz=later.spacing_hz)]
+                                    resolution_hz=later.spacing_hz, doublet_max_hz=doublet_max)]
         groups, offset = merge_series(groups, later_groups, mhz, spectrum.spacing_hz)
     solvent = solvent_named(spectrum.header) if has_solvent_background(spectrum.nucleus) else None
     assign_roles(groups, solvent, spectrum.nucleus)

@@ -186,14 +186,15 @@ def tolerance_hz(lines: list[Peak], resolution_hz: float) -> float:
 
 def group_peaks(peaks: list[Peak], observe_mhz: float, max_gap_hz: float,
                 large_coupling_hz: float | None = LARGE_COUPLING_HZ,
-                resolution_hz: float = 0.0) -> list[tuple[list[Peak], Pattern]]:
+                resolution_hz: float = 0.0, doublet_max_hz: float | None = None) -> list[tuple[list[Peak], Pattern]]:
     """Lines cut into named multiplets, high shift first.
 
     Lines within the largest coupling (1.1 x ``large_coupling_hz``; ``max_gap_hz`` when
     None) form a run; a run is cut into contiguous multiplets at the least cost (1 per
     recognised first-order pattern, ``_M_COST`` per unexplained cluster "m", whose
     adjacent lines must lie within ``max_gap_hz``), so a pattern is preferred to loose
-    lines and two unequal lines stay two singlets.
+    lines and two unequal lines stay two singlets.  Two lone lines further apart than
+    ``doublet_max_hz`` (default ``max_gap_hz``) are two singlets, never a bare doublet.
     """
     j_max = max_gap_hz if not large_coupling_hz else max(1.1 * large_coupling_hz, max_gap_hz)
     lines = sorted(peaks, key=lambda p: -p.shift_ppm)
@@ -205,12 +206,13 @@ def group_peaks(peaks: list[Peak], observe_mhz: float, max_gap_hz: float,
             runs.append([peak])
     groups: list[tuple[list[Peak], Pattern]] = []
     for run in runs:
-        groups += _partition(run, observe_mhz, resolution_hz, j_max, max_gap_hz)
+        groups += _partition(run, observe_mhz, resolution_hz, j_max, max_gap_hz,
+                             max_gap_hz if doublet_max_hz is None else doublet_max_hz)
     return groups
 
 
 def _partition(run: list[Peak], observe_mhz: float, resolution_hz: float, j_max_hz: float,
-               max_gap_hz: float) -> list[tuple[list[Peak], Pattern]]:
+               max_gap_hz: float, doublet_max_hz: float) -> list[tuple[list[Peak], Pattern]]:
     n = len(run)
     x = np.array([p.shift_ppm * observe_mhz for p in run])
     gaps = -np.diff(x)
@@ -225,7 +227,7 @@ def _partition(run: list[Peak], observe_mhz: float, resolution_hz: float, j_max_
             pattern = None
             if end - start <= _MAX_PATTERN_LINES:
                 pattern = match_pattern(x[start:end], [p.height for p in segment], [p.width_hz for p in segment],
-                                        tolerance_hz(segment, resolution_hz), j_max_hz, d_max_hz=max_gap_hz)
+                                        tolerance_hz(segment, resolution_hz), j_max_hz, d_max_hz=doublet_max_hz)
             cost = 1.0
             if pattern is None:
                 if np.all(gaps[start:end - 1] <= max_gap_hz):
