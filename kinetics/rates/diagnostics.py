@@ -47,6 +47,8 @@ from typing import Mapping, Sequence
 import numpy as np
 from scipy import special, stats
 
+from kinetics.numbers import format_duration
+
 #: Codes that refuse a number (the fit is reported as not converged).
 REFUSE = "refuse"
 WARNING = "warning"
@@ -464,8 +466,9 @@ def forecast_caveat(result, quantity, conversion: float) -> list:
     seen = f", where the fitted conversion is {reached:.0%}" if np.isfinite(reached) else ""
     return [Guardrail(
         "forecast_extrapolated",
-        f"the time to {conversion:.0%} conversion ({quantity.value:.4g} s) lies {quantity.value / t_last:.1f}x past "
-        f"the last observation ({t_last:.4g} s{seen}): it holds only if the rate law holds beyond the data; "
+        f"the time to {conversion:.0%} conversion ({format_duration(quantity.value, significant=3)}) lies "
+        f"{quantity.value / t_last:.1f}x past the last observation ({format_duration(t_last, significant=3)}{seen}): "
+        "it holds only if the rate law holds beyond the data; "
         "its interval does not include that doubt",
         WARNING, {"forecast_s": float(quantity.value), "last_time_s": t_last,
                   "conversion_at_last_time": reached if np.isfinite(reached) else None,
