@@ -703,11 +703,14 @@ def _bench_campaign(quick: bool) -> list[BenchRow]:
     of 2 worker processes (cluster start-up excluded: it is paid once per campaign, a few
     seconds, and is timed in its own row); the scheduling overhead per run from tasks that
     do no work.  Each run is a run config through the run engine (36 demo spectra) with a
-    fresh ledger.  Floor of the cluster rows: the in-process time divided by the 2 workers."""
+    fresh ledger.  Floor of the cluster rows: the in-process time divided by the 2 workers.
+    Then the residual bootstrap of the demo campaign's global fit (``[fit] bootstrap``), its
+    resamples as tasks of 8, in this process and on the same 2 workers."""
+    import dataclasses
     import os
     import tempfile
 
-    from kinetics.campaign.runner import execute
+    from kinetics.campaign.runner import bootstrap_global_fit, execute, run_campaign
 
     try:
         from distributed import Client, LocalCluster
@@ -728,9 +731,24 @@ def _bench_campaign(quick: bool) -> list[BenchRow]:
         one, one_p95 = time_runs(lambda: campaign("none"), repeats, warmup=0 if quick else 1)
         rows.append(BenchRow("campaign", f"{n_runs}-run campaign (engine), 1 worker, in process", one, one_p95,
                              repeats, note=f"{one / n_runs * 1e3:.0f} ms per run"))
+        n_boot = 16 if quick else 64
+        from pathlib import Path
+
+        demo_config = Path(__file__).resolve().parents[1] / "configs" / "demo_campaign.toml"
+        demo = run_campaign(demo_config, f"{tmp}/demo", scheduler="none", outputs=False)
+        boot_config = dataclasses.replace(demo.config, bootstrap=n_boot)
+        fit_runs = [run for run in demo.runs if run.label not in demo.excluded]
+
+        def bootstrap(client=None):
+            found = bootstrap_global_fit(boot_config, demo.fit, fit_runs, demo.loaded, client)
+            assert found.n_failed == 0, found
+
+        boot_one, boot_one_p95 = time_runs(bootstrap, repeats, warmup=0)
+        rows.append(BenchRow("campaign", f"bootstrap of the demo global fit, {n_boot} resamples, 1 worker",
+                             boot_one, boot_one_p95, repeats, note=f"{boot_one / n_boot * 1e3:.0f} ms per refit"))
         started = time.perf_counter()
         with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                          dashboard_address=None) as cluster, Client(cluster):
+                          dashboard_address=None) as cluster, Client(cluster) as client:
             startup = time.perf_counter() - started
             address = cluster.scheduler_address
             campaign(address)  # warm the workers (imports)
@@ -750,6 +768,12 @@ def _bench_campaign(quick: bool) -> list[BenchRow]:
             rows.append(BenchRow("campaign", f"scheduling overhead per run ({n_noop} no-op tasks, 2 workers)",
                                  noop / n_noop, noop_p95 / n_noop, repeats, here / n_noop,
                                  "floor = the same no-op task called in process"))
+            bootstrap(client)  # warm the workers (imports)
+            boot_two, boot_two_p95 = time_runs(lambda: bootstrap(client), repeats, warmup=0)
+            rows.append(BenchRow("campaign", "  same bootstrap, local Dask cluster of 2 workers", boot_two,
+                                 boot_two_p95, repeats, boot_one / 2,
+                                 f"speed-up {boot_one / boot_two:.2f}x on 2 workers; floor = 1-worker time / 2; "
+                                 f"load average {os.getloadavg()[0]:.1f}"))
         rows.append(BenchRow("campaign", "local cluster start-up (2 worker processes)",
                              startup, startup, 1,
                              note="paid once per campaign on the default scheduler"))

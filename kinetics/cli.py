@@ -3,6 +3,12 @@
 Each sub-command has an ``_add_<name>`` (its arguments) and a ``_cmd_<name>`` (its work).
 ``--json`` prints exactly one JSON object on stdout and nothing else there; messages go
 to stderr.  Errors the user can fix (``KineticsError``) print one line and exit 2.
+
+Progress bars (runs, spectra, bootstrap refits) are drawn on stderr from the library's
+``progress(stage, done, total)`` callback, only when stderr is a terminal and neither
+``--quiet`` nor ``--json`` is given.  ``--quiet`` leaves errors and the final result.  A
+warning logged with the same words twice is shown once.  The safety caution is in
+``--help`` and in every report, not after every command.
 """
 
 from __future__ import annotations
@@ -15,11 +21,79 @@ from pathlib import Path
 
 from kinetics import __version__
 from kinetics.errors import KineticsError
-from kinetics.jsonio import dumps
 
 
 def _print_json(obj) -> None:
+    from kinetics.jsonio import dumps  # numpy-aware; loaded here so that `kinetics --help` starts fast
+
     sys.stdout.write(dumps(obj) + "\n")
+
+
+SAFETY_NOTE = ("Safety: reactions can run away and heated or pressurised sample tubes can fail; "
+               "strong magnets attract tools and affect implants. Follow local safety rules and "
+               "qualified supervision; kinetic parameters are no substitute for a calorimetric "
+               "hazard assessment. Every report repeats this caution.")
+
+
+def _add_quiet(p) -> None:
+    p.add_argument("-q", "--quiet", action="store_true",
+                   help="print only errors and the final result (no progress, no notes)")
+
+
+class _ProgressBars:
+    """Bars on stderr (rich) for the library's ``progress(stage, done, total)`` callback:
+    one bar per stage (runs, spectra, bootstrap refits); a stage that starts again (the
+    spectra of the next run) restarts its bar."""
+
+    LABELS = {"runs": "runs", "spectra": "spectra measured", "bootstrap": "bootstrap refits"}
+
+    def __init__(self, console=None):
+        from rich.console import Console
+        from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+
+        self.bars = Progress(TextColumn("{task.description:<18}"), BarColumn(), MofNCompleteColumn(),
+                             TimeElapsedColumn(), console=console or Console(stderr=True), transient=True)
+        self.tasks: dict = {}
+
+    def __enter__(self):
+        self.bars.start()
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.bars.stop()
+
+    def __call__(self, stage: str, done: int, total: int) -> None:
+        task = self.tasks.get(stage)
+        if task is None:
+            task = self.tasks[stage] = self.bars.add_task(self.LABELS.get(stage, stage), total=total)
+        self.bars.update(task, completed=done, total=total)
+
+
+def _progress(args):
+    """The progress callback for a command (a context manager yielding it), or None."""
+    import contextlib
+
+    if getattr(args, "quiet", False) or getattr(args, "json", False) or not sys.stderr.isatty():
+        return contextlib.nullcontext(None)
+    return _ProgressBars()
+
+
+class _OnceFilter(logging.Filter):
+    """Passes each warning once per command: the same words from every run or spectrum say
+    nothing new (the first one names what to check)."""
+
+    def __init__(self):
+        super().__init__()
+        self.seen: set = set()
+
+    def filter(self, record: logging.LogRecord) -> bool:
+        if record.levelno < logging.WARNING:
+            return True
+        key = (record.levelno, record.getMessage())
+        if key in self.seen:
+            return False
+        self.seen.add(key)
+        return True
 
 
 # ---------------------------------------------------------------- inspect (spectra)
@@ -83,26 +157,29 @@ def _add_fit(sub) -> None:
     p.add_argument("--seed", type=int, default=None, help="seed of the bootstrap generator")
     p.add_argument("--no-profile", action="store_true", help="skip profile-likelihood intervals")
     p.add_argument("--json", action="store_true", help="print one JSON object")
+    _add_quiet(p)
     p.set_defaults(func=_cmd_fit)
 
 
 def _cmd_fit(args) -> int:
     from kinetics.rates.command import fit_command, parse_assignments
 
-    payload, text = fit_command(
-        args.table, args.time_column, args.column, model=args.model, mechanism=args.mechanism,
-        observed=args.observed, species=args.species, sigma_columns=args.sigma_column,
-        compare=args.compare, target_conversion=args.target_conversion, bootstrap=args.bootstrap,
-        seed=args.seed, start=parse_assignments(args.start, "--start"),
-        fixed=parse_assignments(args.fix, "--fix"), initial=parse_assignments(args.initial, "--initial"),
-        profile=not args.no_profile, absolute_sigma=args.absolute_sigma, weighting=args.weighting,
-        time_unit=args.time_unit, concentration_unit=args.concentration_unit)
+    with _progress(args) as progress:
+        payload, text = fit_command(
+            args.table, args.time_column, args.column, model=args.model, mechanism=args.mechanism,
+            observed=args.observed, species=args.species, sigma_columns=args.sigma_column,
+            compare=args.compare, target_conversion=args.target_conversion, bootstrap=args.bootstrap,
+            seed=args.seed, start=parse_assignments(args.start, "--start"),
+            fixed=parse_assignments(args.fix, "--fix"), initial=parse_assignments(args.initial, "--initial"),
+            profile=not args.no_profile, absolute_sigma=args.absolute_sigma, weighting=args.weighting,
+            time_unit=args.time_unit, concentration_unit=args.concentration_unit, progress=progress)
     if args.json:
         _print_json(payload)
     else:
         print(text)
-    for warning in payload.get("warnings", []):
-        print(f"kinetics fit: warning: {warning}", file=sys.stderr)
+    if not args.quiet:  # the text above lists them already; stderr keeps them visible beside --json
+        for warning in payload.get("warnings", []):
+            print(f"kinetics fit: warning: {warning}", file=sys.stderr)
     return 0 if payload["converged"] else 1
 
 
@@ -136,7 +213,7 @@ def _cmd_arrhenius(args) -> int:
 
 # ---------------------------------------------------------------- watch (live)
 def _add_watch(sub) -> None:
-    p = sub.add_parser("watch", help="follow a run live as spectra arrive in its folder")
+    p = sub.add_parser("watch", help="follow a run live as spectra arrive in its folder", epilog=SAFETY_NOTE)
     p.add_argument("config", type=Path, help="run config (TOML), as for `kinetics run`")
     p.add_argument("--out", type=Path, default=None,
                    help="output folder: ledger, series.csv, fit.json, index.html "
@@ -162,6 +239,7 @@ def _add_watch(sub) -> None:
                    help="also serve the page on http://127.0.0.1:PORT (default 8765)")
     p.add_argument("--plot", action="store_true", help="live matplotlib window")
     p.add_argument("--json", action="store_true", help="print the final summary as one JSON object")
+    _add_quiet(p)
     p.set_defaults(func=_cmd_watch)
 
 
@@ -252,7 +330,8 @@ def _cmd_integrate(args) -> int:
 
 # ---------------------------------------------------------------- run / demo (the whole job)
 def _add_run(sub) -> None:
-    p = sub.add_parser("run", help="batch: a run config (folder -> series -> fit -> report) or a study config")
+    p = sub.add_parser("run", help="batch: a run config (folder -> series -> fit -> report) or a study config",
+                       epilog=SAFETY_NOTE)
     p.add_argument("config", type=Path, help="a single-run config or a temperature-study config (TOML)")
     p.add_argument("--out", type=Path, help="output folder (default: <config>.out beside the config)")
     p.add_argument("--no-report", action="store_true", help="skip the HTML/PDF report")
@@ -261,6 +340,7 @@ def _add_run(sub) -> None:
                    help='campaigns: "local" (a local Dask cluster), "none" (this process) or tcp://host:8786')
     p.add_argument("--workers", type=int, metavar="N", help="campaigns: worker processes of the local cluster "
                    "(1: in this process)")
+    _add_quiet(p)
     p.set_defaults(func=_cmd_run)
 
 
@@ -273,23 +353,54 @@ def _cmd_run(args) -> int:
             from kinetics.errors import ConfigError
 
             raise ConfigError("--workers", f"{args.workers} workers", hint="give 1 or more")
-        campaign = workflow.run_campaign_config(args.config, out, scheduler=args.scheduler, workers=args.workers)
+        campaign = workflow.run_campaign_config(args.config, out, scheduler=args.scheduler, workers=args.workers, report=not args.no_report)
         if args.json:
             _print_json(campaign.to_dict())
         else:
             print(campaign.text())
         return 0 if campaign.success else 1
-    if workflow.is_study_file(args.config):
-        job = workflow.run_study_config(args.config, out, report=not args.no_report)
-    else:
-        job = workflow.run_single(args.config, out, report=not args.no_report)
+    with _progress(args) as progress:
+        if workflow.is_study_file(args.config):
+            job = workflow.run_study_config(args.config, out, report=not args.no_report, progress=progress)
+        else:
+            job = workflow.run_single(args.config, out, report=not args.no_report, progress=progress)
     if args.json:
         _print_json(job.to_dict())
     else:
-        print(_job_text(job))
+        print(_job_text(job, quiet=args.quiet))
     failed = (job.study is not None and not job.study.success) or any(
         r.fit is None or not r.fit.converged for r in job.runs)
     return 1 if failed else 0
+
+
+def _add_reprocess(sub) -> None:
+    p = sub.add_parser("reprocess", help="one run config over every run folder of an archive, as Dask tasks")
+    p.add_argument("archive", type=Path, help="the folder that holds the run folders")
+    p.add_argument("--config", type=Path, required=True, help="the run config (TOML) applied to each run folder")
+    p.add_argument("--pattern", default="run_*", help='names of the run folders (default "run_*")')
+    p.add_argument("--out", type=Path, help="output folder (default: <archive>.out beside the archive)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help='"local" (a local Dask cluster, default), "none" (this process) or tcp://host:8786')
+    p.add_argument("--workers", type=int, metavar="N", help="worker processes of the local cluster (1: this process)")
+    p.set_defaults(func=_cmd_reprocess)
+
+
+def _cmd_reprocess(args) -> int:
+    from kinetics.campaign.archive import reprocess_archive
+
+    if args.workers is not None and args.workers < 1:
+        from kinetics.errors import ConfigError
+
+        raise ConfigError("--workers", f"{args.workers} workers", hint="give 1 or more")
+    out = args.out or args.archive.resolve().with_suffix(".out")
+    outcome = reprocess_archive(args.archive, args.config, out, pattern=args.pattern, scheduler=args.scheduler,
+                                workers=args.workers)
+    if args.json:
+        _print_json(outcome.to_dict())
+    else:
+        print(outcome.text())
+    return 0 if outcome.success else 1
 
 
 def _add_demo(sub) -> None:
@@ -301,6 +412,7 @@ def _add_demo(sub) -> None:
     p.add_argument("--make-data", type=Path, metavar="DIR",
                    help="only (re)generate the demo series into DIR, bit for bit, and stop")
     p.add_argument("--json", action="store_true", help="print one JSON object")
+    _add_quiet(p)
     p.set_defaults(func=_cmd_demo)
 
 
@@ -317,20 +429,15 @@ def _cmd_demo(args) -> int:
         return 0
     from watchers import workflow
 
-    if not args.json:
+    if not (args.json or args.quiet):
         print("kinetics demo: replaying four invented runs through the live path ...", file=sys.stderr)
-    job = workflow.run_demo(args.out, args.data, args.interval)
+    with _progress(args) as progress:
+        job = workflow.run_demo(args.out, args.data, args.interval, progress=progress)
     if args.json:
         _print_json(job.to_dict())
     else:
-        print(_job_text(job))
+        print(_job_text(job, quiet=args.quiet))
     return 0 if job.study is not None and job.study.success else 1
-
-
-SAFETY_NOTE = ("Safety: reactions can run away and heated or pressurised sample tubes can fail; "
-               "strong magnets attract tools and affect implants. Follow local safety rules and "
-               "qualified supervision; kinetic parameters are no substitute for a calorimetric "
-               "hazard assessment.")
 
 
 def _fmt(entry, digits: int = 4) -> str:
@@ -341,9 +448,30 @@ def _fmt(entry, digits: int = 4) -> str:
     return f"{entry['value']:.{digits}g} {entry.get('unit', '')}{interval}"
 
 
-def _job_text(job) -> str:
+def _grouped_warnings(job) -> list[str]:
+    """Every warning of the job once: a run warning names the runs it concerns (or says every
+    run); the study's own warnings follow."""
+    grouped: dict[str, list[str]] = {}
+    for run in job.runs:
+        for warning in run.warnings:
+            labels = grouped.setdefault(warning, [])
+            if run.label not in labels:
+                labels.append(run.label)
     lines = []
-    for note in job.notes:
+    for warning, labels in grouped.items():
+        where = "" if len(job.runs) == 1 else (
+            " (every run)" if len(labels) == len(job.runs) else f" ({', '.join(labels)})")
+        lines.append(f"warning{where}: {warning}")
+    study_warnings = [] if job.study is None else [w for w in dict.fromkeys(job.study.warnings) if w not in grouped]
+    lines += [f"warning (study): {warning}" for warning in study_warnings]
+    return [""] + lines if lines else []
+
+
+def _job_text(job, quiet: bool = False) -> str:
+    """The result of ``kinetics run``/``demo`` for the terminal; each warning once, naming the
+    runs it concerns (``quiet``: without the notes on where data came from)."""
+    lines = []
+    for note in () if quiet else job.notes:
         lines.append(note)
     if job.runs:
         lines.append("")
@@ -355,8 +483,6 @@ def _job_text(job) -> str:
             lines.append(f"{run.label:<{width}} {len(run.table):>7}  {_fmt(run.k()):<48} {status}")
             if run.breakdown():
                 lines.append(f"{'':<{width}} {'':>7}  {run.breakdown()}")
-            for warning in run.warnings:
-                lines.append(f"{'':<{width}} {'':>7}  warning: {warning}")
             skipped = {k: v for k, v in run.counts.items() if k not in ("processed",) and v}
             if skipped:
                 lines.append(f"{'':<{width}} files: " + ", ".join(f"{k} {v}" for k, v in sorted(skipped.items())))
@@ -383,20 +509,17 @@ def _job_text(job) -> str:
             ea = g.get("ea_kj_per_mol")
             if isinstance(ea, dict):
                 lines.append(f"  Ea from the global fit  {_fmt(ea)}")
-        for warning in study.warnings:
-            lines.append(f"  warning: {warning}")
     if job.truth:
         lines.append("")
         lines.append(f"(the demo's generator used Ea = {job.truth['ea_kj_per_mol']} kJ/mol and k = "
                      + ", ".join(f"{float(v):.4g} s^-1 at {t} °C" for t, v in job.truth["k_per_s"].items())
                      + ")")
+    lines += _grouped_warnings(job)
     lines.append("")
     lines.append(f"outputs: {job.out_dir}")
     if job.report_html is not None:
         lines.append(f"report:  {job.report_html}")
         lines.append(f"         {job.report_pdf}")
-    lines.append("")
-    lines.append(SAFETY_NOTE)
     return "\n".join(lines)
 
 
@@ -428,7 +551,7 @@ def _cmd_bench(args) -> int:
     return 0
 
 
-_ADDERS = [_add_demo, _add_run, _add_watch, _add_inspect, _add_integrate, _add_fit, _add_arrhenius,
+_ADDERS = [_add_demo, _add_run, _add_reprocess, _add_watch, _add_inspect, _add_integrate, _add_fit, _add_arrhenius,
            _add_init, _add_bench]
 
 
@@ -437,6 +560,7 @@ def build_parser() -> argparse.ArgumentParser:
         prog="kinetics",
         description="NMR spectra recorded during a reaction -> concentrations, rate "
         "constants with intervals, activation parameters.",
+        epilog=SAFETY_NOTE,
     )
     parser.add_argument("--version", action="version", version=f"kinetics {__version__}")
     parser.add_argument("-v", "--verbose", action="store_true", help="log progress to stderr")
@@ -454,6 +578,14 @@ def main(argv: list[str] | None = None) -> int:
         format="%(levelname)s %(name)s: %(message)s",
         stream=sys.stderr,
     )
+    root = logging.getLogger()
+    level_before = root.level
+    if getattr(args, "quiet", False):
+        root.setLevel(logging.ERROR)
+    once = _OnceFilter()
+    handlers = list(root.handlers)
+    for handler in handlers:
+        handler.addFilter(once)
     if not args.verbose:  # Dask logs its cluster's life at INFO (workers too); read when it is imported
         os.environ.setdefault("DASK_LOGGING__DISTRIBUTED", "warning")
     try:
@@ -466,6 +598,10 @@ def main(argv: list[str] | None = None) -> int:
         devnull = os.open(os.devnull, os.O_WRONLY)
         os.dup2(devnull, sys.stdout.fileno())
         return 0
+    finally:  # main() may run again in this process (tests): leave logging as it was
+        root.setLevel(level_before)
+        for handler in handlers:
+            handler.removeFilter(once)
 
 
 if __name__ == "__main__":  # pragma: no cover

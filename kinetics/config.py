@@ -31,7 +31,7 @@ from kinetics.errors import ConfigError
 from kinetics.lineshapes import MULTIPLICITY_LINES, PROFILES
 from kinetics.signals import BASELINES, LineShape, SignalDefinition, validate_signals
 
-TIME_SOURCES = ("header", "filename", "mtime")
+TIME_SOURCES = ("header", "filename", "mtime", "interval")
 QUANTIFY_MODES = ("standard", "initial", "relative", "none")
 ORDERS = ("name", "time")
 
@@ -43,9 +43,12 @@ class TimeConfig:
 
     Attributes
     ----------
-    source : {'header', 'filename', 'mtime'}
-        Acquisition start from the file header (JCAMP-DX date), from a regex on the file
-        name, or the file's modification time (taken as the *end* of acquisition).
+    source : {'header', 'filename', 'mtime', 'interval'}
+        Acquisition start from the file header (JCAMP-DX date; for a run read from one
+        arrayed file, each trace's date or time variable), from a regex on the file name,
+        or the file's modification time (taken as the *end* of acquisition); 'interval'
+        (arrayed files only): trace i starts ``i * interval_s`` after ``series_start``
+        (without it, trace i's midpoint is ``first_spectrum_offset_s + i * interval_s``).
     filename_pattern : str or None
         Regex with named groups: ``timestamp`` (ISO 8601), or ``year month day hour
         minute second``, or ``elapsed_s`` / ``elapsed_min`` / ``elapsed_h`` (acquisition
@@ -57,6 +60,10 @@ class TimeConfig:
         Time of the first spectrum's midpoint when no reaction start is given (s).
     duration_s : float or None
         Acquisition duration to assume when the header does not give one.
+    interval_s : float or None
+        Seconds between the starts of successive traces (``source = 'interval'``).
+    series_start_utc : datetime or None
+        Acquisition start of the first trace (``source = 'interval'``).
     """
 
     source: str = "header"
@@ -64,6 +71,8 @@ class TimeConfig:
     reaction_start_utc: datetime | None = None
     first_spectrum_offset_s: float = 0.0
     duration_s: float | None = None
+    interval_s: float | None = None
+    series_start_utc: datetime | None = None
 
 
 @dataclass(frozen=True)
@@ -223,9 +232,10 @@ class RunConfig:
     path : Path or None
         The TOML file (relative paths inside it are relative to its folder).
     folder : Path
-        Folder of spectra.
+        Folder of spectra (for ``[run] file``: the folder holding that file).
     pattern : str
-        Glob of the spectrum files (default ``*.jdx`` ... see ``[run]``).
+        Glob of the spectrum files (default ``*.jdx`` ... see ``[run]``; for ``[run] file``
+        the file's name, escaped).
     order : {'name', 'time'}
         Series order: by file name or by time.
     time, integration, quantify, alignment, fit, live : the section records
@@ -255,6 +265,8 @@ class RunConfig:
     pipeline: Any = field(default=None, repr=False, compare=False)
     unnamed: tuple[str, ...] = ()
     text: str | None = field(default=None, repr=False, compare=False)
+    #: the one arrayed file the run reads (``[run] file``), or None for a folder of files
+    file: Path | None = None
 
     @property
     def processing(self) -> Mapping[str, Any]:
@@ -304,6 +316,22 @@ def _number(value, key: str, minimum: float | None = None, strict: bool = False)
 def _string(value, key: str) -> str:
     if not isinstance(value, str) or not value.strip():
         raise ConfigError(key, f"expected a non-empty string, got {value!r}")
+    return value
+
+
+#: Longest path a config may give, and longest part of one (the usual limits of Linux and
+#: macOS file systems, PATH_MAX and NAME_MAX; from memory): past them the system refuses it.
+MAX_PATH_LENGTH, MAX_PATH_PART_LENGTH = 4096, 255
+
+
+def _path_text(value, key: str) -> str:
+    """A path given in the config: a non-empty string the file system can take."""
+    value = _string(value, key)
+    longest = max((len(part.encode("utf-8")) for part in re.split(r"[/\\]", value)), default=0)
+    if len(value.encode("utf-8")) > MAX_PATH_LENGTH or longest > MAX_PATH_PART_LENGTH or "\0" in value:
+        raise ConfigError(key, f"a path of {len(value)} characters (a part of up to {longest} bytes); the file "
+                          f"system takes at most {MAX_PATH_LENGTH} and {MAX_PATH_PART_LENGTH} per part",
+                          hint="give the folder's real, shorter path")
     return value
 
 
@@ -400,8 +428,9 @@ def parse_utc(value, key: str) -> datetime:
 
 
 # ---------------------------------------------------------------- sections
-_RUN_KEYS = {"folder", "pattern", "order"}
-_TIME_KEYS = {"source", "filename_pattern", "reaction_start", "first_spectrum_offset_s", "duration_s"}
+_RUN_KEYS = {"folder", "pattern", "order", "file"}
+_TIME_KEYS = {"source", "filename_pattern", "reaction_start", "first_spectrum_offset_s", "duration_s",
+              "interval_s", "series_start"}
 _INTEGRATION_KEYS = {"baseline", "edge_fraction", "noise_region_ppm", "fit_baseline_order", "global_fit"}
 _QUANTIFY_KEYS = {"mode", "standard", "initial_species", "initial_concentration_mol_per_l",
                   "initial_sigma_mol_per_l", "t1_s", "flip_angle_deg", "repetition_time_s",
@@ -437,11 +466,20 @@ def _time_section(raw: Mapping) -> TimeConfig:
             raise ConfigError("time.filename_pattern", "needs timestamp, year..minute or an elapsed_* group")
     start = raw.get("reaction_start")
     duration = raw.get("duration_s")
+    interval, series_start = raw.get("interval_s"), raw.get("series_start")
+    if source == "interval" and interval is None:
+        raise ConfigError("time.interval_s", "time.source = 'interval' needs the seconds between traces",
+                          hint="e.g. interval_s = 60 (and optionally series_start, the first trace's start)")
+    if source != "interval" and (interval is not None or series_start is not None):
+        key = "time.interval_s" if interval is not None else "time.series_start"
+        raise ConfigError(key, "only used with time.source = 'interval'", hint="remove it, or set source = 'interval'")
     return TimeConfig(
         source=source, filename_pattern=pattern,
         reaction_start_utc=None if start is None else parse_utc(start, "time.reaction_start"),
         first_spectrum_offset_s=_number(raw.get("first_spectrum_offset_s", 0.0), "time.first_spectrum_offset_s"),
         duration_s=None if duration is None else _number(duration, "time.duration_s", 0),
+        interval_s=None if interval is None else _number(interval, "time.interval_s", 0, strict=True),
+        series_start_utc=None if series_start is None else parse_utc(series_start, "time.series_start"),
     )
 
 
@@ -767,6 +805,25 @@ def _check_reference(reference, signals) -> None:
                               hint="give the reference peak's shift on the spectrum's scale (TMS: 0 ppm)")
 
 
+def _run_file(run: Mapping, base: Path) -> tuple[Path | None, str | None]:
+    """``[run] file`` (one arrayed file, relative to the config) and the pattern naming it.
+
+    Exclusive with ``folder`` and ``pattern``: a run reads a folder of files or one file.
+    """
+    if "file" not in run:
+        return None, None
+    for key in ("folder", "pattern"):
+        if key in run:
+            raise ConfigError(f"run.{key}", "run.file and run.folder/run.pattern exclude each other",
+                              hint="a run reads either one arrayed file (file) or a folder of files (folder, pattern)")
+    file = Path(_path_text(run["file"], "run.file"))
+    if not file.name or file.name in (".", ".."):
+        raise ConfigError("run.file", f"{run['file']!r} names no file", hint="e.g. file = 'series/reaction.jdx'")
+    import glob
+
+    return (file if file.is_absolute() else base / file), glob.escape(file.name)
+
+
 _OTHER_SECTIONS = {"processing"}
 _OWN_SECTIONS = {"run", "time", "integration", "quantify", "alignment", "signals", "fit", "live"}
 
@@ -776,11 +833,24 @@ def run_config_from_dict(raw: Mapping[str, Any], path: str | Path | None = None)
     base = Path(path).parent if path is not None else Path.cwd()
     run = _table(raw.get("run"), "run")
     _check_keys(run, _RUN_KEYS, "run")
-    if "folder" not in run:
-        raise ConfigError("run.folder", "missing: the folder of spectra")
-    folder = Path(_string(run["folder"], "run.folder"))
-    if not folder.is_absolute():
-        folder = base / folder
+    file, pattern = _run_file(run, base)
+    if file is not None:
+        folder = file.parent
+    elif "folder" not in run:
+        raise ConfigError("run.folder", "missing: the folder of spectra",
+                          hint="or run.file, one arrayed file holding the whole series")
+    else:
+        folder = Path(_path_text(run["folder"], "run.folder"))
+        pattern = _pattern(run.get("pattern", "*.jdx"))
+        if not folder.is_absolute():
+            folder = base / folder
+    time_config = _time_section(_table(raw.get("time"), "time"))
+    if (file is None and time_config.source == "interval") or (
+            file is not None and time_config.source in ("filename", "mtime")):
+        raise ConfigError("time.source", "'interval' is for a run read from one arrayed file ([run] file)"
+                          if file is None else f"{time_config.source!r} does not apply to one arrayed file",
+                          hint="use 'header' (dates or times in the files)" if file is None else
+                          "use 'header' (each trace's date or time in the file) or 'interval' with interval_s")
     signals = signals_from_list(raw.get("signals"))
     sections = {name: value for name, value in raw.items() if name not in _OWN_SECTIONS - {"fit", "live"}}
     unknown = sorted(set(sections) - _OTHER_SECTIONS - {"fit", "live"})
@@ -794,9 +864,9 @@ def run_config_from_dict(raw: Mapping[str, Any], path: str | Path | None = None)
     quantify = _quantify_section(_table(raw.get("quantify"), "quantify"), signals)
     return RunConfig(
         path=None if path is None else Path(path), folder=folder,
-        pattern=_pattern(run.get("pattern", "*.jdx")),
+        pattern=pattern, file=None if file is None else folder / file.name,
         order=_choice(run.get("order", "name"), "run.order", ORDERS),
-        time=_time_section(_table(raw.get("time"), "time")),
+        time=time_config,
         integration=_integration_section(_table(raw.get("integration"), "integration")),
         quantify=quantify,
         alignment=_alignment_section(_table(raw.get("alignment"), "alignment")),
@@ -920,14 +990,14 @@ def _study_run(run, index: int, base: Path) -> StudyRunConfig:
         raise ConfigError(key, "needs exactly one of 'table' (a CSV series table) and 'config' (a run config)")
     folder = None
     if "folder" in run:
-        folder = base / str(run["folder"])
+        folder = base / _path_text(run["folder"], f"{key}.folder")
         if not folder.is_dir():
             raise ConfigError(f"{key}.folder", f"folder {folder} does not exist")
     return StudyRunConfig(
         key=key, label=str(run.get("label", f"run {index + 1}")), temperature_kelvin=float(kelvin[0]),
         temperature_warnings=tuple(warnings),
-        table=base / str(run["table"]) if "table" in run else None,
-        config=base / str(run["config"]) if "config" in run else None, folder=folder,
+        table=base / _path_text(run["table"], f"{key}.table") if "table" in run else None,
+        config=base / _path_text(run["config"], f"{key}.config") if "config" in run else None, folder=folder,
         time_column=str(run.get("time_column", "time_s")), time_unit=time_unit, column=str(run["column"]),
         sigma_column=None if run.get("sigma_column") is None else str(run["sigma_column"]))
 

@@ -44,6 +44,7 @@ from pathlib import Path
 import numpy as np
 from scipy import constants
 
+from kinetics.atomic import write_atomic
 from kinetics.simulate import Acquisition, Multiplet, SpeciesSignals, write_series
 
 SEED = 20261201
@@ -137,11 +138,12 @@ def make_demo_data(folder: str | Path) -> list[Path]:
             "t_ref_kelvin": T_REF_KELVIN, "ester_initial_mol_per_l": ESTER_INITIAL_MOL_PER_L,
             "standard_mol_per_l": STANDARD_MOL_PER_L, "seed": SEED,
         }
-        (path / "truth.json").write_text(json.dumps(truth, indent=2) + "\n")
+        write_atomic(path / "truth.json", json.dumps(truth, indent=2) + "\n")
         written.append(path)
     from kinetics.campaign.demo import write_series as write_campaign_series
 
     write_campaign_series(folder / "campaign")  # the demo campaign's series tables (their own seed)
+    make_f19_arrayed(folder / F19_FOLDER)  # the 19F run in one arrayed file (its own seed)
     return written
 
 
@@ -322,3 +324,150 @@ def study_config_over_runs_text(run_config: str, data_folder: str) -> str:
             "",
         ]
     return "\n".join(lines)
+
+
+# ---------------------------------------------------------------- the 19F run in one arrayed file
+# Scenario (invented compounds): aminolysis of the fictitious ester *quenyl
+# trifluoroacetate* (reactant "ester", a CF3 singlet at -75.20 ppm) by an excess of the
+# fictitious amine *dorvamine*, giving *dorvyl trifluoroacetamide* (product "amide", its
+# CF3 singlet at -76.40 ppm); pseudo-first order in the ester.  alpha,alpha,alpha-
+# Trifluorotoluene (PhCF3, -63.72 ppm on the CCl3F scale, value from memory:
+# kinetics.nuclei.INTERNAL_REFERENCES) is weighed in as internal standard and sets the
+# shift scale.  19F observed on a 1.4 T benchtop magnet; the instrument's axis is off by
+# F19_AXIS_OFFSET_PPM (the reference puts it right), the field drifts a little, every FID
+# has its own receiver phase.  The whole series is ONE arrayed JCAMP-DX file (LINK
+# blocks, one per time point, each with its ##LONG DATE), as an arrayed acquisition is
+# exported.
+F19_FOLDER = "f19_arrayed"
+F19_FILE = "series.jdx"
+F19_SEED = 20261202
+F19_K_PER_S = 6.0e-4
+F19_TRACES = 30
+F19_INTERVAL_S = 120.0
+F19_FIRST_MID_S = 60.0
+F19_SCAN_DURATION_S = 32.0
+F19_ESTER_MOL_PER_L = 0.200
+F19_STANDARD_MOL_PER_L = 0.0500
+F19_ESTER_PPM, F19_AMIDE_PPM, F19_STANDARD_PPM = -75.20, -76.40, -63.72
+F19_AXIS_OFFSET_PPM = 0.25
+
+
+def f19_acquisition() -> Acquisition:
+    """19F at 1.4 T: the Larmor frequency from the IUPAC frequency ratio (kinetics.nuclei)."""
+    from kinetics.nuclei import larmor_mhz
+
+    return Acquisition(observe_mhz=round(larmor_mhz(1.4, "19F"), 4), n_points=4096,
+                       spectral_width_ppm=30.0, carrier_ppm=-70.0, nucleus="19F")
+
+
+F19_SPIN_SYSTEMS = (
+    SpeciesSignals("ester", (Multiplet(F19_ESTER_PPM, 3, width_hz=1.5),)),
+    SpeciesSignals("amide", (Multiplet(F19_AMIDE_PPM, 3, width_hz=1.5),)),
+    SpeciesSignals("standard", (Multiplet(F19_STANDARD_PPM, 3, width_hz=1.2),)),
+)
+
+
+def make_f19_arrayed(folder: str | Path) -> Path:
+    """Write the 19F demo run: ``series.jdx`` (one LINK block per time point), ``truth.json``
+    and ``truth.csv``; returns the arrayed file.  Bit for bit the same on every call."""
+    import tempfile
+
+    from kinetics.spectra.arrayed import write_arrayed_jcampdx
+    from kinetics.spectra.reader import read
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    rng = np.random.default_rng(F19_SEED)
+    times_s = F19_FIRST_MID_S + F19_INTERVAL_S * np.arange(F19_TRACES)
+    ester = F19_ESTER_MOL_PER_L * np.exp(-F19_K_PER_S * times_s)
+    concentrations = {"ester": ester, "amide": F19_ESTER_MOL_PER_L - ester,
+                      "standard": np.full(F19_TRACES, F19_STANDARD_MOL_PER_L)}
+    drift = F19_AXIS_OFFSET_PPM + 0.02 * times_s / times_s[-1] + rng.normal(0.0, 0.002, F19_TRACES)
+    phase0 = rng.uniform(-40.0, 40.0, F19_TRACES)
+    start = datetime(2026, 3, 16, 10, 0, 0, tzinfo=timezone.utc)
+    with tempfile.TemporaryDirectory() as scratch:
+        write_series(scratch, times_s, concentrations, F19_SPIN_SYSTEMS, rng, acquisition=f19_acquisition(),
+                     start_utc=start, scan_duration_s=F19_SCAN_DURATION_S, n_scans=16, kind="fid",
+                     compression="dif", snr=250.0, phase0_deg=phase0, drift_ppm=drift,
+                     amplitude_per_nucleus=1.0e4, title="quenyl trifluoroacetate aminolysis")
+        files = sorted(Path(scratch).glob("fid_*.jdx"))
+        records = [read(path) for path in files]
+        truth = json.loads((Path(scratch) / "truth.json").read_text())
+        truth_csv = (Path(scratch) / "truth.csv").read_text()
+    path = folder / F19_FILE
+    write_arrayed_jcampdx(path, records, form="link")
+    truth["arrayed_file"] = F19_FILE
+    truth["blocks"] = "one LINK block per row of files, in order (block 0 = fid_0001)"
+    truth["scenario"] = {
+        "reaction": "quenyl trifluoroacetate + dorvamine -> dorvyl trifluoroacetamide (invented compounds)",
+        "k_per_s": F19_K_PER_S, "ester_initial_mol_per_l": F19_ESTER_MOL_PER_L,
+        "standard": "PhCF3 (alpha,alpha,alpha-trifluorotoluene)", "standard_mol_per_l": F19_STANDARD_MOL_PER_L,
+        "standard_ppm": F19_STANDARD_PPM, "axis_offset_ppm": F19_AXIS_OFFSET_PPM,
+        "field_tesla": 1.4, "seed": F19_SEED,
+    }
+    (folder / "truth.json").write_text(json.dumps(truth, indent=2) + "\n")
+    (folder / "truth.csv").write_text(truth_csv)
+    return path
+
+
+def f19_config_text(file: str) -> str:
+    """The run config of the 19F demo (``file`` relative to the config)."""
+    reference_in_file = F19_STANDARD_PPM + F19_AXIS_OFFSET_PPM
+    return f'''# Demo 19F run: aminolysis of the invented ester quenyl trifluoroacetate, followed by its
+# CF3 singlet on a 1.4 T benchtop magnet (19F at 56.09 MHz).  The whole series is one
+# arrayed JCAMP-DX file (one block per time point).  See demo_series/README.md.
+# Run it with:  kinetics run THIS_FILE --out OUT    (or follow it live with kinetics watch)
+
+[run]
+file = "{file}"   # one arrayed file holds every trace (relative to this file)
+
+[time]
+source = "header"             # each block's ##LONG DATE, plus half its duration
+first_spectrum_offset_s = {F19_FIRST_MID_S:g}  # the first trace's midpoint is {F19_FIRST_MID_S:g} s after mixing
+
+[processing]
+phase = "auto"                # every FID has its own receiver phase
+line_broadening_hz = 0.5
+# the standard PhCF3 sets the CCl3F scale: in the files it sits near {reference_in_file:.2f} ppm
+reference = {{ ppm = {reference_in_file:.2f}, window_ppm = 0.5, target_ppm = {F19_STANDARD_PPM} }}
+
+[alignment]
+window_ppm = [-64.2, -63.2]   # align every trace on the standard (the field drifts)
+max_shift_ppm = 0.1
+
+[integration]
+noise_region_ppm = [[-60.0, -57.0]]   # no fluorine absorbs here
+
+[[signals]]
+name = "ester_CF3"
+species = "ester"
+window_ppm = [-75.75, -74.65]
+nuclei = 3
+
+[[signals]]
+name = "amide_CF3"
+species = "amide"
+window_ppm = [-76.95, -75.85]
+nuclei = 3
+
+[[signals]]
+name = "standard_CF3"
+species = "standard"
+window_ppm = [-64.27, -63.17]
+nuclei = 3
+standard = true
+concentration_mol_per_l = {F19_STANDARD_MOL_PER_L}
+concentration_sigma_mol_per_l = 0.0005   # weighing uncertainty, 1 %
+
+[quantify]
+mode = "standard"
+reactant = "ester"
+product = "amide"
+
+[fit]
+model = "first"               # pseudo-first order in the ester (the amine in excess)
+species = "ester"
+
+[live]
+target_conversion = 0.95      # a live run stops once conversion is surely past 95 %
+'''

@@ -435,8 +435,7 @@ def draft_config(folder: str | Path, out: str | Path | None = None, *, force: bo
                          reference_offset_ppm=offset or 0.0)
     from kinetics.atomic import write_atomic
 
-    out.parent.mkdir(parents=True, exist_ok=True)
-    write_atomic(out, text, encoding="utf-8")
+    write_atomic(out, text, encoding="utf-8")  # creates the folder; failures are OutputError
     return Draft(source=Path(spectrum.source_path or files[0]), config_path=out, spectrum=spectrum, noise_sigma=noise,
                  threshold=threshold, peaks=tuple(peaks), windows=tuple(windows), noise_region_ppm=region,
                  files=tuple(files), skipped=tuple(skipped), text=text,

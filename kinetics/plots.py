@@ -28,11 +28,14 @@ from matplotlib.figure import Figure
 from kinetics.atomic import write_atomic
 
 __all__ = [
+    "styled",
+    "time_scale",
     "SeriesStyle",
     "SERIES_STYLES",
     "series_style",
     "stacked_spectra_figure",
     "concentration_figure",
+    "fit_figure",
     "arrhenius_figure",
     "eyring_figure",
     "global_fit_figure",
@@ -126,6 +129,9 @@ _WINDOW_FILL = "#e3d7b5"
 _WINDOW_HATCHES = ("", "//", "\\\\", "..", "xx", "||")
 _TRACE_DARK = np.array([0.09, 0.13, 0.27])   # first spectrum
 _TRACE_LIGHT = np.array([0.35, 0.62, 0.58])  # last spectrum
+#: the shaded signal windows and the trace colour ramp, for the live page (kinetics.livepage)
+PAGE_COLOURS = {"window_fill": _WINDOW_FILL, "window_edge": "#8c7a4a", "window_alpha": 0.55,
+                "first_trace": tuple(_TRACE_DARK), "last_trace": tuple(_TRACE_LIGHT)}
 _PNG_METADATA = {"Software": None}  # keeps the files free of tool banners and URLs
 
 
@@ -170,6 +176,12 @@ def _time_scale(max_time_s: float) -> tuple[float, str]:
     return 1.0, "s"
 
 
+# Public names for the other figure modules (kinetics.campaign.figures): the same style
+# context and the same choice of time unit, so every figure of the project looks alike.
+styled = _styled
+time_scale = _time_scale
+
+
 # ---------------------------------------------------------------- spectra
 def _as_trace(item) -> tuple[np.ndarray, np.ndarray]:
     if hasattr(item, "ppm") and hasattr(item, "real"):
@@ -204,6 +216,7 @@ def stacked_spectra_figure(
     max_traces: int = 12,
     title: str | None = None,
     width: str | float = "double",
+    height_in: float | None = None,
 ) -> Figure:
     """Spectra through time, stacked bottom (first) to top (last), tracked windows shaded.
 
@@ -225,6 +238,8 @@ def stacked_spectra_figure(
     title : str, optional
     width : "single", "double" or float (cm)
         Print width (8.5 cm, 17.5 cm or the given centimetres).
+    height_in : float, optional
+        Figure height in inches (default: grows with the number of traces).
 
     Returns
     -------
@@ -252,7 +267,7 @@ def stacked_spectra_figure(
     clip_height = None if not window_list else 1.6 * reference_height
 
     width_in = figure_width_in(width)
-    figure = _new_figure(width_in, min(1.6 + 0.22 * len(chosen), 1.1 * width_in))
+    figure = _new_figure(width_in, height_in or min(1.6 + 0.22 * len(chosen), 1.1 * width_in))
     ax = figure.add_subplot(1, 1, 1)
     for number, (name, lo, hi) in enumerate(window_list):
         ax.axvspan(lo, hi, facecolor=_WINDOW_FILL, edgecolor="#8c7a4a", alpha=0.55,
@@ -400,6 +415,51 @@ def concentration_figure(
     if title:
         figure.suptitle(_plain(title), fontsize=9)
     return figure
+
+
+def fit_figure(fit, *, species: Mapping | None = None, concentration_unit: str = "mol L⁻¹",
+               n_curve: int = 300, title: str | None = None, width: str | float = "double") -> Figure:
+    """A rate-law fit: measured and fitted courses, 95 % band, residuals (:func:`concentration_figure`).
+
+    Parameters
+    ----------
+    fit : kinetics.rates.fit.FitResult
+        Read through ``time_s``, ``observed``/``fitted`` (m, n), ``columns``, ``band(t)``
+        and ``data.sigma``.
+    species : mapping name -> values or (values, sigma), optional
+        Further measured series on the fit's time points (products, the standard, a mass
+        balance), each shape (n,), drawn as points with error bars (no curve: the rate law
+        did not fit them).
+    concentration_unit, title, width : as in :func:`concentration_figure`
+    n_curve : int
+        Points of the fitted curve and its band.
+    """
+    def label(column: str) -> str:  # ``ester_concentration`` -> ``ester``: the axis names the quantity
+        return column[: -len("_concentration")] if column.endswith("_concentration") and len(column) > 14 else column
+
+    time_s = np.asarray(fit.time_s, float)
+    observed = np.atleast_2d(np.asarray(fit.observed, float))
+    fitted = np.atleast_2d(np.asarray(fit.fitted, float))
+    columns = [label(str(c)) for c in fit.columns]
+    sigma_array = getattr(getattr(fit, "data", None), "sigma", None)
+    curve_t = np.linspace(float(time_s.min()), float(time_s.max()), n_curve)
+    curve, low, high = (np.atleast_2d(np.asarray(a, float)) for a in fit.band(curve_t))
+    observed_map = dict(zip(columns, observed))
+    sigma_map = {} if sigma_array is None else dict(zip(columns, np.atleast_2d(sigma_array)))
+    for name, values in (species or {}).items():
+        if isinstance(values, tuple) and len(values) == 2:
+            values, errors = values
+            if errors is not None:
+                sigma_map[label(str(name))] = np.asarray(errors, float)
+        values = np.asarray(values, float)
+        if values.shape != time_s.shape:
+            raise ValueError(f"species {name!r}: {values.shape[0] if values.ndim else 0} values for "
+                             f"{time_s.size} time points")
+        observed_map[label(str(name))] = values
+    return concentration_figure(
+        time_s, observed_map, sigma=sigma_map or None, curve_time_s=curve_t, curve=dict(zip(columns, curve)),
+        band={c: (lo, hi) for c, lo, hi in zip(columns, low, high) if np.all(np.isfinite(lo))},
+        fitted=dict(zip(columns, fitted)), concentration_unit=concentration_unit, title=title, width=width)
 
 
 def live_figure(table, signals: Sequence[str], curve: Mapping | None = None, *, sigma_suffix: str = "_stderr",

@@ -33,18 +33,17 @@ import io
 import logging
 import platform
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
-from matplotlib.backends.backend_pdf import PdfPages
 from matplotlib.figure import Figure
 
 from kinetics import numbers, plots
-from kinetics.atomic import write_atomic
+from kinetics.atomic import moved_path, staged_folder, write_atomic
 from kinetics.jsonio import dumps
 from kinetics.plots import png_bytes
 
@@ -273,18 +272,20 @@ def comparison_frame(table) -> pd.DataFrame:
 
 # ---------------------------------------------------------------- ready-made sections
 def spectra_section(spectra, *, windows=None, time_s=None, heading: str = "Spectra through time",
-                    title: str | None = None, max_traces: int = 12, total: int | None = None) -> Section:
+                    title: str | None = None, max_traces: int = 12, total: int | None = None,
+                    height_in: float | None = None) -> Section:
     """Stacked spectra with the tracked windows (see :func:`kinetics.plots.stacked_spectra_figure`).
 
     ``total`` is the number of spectra in the run when ``spectra`` is already a selection
     (the caption then says "12 of 36 spectra").
     """
     figure = plots.stacked_spectra_figure(spectra, time_s=time_s, windows=windows, title=title,
-                                          max_traces=max_traces)
+                                          max_traces=max_traces, height_in=height_in)
     shown = min(len(spectra), max(2, max_traces))
     total = len(spectra) if total is None else max(int(total), shown)
-    count = f"{shown} of {total} spectra" if total != shown else f"{shown} spectra"
-    caption = (f"{count}, first at the bottom; shaded bands are the "
+    count = (f"{shown} of {total} spectra shown, evenly spaced through the run" if total != shown
+             else f"{shown} spectra")
+    caption = (f"{count}, first at the bottom, each labelled with its time from the start; shaded bands are the "
                "tracked signal windows" + ("; traces are scaled to the tracked signals and taller lines "
                                            "(a solvent) are clipped." if windows else "."))
     return Section(heading, (FigureBlock("Stacked spectra", figure, caption, name=f"{heading}_spectra"),))
@@ -304,7 +305,8 @@ def _species_label(column: str) -> str:
 
 def fit_section(fit, *, heading: str = "Concentrations and fitted rate law", comparison=None,
                 concentration_unit: str = "mol L⁻¹", n_curve: int = 300, name: str = "fit",
-                species: Mapping[str, Any] | None = None) -> Section:
+                species: Mapping[str, Any] | None = None, fit_report: bool = True,
+                compact: bool = False) -> Section:
     """Courses with fit, 95 % band and residuals, parameter and statistics tables.
 
     Parameters
@@ -322,6 +324,10 @@ def fit_section(fit, *, heading: str = "Concentrations and fitted rate law", com
         (no curve: the rate law did not fit them).  E.g. from the series table:
         ``{"alcohol": (table["alcohol_concentration"], table["alcohol_concentration_sigma"]),
         "mass balance": ester + alcohol}``.
+    fit_report : bool
+        Add the fit's plain-text report (studies leave it out: the tables hold the same).
+    compact : bool
+        Give the fit statistics in the parameters' caption instead of a table of their own.
     """
     time_s = np.asarray(fit.time_s, float)
     observed = np.atleast_2d(np.asarray(fit.observed, float))
@@ -350,8 +356,12 @@ def fit_section(fit, *, heading: str = "Concentrations and fitted rate law", com
         fitted=dict(zip(columns, fitted)), concentration_unit=concentration_unit)
     summary = fit.to_dict()
     status = "converged" if summary.get("converged") else "did NOT converge"
+    others = [label for label in observed_map if label not in columns]
+    shown = (f"Points: measured {', '.join(columns + others)} (error bars: standard uncertainty); "
+             f"lines: the fitted rate law for {', '.join(columns)}"
+             + (" (the other courses are measured only, not fitted)" if others else ""))
     blocks = [FigureBlock("Measured and fitted concentrations", figure,
-                          f"Model {summary.get('model')}: {summary.get('description', '')}. Shaded: 95 % "
+                          f"Model {summary.get('model')}: {summary.get('description', '')}. {shown}. Shaded: 95 % "
                           "band of the fitted curve; lower panel: measured minus fitted.", name=f"{name}_courses"),
               TableBlock("Fitted parameters", parameters_frame(summary["params"]), name=f"{name}_parameters",
                          caption=f"Fit {status}: {summary.get('message', '')}. Value ± standard uncertainty; "
@@ -359,6 +369,15 @@ def fit_section(fit, *, heading: str = "Concentrations and fitted rate law", com
               TableBlock("Fit statistics", pd.DataFrame([{key: summary.get(key) for key in (
                   "model", "n_points", "dof", "chi_square", "reduced_chi_square", "aicc", "bic", "converged")}]),
                   name=f"{name}_statistics")]
+    if compact:
+        # the statistics as one sentence of the parameters' caption (the CSV keeps the table)
+        blocks.pop()  # the statistics table (its CSV is not needed: fit.json holds them)
+        facts = "; ".join(
+            f"{label} {numbers.format_value(summary.get(key), 4) if isinstance(summary.get(key), float) else summary.get(key)}"
+            for key, label in (("n_points", "points"), ("dof", "degrees of freedom"), ("chi_square", "χ²"),
+                               ("reduced_chi_square", "reduced χ²"), ("aicc", "AICc")) if summary.get(key) is not None)
+        blocks[1] = TableBlock(blocks[1].heading, blocks[1].frame, name=blocks[1].name,
+                               caption=f"{blocks[1].caption} {facts}.")
     half = fit.half_life() if hasattr(fit, "half_life") and summary.get("converged") else None
     if half is not None and np.isfinite(half.value):
         u = getattr(half, "stderr", None)
@@ -373,7 +392,7 @@ def fit_section(fit, *, heading: str = "Concentrations and fitted rate law", com
         verdict = getattr(comparison, "verdict", "")
         blocks.append(TableBlock("Rate laws compared", comparison_frame(table), name=f"{name}_model_comparison",
                                  caption=verdict))
-    if hasattr(fit, "report"):
+    if fit_report and hasattr(fit, "report"):
         blocks.append(TextBlock("Fit report", (fit.report(),), preformatted=True))
     return Section(heading, tuple(blocks))
 
@@ -449,10 +468,28 @@ def global_section(global_result, runs=None, model=None, *, heading: str = "Glob
                                   f"Ea = {numbers.format_uncertain(ea.value, ea.stderr, 'kJ/mol')}; lower panels: "
                                   "measured minus fitted.", name=f"{name}_fit"))
     rows = global_result.comparison()
+    facts = global_result.to_dict()
+    notes = []
+    if facts.get("n_points") is not None:
+        notes.append(f"{facts['n_points']} points of {len(facts.get('runs') or runs or [])} runs, "
+                     f"{facts.get('dof')} degrees of freedom")
+    if isinstance(facts.get("reduced_chi2"), (int, float)):
+        notes.append(f"reduced χ² {facts['reduced_chi2']:.2f}")
+    if isinstance(facts.get("t_ref_kelvin"), (int, float)):
+        notes.append(f"T_ref = {facts['t_ref_kelvin']:.2f} K")
+    profile = facts.get("ea_profile_ci95_kj_per_mol")
+    if profile and all(isinstance(x, (int, float)) and np.isfinite(x) for x in profile):
+        notes.append(f"profile-likelihood 95 % interval of Ea {numbers.format_interval(*profile, 'kJ/mol')}")
+    if isinstance(facts.get("correlation_ea_ln_k_ref"), (int, float)):
+        notes.append(f"correlation of Ea and ln k_ref {facts['correlation_ea_ln_k_ref']:.2f}")
+    method = facts.get("interval_method")
+    caption = ("Value ± standard uncertainty; 95 % interval. Global fit: " + "; ".join(notes) + "."
+               + (f" Intervals: {method}." if method else ""))
     if rows:
         blocks.append(TableBlock("Two-step and global estimates compared", pd.DataFrame(rows),
-                                 name="two_step_vs_global", caption="Value ± standard uncertainty; 95 % interval."))
-    blocks.append(TextBlock("Global fit report", (global_result.report(),), preformatted=True))
+                                 name="two_step_vs_global", caption=caption))
+    else:
+        blocks.append(TextBlock("Global fit report", (global_result.report(),), preformatted=True))
     return Section(heading, tuple(blocks))
 
 
@@ -597,6 +634,8 @@ _PAGE_MARGIN_CM = 1.75       # A4 width 21 cm - 2 x 1.75 cm = 17.5 cm, the doubl
 _FONT = "KineticsSans"
 _FONT_BOLD = "KineticsSans-Bold"
 _FONT_MONO = "KineticsMono"
+_END = "end of text"     # key of the marker that records where the last page's text ends
+_LAST_PAGE_FILL = 0.5    # a last page filled less than this is laid out again (see _pdf_bytes)
 
 
 def _register_fonts() -> None:
@@ -702,7 +741,7 @@ def _pdf_table(frame: pd.DataFrame, styles: dict, width_pt: float):
 
 
 def _pdf_story(title, run_utc, summary, sections, config_text, packages, inputs, extra, figure_pdf,
-               warnings, places, width_pt):
+               warnings, places, width_pt, config_columns: int | None = None):
     from reportlab.lib import colors
     from reportlab.platypus import (CondPageBreak, KeepTogether, Paragraph, Preformatted, Spacer, Table,
                                     TableStyle)
@@ -804,7 +843,9 @@ def _pdf_story(title, run_utc, summary, sections, config_text, packages, inputs,
                                "tables/provenance_inputs.csv and in report.html.", styles["small"]))
     story.append(Paragraph("Configuration", styles["h2"]))
     config_lines = (config_text or "(none recorded)").splitlines()
-    if len(config_lines) > 40:
+    if config_columns is None:
+        config_columns = 2 if len(config_lines) > 40 else 1
+    if config_columns == 2:
         # two balanced columns (split across pages as needed), so a long config takes half the pages
         from reportlab.platypus.flowables import BalancedColumns
 
@@ -812,6 +853,7 @@ def _pdf_story(title, run_utc, summary, sections, config_text, packages, inputs,
                                      nCols=2, spaceBefore=0, spaceAfter=0, innerPadding=8))
     else:
         story.append(Preformatted("\n".join(config_lines), styles["mono"], maxLineLength=150))
+    story.append(_FigureSlot(_END, 0.0, 0.0, places))  # records where the text ends
     return story
 
 
@@ -857,14 +899,30 @@ def _pdf_bytes(title, run_utc, summary, sections, config_text, packages, inputs,
         canvas.drawRightString(A4[0] - margin, 0.9 * cm, f"page {doc.page}")
         canvas.restoreState()
 
-    buffer = io.BytesIO()
-    doc = SimpleDocTemplate(buffer, pagesize=A4, leftMargin=margin, rightMargin=margin, topMargin=1.5 * cm,
-                            bottomMargin=1.6 * cm, title=title, author="", creator="kinetics", producer="kinetics",
-                            subject="Reaction kinetics report", invariant=True,
-                            initialFontName=_FONT, initialFontSize=8.5, initialLeading=11.0)
-    story = _pdf_story(title, run_utc, summary, sections, config_text, packages, inputs, extra, figure_pdf,
-                       warnings, places, width_pt)
-    doc.build(story, onFirstPage=footer, onLaterPages=footer)
+    top_pt, usable_pt = A4[1] - 1.5 * cm, A4[1] - 1.5 * cm - 1.6 * cm
+
+    def build(columns):
+        places.clear()
+        buffer = io.BytesIO()
+        doc = SimpleDocTemplate(buffer, pagesize=A4, leftMargin=margin, rightMargin=margin, topMargin=1.5 * cm,
+                                bottomMargin=1.6 * cm, title=title, author="", creator="kinetics",
+                                producer="kinetics", subject="Reaction kinetics report", invariant=True,
+                                initialFontName=_FONT, initialFontSize=8.5, initialLeading=11.0)
+        story = _pdf_story(title, run_utc, summary, sections, config_text, packages, inputs, extra, figure_pdf,
+                           warnings, places, width_pt, config_columns=columns)
+        doc.build(story, onFirstPage=footer, onLaterPages=footer)
+        end = [p for p in places if p[0] == _END][-1]
+        return buffer, list(places), end[1], (top_pt - end[3]) / usable_pt
+
+    # The configuration closes the report, in two columns when long.  When that leaves the
+    # last page nearly empty, the other layout is tried and the fuller last page kept.
+    n_config = len((config_text or "").splitlines())
+    buffer, kept, pages, last_fill = build(2 if n_config > 40 else 1)
+    if last_fill < _LAST_PAGE_FILL and pages > 1 and n_config > 10:
+        other = build(1 if n_config > 40 else 2)
+        if (other[2], -other[3]) < (pages, -last_fill) or other[3] > last_fill and other[2] == pages:
+            buffer, kept, pages, last_fill = other
+    places[:] = [p for p in kept if p[0] != _END]
 
     reader = PdfReader(io.BytesIO(buffer.getvalue()))
     writer = PdfWriter()
@@ -936,8 +994,20 @@ def write_report(
     -------
     ReportFiles
     """
-    folder = Path(out_dir)
-    folder.mkdir(parents=True, exist_ok=True)
+    # all or nothing: the files are written into a staging folder beside out_dir and moved
+    # in once every one of them is whole (a full disk leaves the previous report as it was)
+    final = Path(out_dir)
+    with staged_folder(final) as staging:
+        files = _write_report_files(staging, sections, title, provenance, summary, dpi, warnings)
+    moved = lambda path: moved_path(path, staging, final)  # noqa: E731
+    return replace(files, folder=final, html=moved(files.html), pdf=moved(files.pdf),
+                   figures={k: moved(v) for k, v in files.figures.items()},
+                   csv={k: moved(v) for k, v in files.csv.items()},
+                   parquet={k: moved(v) for k, v in files.parquet.items()})
+
+
+def _write_report_files(folder: Path, sections, title, provenance, summary, dpi, warnings) -> ReportFiles:
+    """The body of :func:`write_report`, writing into ``folder`` (its staging folder)."""
     provenance = provenance or Provenance()
     run_utc = _iso_utc(provenance.run_utc)
     packages = dict(provenance.packages) if provenance.packages else package_versions()

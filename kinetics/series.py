@@ -889,17 +889,19 @@ def _derived(config, species_c, species_s, names, table, warnings) -> None:
 
 def write_table(df: pd.DataFrame, path: str | Path) -> list[Path]:
     """Write ``df`` as CSV at ``path`` (and as Parquet beside it when pyarrow is installed)."""
+    from kinetics.atomic import write_atomic
+
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    df.to_csv(path, index=False)
-    written = [path]
+    written = [write_atomic(path, df.to_csv(index=False))]
     try:
         import pyarrow  # noqa: F401
     except ImportError:
         return written
-    parquet = path.with_suffix(".parquet")
-    df.to_parquet(parquet, index=False)
-    written.append(parquet)
+    import io
+
+    buffer = io.BytesIO()
+    df.to_parquet(buffer, index=False)
+    written.append(write_atomic(path.with_suffix(".parquet"), buffer.getvalue()))
     return written
 
 

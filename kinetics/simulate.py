@@ -37,6 +37,7 @@ filtered data) leaves a flat baseline once phased.
 from __future__ import annotations
 
 import csv
+import io
 import json
 import math
 from dataclasses import dataclass
@@ -47,6 +48,7 @@ from typing import Mapping, Sequence
 import numpy as np
 from scipy import special
 
+from kinetics.atomic import guard_output, write_atomic
 from kinetics.spectra.spectrum import Fid, Spectrum
 
 __all__ = [
@@ -574,7 +576,8 @@ def write_series(
     p1 = np.broadcast_to(np.asarray(phase1_deg, float), (m,))
     drift = np.broadcast_to(np.asarray(drift_ppm, float), (m,))
     folder = Path(folder)
-    folder.mkdir(parents=True, exist_ok=True)
+    with guard_output(folder):
+        folder.mkdir(parents=True, exist_ok=True)
     writer = _writer(format, kind, compression)
 
     first = {name: float(curve[0]) for name, curve in curves.items()}
@@ -623,11 +626,12 @@ def write_series(
         "files": rows,
     }
     path = folder / "truth.json"
-    path.write_text(json.dumps(manifest, indent=2) + "\n")
-    with open(folder / "truth.csv", "w", newline="") as handle:
-        out = csv.DictWriter(handle, fieldnames=list(rows[0]))
-        out.writeheader()
-        out.writerows(rows)
+    write_atomic(path, json.dumps(manifest, indent=2) + "\n")
+    table = io.StringIO(newline="")
+    out = csv.DictWriter(table, fieldnames=list(rows[0]))
+    out.writeheader()
+    out.writerows(rows)
+    write_atomic(folder / "truth.csv", table.getvalue())
     return path
 
 

@@ -14,7 +14,11 @@ files
     quarantined), ``version`` (1 for the first content seen under that path, 2 for the
     next ...), ``replaced`` (1 once a later version of the same path exists: only the
     latest version counts), ``duplicate_of`` (the row whose identical content was counted),
-    ``acquired_utc`` (ISO 8601, from the file header when it has one), ``first_seen_utc``.
+    ``acquired_utc`` (ISO 8601, from the file header when it has one), ``first_seen_utc``;
+    ``source`` and ``block`` for a trace of an arrayed file (the file, relative to the run
+    folder, and the block index; ``path`` is then the trace's key, e.g.
+    ``series.jdx#00003``: :mod:`kinetics.run.sources`), NULL for a one-spectrum file.
+    Ledgers written before these two columns existed get them on opening (NULL).
 measurements
     One row per file and signal: integral and its standard uncertainty, concentration and
     its standard uncertainty (mol/L) when known per file, plus ``extra_json`` for anything
@@ -27,7 +31,9 @@ config
     refused, so one ledger never mixes two analyses).
 
 Idempotent by content: a file whose bytes equal a counted file under another name is
-recorded as ``duplicate`` and counts once; the same path with the same bytes is
+recorded as ``duplicate`` and counts once (which copy counts is the engine's one rule,
+earliest acquisition then name, never arrival order: a copy that outranks the counted one
+takes its place, see :meth:`Ledger.ingest`); the same path with the same bytes is
 recognised as already done (a restart does not reprocess); the same path with new bytes is
 a new version, and the older version is flagged ``replaced``.
 
@@ -39,7 +45,6 @@ The library never watches or sleeps: the live loop lives in ``watchers/``.
 
 from __future__ import annotations
 
-import errno
 import hashlib
 import json
 import logging
@@ -76,6 +81,8 @@ CREATE TABLE IF NOT EXISTS files (
     acquired_utc TEXT,
     first_seen_utc TEXT NOT NULL,
     record_json TEXT,
+    source TEXT,
+    block INTEGER,
     UNIQUE (path, version)
 );
 CREATE INDEX IF NOT EXISTS files_sha ON files (sha256);
@@ -106,23 +113,43 @@ CREATE TABLE IF NOT EXISTS config (
 
 # OutputError lives in kinetics.errors with the rest of the tree; re-exported here.
 def output_error(path, error: BaseException) -> OutputError:
-    """Turn an OS or SQLite failure while writing ``path`` into an :class:`OutputError`."""
-    text = str(error)
-    lowered = text.lower()
-    if isinstance(error, OSError) and error.errno is not None:
-        if error.errno in (errno.ENOSPC, errno.EFBIG, errno.EDQUOT):
-            return OutputError(path, f"disk full or file size limit reached ({text})",
-                               "free space on the output disk, then restart: the ledger is intact")
-        if error.errno in (errno.EACCES, errno.EPERM, errno.EROFS):
-            return OutputError(path, f"output folder is not writable ({text})",
-                               "choose a writable --out folder")
-    if "full" in lowered or "too large" in lowered or "disk i/o" in lowered:
-        return OutputError(path, f"disk full or file size limit reached ({text})",
-                           "free space on the output disk, then restart: the ledger is intact")
-    if "readonly" in lowered or "read-only" in lowered or "unable to open" in lowered:
-        return OutputError(path, f"output folder is not writable ({text})",
-                           "choose a writable --out folder")
-    return OutputError(path, text)
+    """Turn an OS or SQLite failure while writing ``path`` into an :class:`OutputError`
+    (:func:`kinetics.atomic.output_error`, the one translation)."""
+    from kinetics.atomic import output_error as translate
+
+    return translate(path, error)
+
+
+#: how long a ledger write waits for another process's lock before it gives up (seconds);
+#: SQLite's busy handler retries meanwhile with a growing back-off (1 ms up to 100 ms)
+LOCK_TIMEOUT_S = 30.0
+
+
+class _LedgerConnection(sqlite3.Connection):
+    """A connection whose every statement failure is one OutputError naming the ledger."""
+
+    ledger_path: Path | None = None
+
+    def execute(self, *args):
+        try:
+            return super().execute(*args)
+        except sqlite3.Error as error:
+            raise _ledger_error(self.ledger_path, error) from error
+
+    def executescript(self, script):
+        try:
+            return super().executescript(script)
+        except sqlite3.Error as error:
+            raise _ledger_error(self.ledger_path, error) from error
+
+
+def _ledger_error(path, error: sqlite3.Error) -> OutputError:
+    from kinetics.atomic import LOCKED_HINT
+
+    if "locked" in str(error).lower() or "busy" in str(error).lower():
+        return OutputError(path, f"the ledger stayed locked for {LOCK_TIMEOUT_S:g} s ({error})",
+                           LOCKED_HINT.format(path=path))
+    return output_error(path, error)
 
 
 @dataclass(frozen=True)
@@ -248,17 +275,27 @@ class Ledger:
     def __init__(self, path: str | Path):
         self.path = Path(path)
         try:
-            self._db = sqlite3.connect(self.path, isolation_level=None, timeout=30.0)
+            self._db = sqlite3.connect(self.path, isolation_level=None, timeout=LOCK_TIMEOUT_S,
+                                       factory=_LedgerConnection)
+            self._db.ledger_path = self.path
             self._db.execute("PRAGMA journal_mode=WAL")
             # NORMAL in WAL mode keeps every committed transaction across a process crash
             # (only a power loss can drop the last ones); FULL is not needed for kill -9.
             self._db.execute("PRAGMA synchronous=NORMAL")
             self._db.execute("PRAGMA foreign_keys=ON")
             self._db.executescript(_SCHEMA)
+            self._add_trace_columns()
             self._db.execute("INSERT OR IGNORE INTO meta VALUES ('schema_version', ?)",
                              (str(SCHEMA_VERSION),))
         except (sqlite3.Error, OSError) as error:
             raise output_error(self.path, error) from error
+
+    def _add_trace_columns(self) -> None:
+        """A ledger from before arrayed files: add ``source`` and ``block`` (NULL: files)."""
+        columns = {row[1] for row in self._db.execute("PRAGMA table_info(files)")}
+        for name, kind in (("source", "TEXT"), ("block", "INTEGER")):
+            if name not in columns:
+                self._db.execute(f"ALTER TABLE files ADD COLUMN {name} {kind}")
 
     # ------------------------------------------------------------ lifecycle
     def close(self) -> None:
@@ -315,6 +352,11 @@ class Ledger:
         rows = self._db.execute(
             f"SELECT {_FILE_COLUMNS} FROM files WHERE path = ? ORDER BY version", (path,))
         return [_file_row(row) for row in rows]
+
+    def row(self, file_id: int, db: sqlite3.Connection | None = None) -> FileRow:
+        """The ``files`` row with this id."""
+        return _file_row((db or self._db).execute(
+            f"SELECT {_FILE_COLUMNS} FROM files WHERE id = ?", (file_id,)).fetchone())
 
     def latest_stat(self) -> dict[str, tuple[int, int, str]]:
         """``path -> (size_bytes, mtime_ns, sha256)`` of the latest version of every path.
@@ -397,6 +439,11 @@ class Ledger:
             "ORDER BY acquired_utc, path LIMIT 1").fetchone()
         return json.loads(row[0]) if row and row[0] else None
 
+    def trace_sources(self) -> list[tuple[str, str | None, int | None]]:
+        """``(path, source file, block)`` of every row in ingest order (source and block
+        None for a one-spectrum file)."""
+        return [tuple(row) for row in self._db.execute("SELECT path, source, block FROM files ORDER BY id")]
+
     def n_processed(self) -> int:
         return self._db.execute(
             "SELECT COUNT(*) FROM files WHERE status = 'processed' AND replaced = 0").fetchone()[0]
@@ -418,6 +465,11 @@ class Ledger:
         mtime_ns: int,
         measure,
         first_seen_utc: str | None = None,
+        *,
+        source: str | None = None,
+        block: int | None = None,
+        outranks=None,
+        demoted: list | None = None,
     ) -> FileRow | None:
         """Record one file, all of it in one transaction.
 
@@ -434,6 +486,18 @@ class Ledger:
             holds the database lock.
         first_seen_utc : str, optional
             When the watcher first saw the file (ISO 8601); now when omitted.
+        source, block : str and int, optional
+            For a trace of an arrayed file: the file (relative to the run folder) and the
+            block index (``path`` is then the trace's key).
+        outranks : callable (FileRow) -> bool, optional
+            For content already counted under another path (a duplicate copy): whether
+            this copy comes first by the engine's attribution rule
+            (:func:`kinetics.run.files.attribution_key`).  When it does, this copy is
+            measured and counted and the other row becomes its duplicate (its
+            measurements removed), in the same transaction: the ledger ends as if the
+            copies had arrived in rule order.
+        demoted : list, optional
+            Receives the rows that stopped counting because this copy outranked them.
 
         Returns
         -------
@@ -445,16 +509,23 @@ class Ledger:
             decision = self.decide(path, sha256)
             if decision.action == "known":
                 return None
+            takeover = None
+            if decision.action == "duplicate" and outranks is not None:
+                twin = self.row(decision.duplicate_of)
+                takeover = twin.id if outranks(twin) else None
             measurement, error_text = None, None
-            if decision.action == "new":
+            if decision.action == "new" or takeover is not None:
                 try:
                     measurement = measure()
                 except InputFileError as error:
                     error_text = quarantine_reason(error)
+            lost: list = []
             row = self._write(lambda db: self._insert(
                 db, path, sha256, size_bytes, mtime_ns, decision, measurement, error_text,
-                first_seen_utc or utc_now_iso()))
+                first_seen_utc or utc_now_iso(), source, block, takeover, lost))
             if row is not False:
+                if demoted is not None:
+                    demoted.extend(lost)
                 break
         else:  # pragma: no cover - needs another writer racing on the same ledger
             raise OutputError(self.path, f"{path}: the ledger kept changing under this run",
@@ -464,14 +535,21 @@ class Ledger:
         return row
 
     def _insert(self, db, path, sha256, size_bytes, mtime_ns, decision, measurement,
-                error_text, first_seen) -> FileRow | None | bool:
-        """Insert one file inside the open transaction; False when the decision went stale."""
+                error_text, first_seen, source=None, block=None, takeover=None,
+                lost=None) -> FileRow | None | bool:
+        """Insert one file inside the open transaction; False when the decision went stale.
+
+        ``takeover``: the id of the counted twin this copy replaces as the counted one
+        (its row becomes a duplicate of the new row and is appended to ``lost``)."""
         final = self.decide(path, sha256, db)
         if final != decision:
             return False
         if final.action == "known":
             return None
-        if final.action == "duplicate":
+        if takeover is not None:
+            status = "processed" if error_text is None else "quarantined"
+            final = Decision("new", version=final.version, replaces=final.replaces)
+        elif final.action == "duplicate":
             status = "duplicate"
         else:
             status = "processed" if error_text is None else "quarantined"
@@ -485,10 +563,11 @@ class Ledger:
             db.execute("UPDATE files SET replaced = 1 WHERE id = ?", (final.replaces,))
         cursor = db.execute(
             "INSERT INTO files (path, sha256, size_bytes, mtime_ns, status, error, version, "
-            "replaced, duplicate_of, acquired_utc, first_seen_utc, record_json) "
-            "VALUES (?, ?, ?, ?, ?, ?, ?, 0, ?, ?, ?, ?)",
+            "replaced, duplicate_of, acquired_utc, first_seen_utc, record_json, source, block) "
+            "VALUES (?, ?, ?, ?, ?, ?, ?, 0, ?, ?, ?, ?, ?, ?)",
             (path, sha256, int(size_bytes), int(mtime_ns), status, error_text,
-             final.version, final.duplicate_of, acquired, first_seen, record))
+             final.version, final.duplicate_of, acquired, first_seen, record, source,
+             None if block is None else int(block)))
         file_id = cursor.lastrowid
         if status == "processed":
             db.executemany(
@@ -498,6 +577,16 @@ class Ledger:
                   _finite(row.concentration_stderr_mol_per_l),
                   None if not row.extra else json.dumps(dict(row.extra), sort_keys=True))
                  for row in measurement.signals])
+        if takeover is not None:
+            # the twin now stands as a batch run would have recorded it: a duplicate of
+            # this row, without a measurement of its own; its duplicates follow the new row
+            db.execute("DELETE FROM measurements WHERE file_id = ?", (takeover,))
+            db.execute("UPDATE files SET status = 'duplicate', error = NULL, acquired_utc = NULL, "
+                       "record_json = NULL, duplicate_of = ? WHERE id = ?", (file_id, takeover))
+            db.execute("UPDATE files SET duplicate_of = ? WHERE duplicate_of = ? AND replaced = 0",
+                       (file_id, takeover))
+            if lost is not None:
+                lost.append(self.row(takeover, db))
         return _file_row(db.execute(
             f"SELECT {_FILE_COLUMNS} FROM files WHERE id = ?", (file_id,)).fetchone())
 

@@ -53,11 +53,12 @@ from kinetics import plots
 from kinetics import temperature as temp
 from kinetics.config import StudyConfig, StudyRunConfig, is_study_config, load_study_config  # noqa: F401
 from kinetics.errors import ConfigError, InputFileError, KineticsError
+from kinetics.atomic import guard_output, write_atomic
 from kinetics.jsonio import dumps
 
 log = logging.getLogger(__name__)
 
-__all__ = ["StudyResult", "is_study_config", "load_study_config", "run_from_table", "run_study", "study_from_runs"]
+__all__ = ["EngineRun", "StudyResult", "is_study_config", "load_study_config", "run_from_table", "run_study", "study_from_runs"]
 
 
 @dataclass(frozen=True)
@@ -77,6 +78,9 @@ class StudyResult:
         Every file written.
     warnings : tuple of str
     message : str
+    engine_runs : tuple of EngineRun
+        The runs given as run configs, as the run engine left them (fit, table, the
+        validated config): what the report draws each run's spectra and courses from.
     """
 
     name: str
@@ -89,6 +93,7 @@ class StudyResult:
     files: tuple[Path, ...]
     warnings: tuple[str, ...]
     message: str = "ok"
+    engine_runs: tuple = ()
 
     @property
     def success(self) -> bool:
@@ -126,8 +131,22 @@ class StudyResult:
         return "\n".join(lines)
 
 
+@dataclass(frozen=True)
+class EngineRun:
+    """A study run that went through the run engine: its config (folder applied), the
+    engine's :class:`~kinetics.run.engine.RunSummary` and the folder it wrote."""
+
+    label: str
+    temperature_kelvin: float
+    config_path: Path
+    config: Any
+    summary: Any
+    out_dir: Path
+
+
 # ---------------------------------------------------------------- config reading
-def _read_series_table(run: StudyRunConfig, runs_dir: Path | None = None):
+def _read_series_table(run: StudyRunConfig, runs_dir: Path | None = None, engine: list | None = None,
+                       progress=None):
     """A run's series table: the CSV named, or its run config through the run engine."""
     if run.config is not None:
         # a run config goes through the run engine, as `kinetics run` would take it, with
@@ -136,7 +155,10 @@ def _read_series_table(run: StudyRunConfig, runs_dir: Path | None = None):
         from kinetics.run.engine import batch_run, plan_from_config
 
         plan = plan_from_config(load_run_config(run.config), folder=run.folder, require_named=False)
-        summary = batch_run(plan, (runs_dir or run.config.parent) / _slug(run.label), figures=False)
+        out = (runs_dir or run.config.parent) / _slug(run.label)
+        summary = batch_run(plan, out, figures=False, progress=progress)
+        if engine is not None:
+            engine.append(EngineRun(run.label, run.temperature_kelvin, run.config, plan.config, summary, out))
         return summary.table, run.config
     path = run.table
     if not path.exists():
@@ -199,8 +221,9 @@ def _slug(text: str) -> str:
     return "".join(c if c.isalnum() else "_" for c in text).strip("_").lower() or "run"
 
 
-def _load_run(run: StudyRunConfig, runs_dir: Path | None = None) -> tuple[temp.KineticRun, list[str]]:
-    frame, path = _read_series_table(run, runs_dir)
+def _load_run(run: StudyRunConfig, runs_dir: Path | None = None,
+              engine: list | None = None, progress=None) -> tuple[temp.KineticRun, list[str]]:
+    frame, path = _read_series_table(run, runs_dir, engine, progress)
     return run_from_table(run, frame, path)
 
 
@@ -223,13 +246,16 @@ def run_from_table(run: StudyRunConfig, frame, path: Path) -> tuple[temp.Kinetic
 
 
 # ---------------------------------------------------------------- running
-def run_study(config_path: str | Path, out_dir: str | Path) -> StudyResult:
+def run_study(config_path: str | Path, out_dir: str | Path, progress=None) -> StudyResult:
     """Run a temperature study config and write its tables, JSON and plots.
 
     Parameters
     ----------
     config_path : path to the study TOML (module docstring lists its keys).
     out_dir : folder for the outputs (created if missing).
+    progress : callable (stage, done, total), optional
+        Told ``("runs", done, total)`` as the runs are taken, and passed on to the run
+        engine (``("spectra", done, total)``, :func:`kinetics.run.engine.batch_run`).
 
     Returns
     -------
@@ -242,16 +268,22 @@ def run_study(config_path: str | Path, out_dir: str | Path) -> StudyResult:
     """
     config = load_study_config(config_path)
     out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
-    runs, warnings = [], []
-    for run in config.runs:
-        loaded, run_warnings = _load_run(run, out / "runs")
+    with guard_output(out):
+        out.mkdir(parents=True, exist_ok=True)
+    runs, warnings, engine = [], [], []
+    for number, run in enumerate(config.runs):
+        if progress is not None:
+            progress("runs", number, len(config.runs))
+        loaded, run_warnings = _load_run(run, out / "runs", engine, progress)
         runs.append(loaded)
         warnings += run_warnings
-    return study_from_runs(config, runs, out, warnings)
+    if progress is not None:
+        progress("runs", len(config.runs), len(config.runs))
+    return study_from_runs(config, runs, out, warnings, engine_runs=engine)
 
 
-def study_from_runs(config: StudyConfig, runs: list, out_dir: str | Path, warnings=()) -> StudyResult:
+def study_from_runs(config: StudyConfig, runs: list, out_dir: str | Path, warnings=(),
+                    engine_runs=()) -> StudyResult:
     """The study over runs already in memory (``temperature.KineticRun``): per-run fits,
     Arrhenius, Eyring, the global fit; tables, JSON and plots written to ``out_dir``.
 
@@ -259,7 +291,8 @@ def study_from_runs(config: StudyConfig, runs: list, out_dir: str | Path, warnin
     runs it has just followed live).
     """
     out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
+    with guard_output(out):
+        out.mkdir(parents=True, exist_ok=True)
     warnings = list(warnings)
     source = config.path
     options = {"name": config.name, "model": config.model, "observed": config.observed,
@@ -297,7 +330,7 @@ def study_from_runs(config: StudyConfig, runs: list, out_dir: str | Path, warnin
                           global_result, (), all_warnings, message)
     files = _write_outputs(partial, model)
     return StudyResult(options["name"], source, out, tuple(runs), tuple(run_fits), temperature_result,
-                       global_result, tuple(files), all_warnings, message)
+                       global_result, tuple(files), all_warnings, message, tuple(engine_runs))
 
 
 def _fit_one(run: temp.KineticRun, model: temp.GlobalModel) -> temp.RunFit:
@@ -314,15 +347,15 @@ def _write_outputs(result: StudyResult, model: temp.GlobalModel) -> list[Path]:
     out = result.out_dir
     files = []
     runs_csv = out / "runs.csv"
-    pd.DataFrame(result.to_dict()["run_fits"]).to_csv(runs_csv, index=False)
+    write_atomic(runs_csv, pd.DataFrame(result.to_dict()["run_fits"]).to_csv(index=False))
     files.append(runs_csv)
     if result.temperature is not None:
         path = out / "arrhenius.csv"
-        result.temperature.table().to_csv(path, index=False)
+        write_atomic(path, result.temperature.table().to_csv(index=False))
         files.append(path)
     if result.global_result is not None and result.global_result.comparison():
         path = out / "comparison.csv"
-        pd.DataFrame(result.global_result.comparison()).to_csv(path, index=False)
+        write_atomic(path, pd.DataFrame(result.global_result.comparison()).to_csv(index=False))
         files.append(path)
     if result.temperature is not None:
         g = result.global_result if (result.global_result is not None and result.global_result.success) else None
@@ -337,5 +370,5 @@ def _write_outputs(result: StudyResult, model: temp.GlobalModel) -> list[Path]:
     files.append(json_path)
     payload = result.to_dict()
     payload["files"] = [str(p) for p in files]
-    json_path.write_text(dumps(payload) + "\n")
+    write_atomic(json_path, dumps(payload) + "\n")
     return files

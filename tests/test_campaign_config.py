@@ -67,6 +67,10 @@ BAD = [
     (("runs", 0, "time_unit"), "fortnight", "runs[0].time_unit"),
     (("runs", 4, "label"), "R1 standard", "runs[4].label"),
     (("runs", 5, "shade"), "green", "runs[5].shade"),
+    (("fit",), {"bootstrap": -1}, "fit.bootstrap"),
+    (("fit",), {"bootstrap": 2.5}, "fit.bootstrap"),
+    (("fit",), {"bootstrap": 100, "seed": -2}, "fit.seed"),
+    (("fit",), {"bootstrap": 100, "resamples": 3}, "fit.resamples"),
 ]
 
 

@@ -257,3 +257,45 @@ def test_eyring_across_temperatures():
         assert lo <= truth <= hi, (name, result.param(name))
     for name, truth in ORDERS.items():  # their coverage is measured above; one seed: 3 sigma
         assert abs(result.param(name).value - truth) < 3 * result.param(name).stderr
+
+
+# ---------------------------------------------------------------- residual bootstrap (cross-check)
+def test_residual_bootstrap_agrees_with_the_profile_intervals():
+    # Residual bootstrap (Efron & Tibshirani 1993, ch. 9) of a campaign whose law is right and
+    # whose noise is independent (the generator's): each resampled residual is one of its
+    # course's centred residuals times sqrt(N/dof); the percentile intervals hold the
+    # generator's orders and are as wide as the profile intervals within the factor the
+    # runner's note uses.  60 refits, seeded per resample.
+    from kinetics.campaign.globalfit import (BOOTSTRAP_WIDTH_RATIO, BootstrapIntervals, bootstrap_notes,
+                                             percentile_intervals, resample_runs)
+
+    runs = simulate_campaign(np.random.default_rng(20261202))
+    fit = fit_power_law(runs)
+    scale = np.sqrt(fit.n_points / fit.dof)
+    star = resample_runs(runs, fit.blocks, fit.fitted, fit.residual, fit.dof, fit.weighted, np.random.default_rng(1))
+    for run, copy in zip(runs, star):
+        for name in ("A", "B"):
+            r = fit.residual[(run.label, name)]
+            drawn = (copy.observed_mol_per_l[name] - fit.fitted[(run.label, name)]) / run.sigma(name)
+            allowed = (r - r.mean()) * scale
+            assert np.all(np.min(np.abs(drawn[:, None] - allowed[None, :]), axis=1) < 1e-9)
+        assert dict(copy.initial_mol_per_l) == dict(run.initial_mol_per_l)
+    names = [p.name for p in fit.parameters]
+    samples = []
+    for seed in np.random.SeedSequence(4).spawn(60):
+        resampled = resample_runs(runs, fit.blocks, fit.fitted, fit.residual, fit.dof, fit.weighted,
+                                  np.random.default_rng(seed))
+        refit = fit_power_law(resampled, warm_start=fit.values, profile=False)
+        assert refit.converged
+        samples.append([refit.values[name] for name in names])
+    found = percentile_intervals(names, samples)
+    for name, truth in ORDERS.items():
+        lo, hi = found[name]
+        assert lo <= truth <= hi, (name, found[name])
+        p_lo, p_hi = fit.param(name).ci_profile
+        assert 1 / BOOTSTRAP_WIDTH_RATIO < (hi - lo) / (p_hi - p_lo) < BOOTSTRAP_WIDTH_RATIO, (name, found[name])
+    assert bootstrap_notes(fit, BootstrapIntervals(60, 0, 4, found)) == []
+    # a bootstrap interval twice the profile's width is noted
+    lo, hi = fit.param("order_B").ci_profile
+    wide = dict(found, order_B=(lo - (hi - lo) / 2, hi + (hi - lo) / 2))
+    assert [n for n in bootstrap_notes(fit, BootstrapIntervals(60, 0, 4, wide)) if n.startswith("order_B")]

@@ -221,9 +221,12 @@ def test_terminal_panel_shows_k_forecast_and_counts():
     console = Console(file=io.StringIO(), width=120)
     console.print(TerminalView(enabled=False)._panel(status))
     text = console.file.getvalue()
-    assert "s12.dx" in text and "0.21 ± 0.004 mol/L" in text
-    assert "0.0015  (95 %: 0.00148 – 0.00152) s^-1" in text
-    assert "time to 90%" in text and "1535" in text
+    # value and uncertainty rounded together (GUM, JCGM 100:2008, 7.2.6): one significant
+    # digit of 0.004, two of an uncertainty starting with 1 (common practice); the forecast
+    # of 1535 ± 9 s in minutes, as a person reads it
+    assert "s12.dx" in text and "0.210 ± 0.004 mol L⁻¹" in text
+    assert "0.001500 ± 0.000010 s⁻¹ (95 %: 0.001480 to 0.001520 s⁻¹)" in text
+    assert "time to 90%" in text and "25.58 ± 0.15 min" in text
     assert "12 processed, 1 duplicate, 2 quarantined" in text
 
 

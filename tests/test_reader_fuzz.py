@@ -29,6 +29,7 @@ from hypothesis import strategies as st
 
 from kinetics.errors import InputFileError
 from kinetics.spectra import Fid, Spectrum
+from kinetics.spectra.arrayed import Trace, arrayed_text, matrix_text, parse_traces, read_traces
 from kinetics.spectra.delimited import csv_text
 from kinetics.spectra.jcampdx import fid_text, spectrum_text
 from kinetics.spectra.reader import parse_loaded, read
@@ -420,3 +421,171 @@ def test_reading_work_is_linear_in_the_number_of_blocks(kind):
     n = 500
     small, large = _python_calls(_many_blocks(n, kind)), _python_calls(_many_blocks(4 * n, kind))
     assert large <= 4.4 * small, (kind, small, large)
+
+
+# ============================================================ arrayed files (a whole series in one file)
+ARRAYED_FUZZ = settings(max_examples=60, deadline=timedelta(seconds=5), derandomize=True,
+                        suppress_health_check=[HealthCheck.too_slow])
+
+
+@st.composite
+def arrayed_documents(draw) -> tuple[bytes, int]:
+    """(file bytes, number of traces): link files, NTUPLES page series, matrix tables."""
+    form = draw(st.sampled_from(["link", "ntuples", "matrix"]))
+    kind = "xydata" if form == "matrix" else draw(st.sampled_from(["xydata", "ntuples", "fid"]))
+    n_traces, n = draw(st.integers(1, 4)), draw(st.integers(4, 60))
+    seed = draw(st.integers(0, 2**16))
+    records = [_record(seed + index, n, kind) for index in range(n_traces)]
+    times = [60.0 * index + draw(st.floats(0, 30, allow_nan=False)) for index in range(n_traces)]
+    if form == "matrix":
+        text = matrix_text(records, times, delimiter=draw(st.sampled_from([",", "\t", ";"])))
+    else:
+        text = arrayed_text(records, draw(st.sampled_from([times, None])), form=form,
+                            compression=draw(st.sampled_from(["affn", "dif"])))
+    return text.encode(), n_traces
+
+
+def _read_traces_bytes(raw: bytes):
+    handle, name = tempfile.mkstemp(suffix=".dx")
+    try:
+        with os.fdopen(handle, "wb") as stream:
+            stream.write(raw)
+        return read_traces(name)
+    finally:
+        os.unlink(name)
+
+
+def _check_traces(traces) -> None:
+    assert [trace.block for trace in traces] == sorted({trace.block for trace in traces})
+    for trace in traces:
+        assert isinstance(trace, Trace) and isinstance(trace.record, (Spectrum, Fid))
+        assert trace.record.n_points >= 2 and trace.record.sha256 == trace.digest and len(trace.digest) == 64
+
+
+@ARRAYED_FUZZ
+@given(arrayed_documents())
+def test_generated_arrayed_documents_read(document):
+    raw, n_traces = document
+    traces = _read_traces_bytes(raw)
+    _check_traces(traces)
+    assert len(traces) == n_traces
+
+
+@ARRAYED_FUZZ
+@given(arrayed_documents().flatmap(lambda document: st.tuples(st.just(document[0]),
+                                                               st.integers(1, 3))), st.data())
+def test_mutated_arrayed_documents_fail_only_with_input_file_error(document, data):
+    raw, rounds = document
+    for _ in range(rounds):
+        if raw:
+            raw = _mutate(data.draw, raw)
+    try:
+        traces = _read_traces_bytes(raw)
+    except InputFileError as error:
+        assert not error.problem.startswith("unexpected"), error
+        assert error.path and error.problem and len(str(error)) < 400
+        return
+    _check_traces(traces)
+
+
+@ARRAYED_FUZZ
+@given(arrayed_documents(), st.data())
+def test_growing_arrayed_file_gives_a_prefix_of_the_complete_traces(document, data):
+    # A JCAMP-DX series cut anywhere (as a spectrometer still writing it leaves it): never an
+    # error, and the traces read are the first ones of the complete file, byte for byte.
+    raw, _ = document
+    if not raw.startswith(b"##"):
+        return  # matrix tables are written whole, not appended
+    complete = parse_traces(LoadedText("fuzz", "", raw.decode()))
+    position = data.draw(st.integers(2, len(raw)))
+    prefix = parse_traces(LoadedText("fuzz", "", raw[:position].decode()))
+    assert [trace.digest for trace in prefix] == [trace.digest for trace in complete[:len(prefix)]]
+
+
+def _calls(parser, text: str) -> int:
+    """Function calls made while ``parser`` reads ``text`` (deterministic work count)."""
+    loaded = LoadedText("hostile", "", text)
+    calls = 0
+
+    def count(frame, event, arg):
+        nonlocal calls
+        if event in ("call", "c_call"):
+            calls += 1
+
+    sys.setprofile(count)
+    try:
+        parser(loaded)
+    except InputFileError:
+        pass
+    finally:
+        sys.setprofile(None)
+    return calls
+
+
+@pytest.mark.parametrize("form", ["link", "ntuples", "matrix"])
+def test_arrayed_reading_work_is_linear_in_the_number_of_traces(form):
+    # A growing file is read again and again: reading N and 4N traces must cost ~1:4.
+    def text(n_traces: int) -> str:
+        records = [_record(index, 16, "xydata") for index in range(n_traces)]
+        times = [60.0 * index for index in range(n_traces)]
+        if form == "matrix":
+            return matrix_text(records, times)
+        return arrayed_text(records, times, form=form, compression="affn")
+
+    n = 60
+    small, large = _calls(parse_traces, text(n)), _calls(parse_traces, text(4 * n))
+    assert large <= 4.4 * small, (form, small, large)
+
+
+ARRAYED_MEMORY_PER_BYTE = 128
+
+
+def _hostile_arrayed(kind: str) -> str:
+    link = "##TITLE= s\n##JCAMP-DX= 5.01\n##DATA TYPE= LINK\n##BLOCKS= {n}\n{blocks}##END=\n"
+    block = ("##TITLE= b\n##JCAMP-DX= 5.01\n##DATA TYPE= NMR SPECTRUM\n##BLOCK_ID= {i}\n##.OBSERVE FREQUENCY= 60\n"
+             "##XUNITS= HZ\n##FIRSTX= 600\n##LASTX= 0\n##NPOINTS= {n}\n##XYDATA= (X++(Y..Y))\n600@%{dup}\n##END=\n")
+    if kind == "claims":  # one block declares 2**24 points in one DUP run
+        return link.format(n=2, blocks=block.format(i=1, n=8, dup="Y") + block.format(i=2, n=2**24, dup="S6777215"))
+    if kind == "budget":  # 4000 blocks, each under the free points, together far over the budget
+        return link.format(n=4000, blocks="".join(block.format(i=i, n=60000, dup="W9999") for i in range(4000)))
+    if kind == "same-id":  # 4000 blocks with one BLOCK_ID
+        return link.format(n=4000, blocks=block.format(i=1, n=8, dup="Y") * 4000)
+    if kind == "count":  # ##BLOCKS= far from the blocks present, file complete
+        return link.format(n=10**12, blocks="".join(block.format(i=i, n=8, dup="Y") for i in range(3)))
+    if kind == "pages":  # 4000 R pages of an NTUPLES with a time variable, each claiming 2**20 points
+        pages = "".join(f"##PAGE= T={i}\n##DATA TABLE= (X++(R..R)), XYDATA\n0@%S6777\n" for i in range(4000))
+        return ("##TITLE= t\n##DATA TYPE= NMR SPECTRUM\n##.OBSERVE FREQUENCY= 60\n##NTUPLES= NMR SPECTRUM\n"
+                "##SYMBOL= T, X, R\n##VAR_DIM= 4000, 1048576, 1048576\n##UNITS= SECONDS, HZ, A\n"
+                f"##FIRST= 0, 600, 0\n##LAST= 3999, 0, 0\n{pages}##END NTUPLES= x\n##END=\n")
+    if kind == "lost-i":  # 4000 traces whose I pages are all missing
+        pages = "".join(f"##PAGE= T={i}\n##DATA TABLE= (X++(R..R)), XYDATA\n0 1 2\n" for i in range(4000))
+        return ("##TITLE= t\n##DATA TYPE= NMR SPECTRUM\n##.OBSERVE FREQUENCY= 60\n##NTUPLES= NMR SPECTRUM\n"
+                "##SYMBOL= T, X, R, I\n##VAR_DIM= 4000, 2, 2, 2\n##UNITS= SECONDS, HZ, A, A\n"
+                f"##FIRST= 0, 1, 0, 0\n##LAST= 3999, 0, 0, 0\n{pages}##END NTUPLES= x\n##END=\n")
+    if kind == "matrix-wide":  # a header row of 200000 times over two short rows
+        return ("# observe_mhz: 60\nppm," + ",".join(str(i) for i in range(200000)) + "\n"
+                + "1," + ",".join("0" for _ in range(200000)) + "\n0,1\n")
+    raise ValueError(kind)
+
+
+@pytest.mark.parametrize("kind, problem", [
+    ("claims", "declares 16777216 points in all, more than a file of this size"),
+    ("budget", "more than a file of this size can hold"), ("same-id", "repeats the block"),
+    ("count", "declares 1000000000000 blocks"), ("pages", "more than a file of this size can hold"),
+    ("lost-i", "this trace has no I page"), ("matrix-wide", "the header row 200001"),
+])
+def test_hostile_arrayed_files_fail_cleanly_within_bounded_memory(kind, problem):
+    # Bound: the point budget (4 points a byte) over all traces together, and every trace
+    # keeps its own record (axis and ordinates, 16-24 bytes a point): ARRAYED_MEMORY_PER_BYTE
+    # per byte of file plus the same constant (measured for "budget", the worst: 87).
+    text = _hostile_arrayed(kind)
+    tracemalloc.start()
+    try:
+        with pytest.raises(InputFileError, match=problem) as caught:
+            parse_traces(LoadedText("hostile", "", text))
+        peak = tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+    assert not caught.value.problem.startswith("unexpected"), caught.value
+    assert len(str(caught.value)) < 400, str(caught.value)[:400]
+    assert peak <= ARRAYED_MEMORY_PER_BYTE * len(text) + MEMORY_CONSTANT_BYTES, (peak, len(text))

@@ -119,7 +119,8 @@ def test_figures_are_vector_and_also_svg_and_300_dpi_png(demo_report):
 _DIMENSIONLESS = ("run", "parameter", "quantity", "rate law", "unit", "file", "note", "converged", "ln k",
                   "u(ln k)", "ln(k/T)", "ln k − line", "ln k, line", "ln A", "χ²", "reduced χ²", "AICc",
                   "ΔAICc", "BIC", "Akaike weight", "points", "degrees of freedom", "parameters",
-                  "interval width, two-step / global", "package", "version", "sha256", "weight")
+                  "interval width, two-step / global", "package", "version", "sha256", "weight",
+                  "processing choice varied", "applied to")
 
 
 def test_every_table_heading_has_a_unit_where_the_quantity_has_one(demo_report):

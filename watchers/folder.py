@@ -1,14 +1,25 @@
 """Notice files in a folder and hand each one over only once it is complete.
 
-A file counts as *complete* once its size and modification time have stayed unchanged
+A file counts as *complete* once its stat signature (size, modification time,
+status-change time, inode: :func:`kinetics.run.files.stat_signature`) has stayed unchanged
 for the quiet period (the live loop then checks that it parses; a parse failure after the
 quiet period quarantines it, while a file that is still growing is never looked at).
+
+A file already taken is looked at again when its signature changes in any way (a listing
+compares all four, so a re-export written in place with the same size and modification
+time is seen: its status-change time moved) or when a file event names it again (which
+also covers a file system whose times cannot tell).  Looking again means hashing it: the
+engine decides by the SHA-256 whether it is a new version, exactly as a batch run reading
+the folder would.  Only changed or named files are hashed, never the whole folder.
 
 Events come from a watchdog observer (inotify / FSEvents / ReadDirectoryChanges); with
 ``poll=True`` the folder is listed every ``poll_interval_s`` instead, for network shares
 where file events do not arrive.  Event mode also lists the folder every
 ``rescan_interval_s``, so an event the operating system dropped (a queue overflow during a
 burst) cannot lose a file.
+
+Symbolic links that point outside the folder or loop are skipped with one warning each
+(:func:`kinetics.run.files.link_problem`), in listings and for file events alike.
 
 Names ignored whatever the patterns say: dot-files and dot-folders, ``~`` files and
 editor/transfer temporaries (``*.tmp``, ``*.part``, ``*.partial``, ``*.crdownload``,
@@ -29,6 +40,7 @@ import dataclasses
 import logging
 import os
 import queue
+import stat as stat_module
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -38,7 +50,8 @@ from watchdog.events import FileSystemEventHandler
 
 from kinetics.errors import InputFileError
 from kinetics.run.files import (TEMPORARY_PATTERNS, ReadyFile, WatchSpec, _natural_key,  # noqa: F401
-                                 acquisition_sort_key, check_folder, is_temporary, list_wanted, wanted)
+                                 acquisition_sort_key, check_folder, is_link, is_temporary, link_problem,
+                                 list_wanted, note_link, stat_signature, wanted)
 from kinetics.store import utc_now_iso
 
 log = logging.getLogger(__name__)
@@ -46,10 +59,13 @@ log = logging.getLogger(__name__)
 
 @dataclass
 class _Pending:
-    size_bytes: int
-    mtime_ns: int
+    signature: tuple[int, int, int, int]
     stable_since: float
     first_seen_utc: str
+
+
+def _inside(target: str, base: str) -> bool:
+    return target == base or os.path.commonpath([base, target]) == base
 
 
 class CompletenessTracker:
@@ -60,41 +76,69 @@ class CompletenessTracker:
     folder : Path
         Folder the relative paths are under.
     quiet_period_s : float
-        Seconds of unchanged size and modification time that make a file complete.
+        Seconds of unchanged stat signature that make a file complete.
     clock : callable, optional
         Monotonic clock in seconds (``time.monotonic``).
+    noted : set of str, optional
+        Links already warned about (shared with the folder listings).
     """
 
-    def __init__(self, folder: Path, quiet_period_s: float, clock: Callable[[], float] = time.monotonic):
+    def __init__(self, folder: Path, quiet_period_s: float, clock: Callable[[], float] = time.monotonic,
+                 noted: set[str] | None = None):
         self.folder = Path(folder)
         self.quiet_period_s = float(quiet_period_s)
         self._clock = clock
         self._pending: dict[str, _Pending] = {}
-        self._taken: dict[str, tuple[int, int]] = {}
+        self._taken: dict[str, tuple[int, int, int, int]] = {}
+        self.noted = noted if noted is not None else set()
 
     def __len__(self) -> int:
         return len(self._pending)
 
-    def mark_taken(self, relpath: str, size_bytes: int, mtime_ns: int) -> None:
-        """Remember a file as already handled at this stat (so a listing skips it)."""
-        self._taken[relpath] = (size_bytes, mtime_ns)
+    def mark_taken(self, relpath: str, signature: tuple[int, ...], mtime_ns: int | None = None) -> None:
+        """Remember a file as handled at this stat signature (so a listing skips it).
 
-    def touch(self, relpath: str, stat: os.stat_result | None = None) -> None:
-        """Note that ``relpath`` may have changed (an event, or a listing found it)."""
+        ``signature`` is :attr:`ReadyFile.signature`; the old form ``(relpath, size_bytes,
+        mtime_ns)`` is still accepted (then any later listing looks at the file again).
+        """
+        if mtime_ns is not None:
+            signature = (int(signature), int(mtime_ns), 0, 0)
+        self._taken[relpath] = tuple(signature)
+
+    def _stat(self, relpath: str) -> os.stat_result | None:
+        """The file's stat, or None when it is gone, not a regular file, or a link not followed."""
+        path = self.folder / relpath
+        if "/" in relpath and not _inside(os.path.realpath(path.parent), os.path.realpath(self.folder)):
+            return None  # under a linked folder (never descended; the listing names the link)
+        try:
+            stat = os.lstat(path)
+            if is_link(stat):
+                problem = link_problem(self.folder, path)
+                if problem is not None:
+                    note_link(relpath, problem, self.noted)
+                    return None
+                stat = os.stat(path)
+        except OSError:  # gone, or a link that became a loop: nothing to take now
+            return None
+        return stat if stat_module.S_ISREG(stat.st_mode) else None
+
+    def touch(self, relpath: str, stat: os.stat_result | None = None, event: bool = False) -> None:
+        """Note that ``relpath`` may have changed (a listing found it with ``stat``, or a file
+        event named it: ``event`` makes even a taken file with an unchanged signature
+        pending again, to be hashed once it is quiet)."""
         if stat is None:
-            try:
-                stat = os.stat(self.folder / relpath)
-            except FileNotFoundError:
+            stat = self._stat(relpath)
+            if stat is None:
                 self._pending.pop(relpath, None)
                 return
-        key = (stat.st_size, stat.st_mtime_ns)
+        signature = stat_signature(stat)
         pending = self._pending.get(relpath)
         if pending is None:
-            if self._taken.get(relpath) == key:
+            if not event and self._taken.get(relpath) == signature:
                 return
-            self._pending[relpath] = _Pending(key[0], key[1], self._clock(), utc_now_iso())
-        elif (pending.size_bytes, pending.mtime_ns) != key:
-            pending.size_bytes, pending.mtime_ns = key
+            self._pending[relpath] = _Pending(signature, self._clock(), utc_now_iso())
+        elif pending.signature != signature:
+            pending.signature = signature
             pending.stable_since = self._clock()
 
     def forget(self, relpath: str) -> None:
@@ -108,18 +152,19 @@ class CompletenessTracker:
             pending = self._pending[relpath]
             try:
                 stat = os.stat(self.folder / relpath)
-            except FileNotFoundError:
+            except OSError:  # gone (a listing finds it again if it comes back)
                 del self._pending[relpath]
                 continue
-            key = (stat.st_size, stat.st_mtime_ns)
-            if key != (pending.size_bytes, pending.mtime_ns):
-                pending.size_bytes, pending.mtime_ns = key
+            signature = stat_signature(stat)
+            if signature != pending.signature:
+                pending.signature = signature
                 pending.stable_since = now
                 continue
             if now - pending.stable_since >= self.quiet_period_s:
                 del self._pending[relpath]
-                done.append(ReadyFile(self.folder / relpath, relpath, key[0], key[1],
-                                      pending.first_seen_utc))
+                if self._stat(relpath) is None:  # retargeted out of the folder meanwhile
+                    continue
+                done.append(ReadyFile.from_stat(self.folder / relpath, relpath, stat, pending.first_seen_utc))
         done.sort(key=acquisition_sort_key)
         return done
 
@@ -165,6 +210,7 @@ class FolderWatcher:
         self._observer = None
         self._events: "queue.SimpleQueue[str]" = queue.SimpleQueue()
         self._last_listing = -float("inf")
+        self.noted: set[str] = set()  # links not followed, warned about once
 
     def start(self) -> None:
         """Check the folder, start listening, and note every file already present.
@@ -176,7 +222,7 @@ class FolderWatcher:
         """
         folder = check_folder(self.spec.folder)
         self.spec = dataclasses.replace(self.spec, folder=folder)
-        self.tracker = CompletenessTracker(folder, self.spec.quiet_period_s, self._clock)
+        self.tracker = CompletenessTracker(folder, self.spec.quiet_period_s, self._clock, self.noted)
         if not self.spec.poll:
             from watchdog.observers import Observer
 
@@ -199,7 +245,7 @@ class FolderWatcher:
 
     def _list(self) -> None:
         self._last_listing = self._clock()
-        for relpath, stat in list_wanted(self.spec):
+        for relpath, stat in list_wanted(self.spec, self.noted):
             self.tracker.touch(relpath, stat)
 
     def ready(self) -> list[ReadyFile]:
@@ -212,7 +258,7 @@ class FolderWatcher:
             except queue.Empty:
                 break
             if relpath:
-                self.tracker.touch(relpath)
+                self.tracker.touch(relpath, event=True)
             else:
                 relist = True
         if relist:
@@ -228,11 +274,13 @@ class FolderWatcher:
         return 0 if self.tracker is None else len(self.tracker)
 
     def mark_taken(self, ready: ReadyFile) -> None:
-        self.tracker.mark_taken(ready.relpath, ready.size_bytes, ready.mtime_ns)
+        """``ready`` is handled at the signature it was found complete under."""
+        signature = getattr(ready, "signature", None) or (ready.size_bytes, ready.mtime_ns, 0, 0)
+        self.tracker.mark_taken(ready.relpath, signature)
 
     def requeue(self, relpath: str) -> None:
         """Look at ``relpath`` again (it changed while it was being read)."""
-        self.tracker.touch(relpath)
+        self.tracker.touch(relpath, event=True)
 
     def stop(self) -> None:
         if self._observer is not None:

@@ -242,7 +242,8 @@ def watch_command(args) -> dict:
         out_dir=out_dir, quiet_period_s=args.quiet_period, poll=True if args.poll else None,
         max_duration_s=args.max_duration if args.max_duration is not None else settings.max_duration_s,
         idle_s=None if idle_minutes is None else 60.0 * idle_minutes,
-        refresh_s=settings.refresh_s, serve_port=args.serve, plot=args.plot)
+        refresh_s=settings.refresh_s, serve_port=args.serve, plot=args.plot,
+        view=not getattr(args, "quiet", False))  # --quiet: no terminal panel, the final result only
     replayer = None
     if args.replay is not None:
         folder = Path(plan.spec.folder)

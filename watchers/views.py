@@ -1,14 +1,17 @@
-"""What a chemist sees during a live run: a terminal panel and a self-refreshing page.
+"""What a chemist sees during a live run: a terminal panel and an interactive page.
 
 * :class:`TerminalView` — a rich panel (latest spectrum and its time, concentrations,
   current k with its 95 % interval, forecast time to the target, counts of processed /
   duplicate / quarantined files and the latest quarantine reasons).  On a terminal it
   redraws in place; when stderr is not a terminal it writes one log line per event.
-* :func:`render_html` (library code in :mod:`kinetics.run.outputs`, re-exported) — one HTML file with the plot inline as a base64 PNG and a
-  ``<meta http-equiv="refresh">`` so any browser opened on the file follows the run
-  without a server.  The final page of a run drops the refresh and says why it stopped.
-* :class:`PageServer` — optional: serves the live page and its assets on 127.0.0.1 only.
-* :class:`LivePlot` — optional matplotlib window (``--plot``); never used in tests.
+* :func:`render_html` (library code in :mod:`kinetics.run.outputs` and
+  :mod:`kinetics.livepage`, re-exported) — ``index.html``: the courses with fit, 95 % band
+  and forecast, the latest spectra, counts and status, drawn by the page's own script
+  (zoom, hover values) and updated in place from ``live.json`` (served) or
+  ``live-data.js`` (opened as a file), never reloaded; it needs no network.
+* :class:`PageServer` — optional: serves the live page and its data on 127.0.0.1 only.
+* :class:`LivePlot` — optional matplotlib window (``--plot``), drawn by
+  :func:`kinetics.plots.live_figure` (the page's and the report's style); never used in tests.
 """
 
 from __future__ import annotations
@@ -16,6 +19,7 @@ from __future__ import annotations
 import logging
 import threading
 
+import numpy as np
 import pandas as pd
 
 from kinetics.run.outputs import (LiveStatus, format_parameter, render_html,  # noqa: F401
@@ -44,12 +48,13 @@ class TerminalView:
     def _panel(self, status: LiveStatus):
         from rich.panel import Panel
         from rich.table import Table
+        from rich.text import Text  # a Text is never read as markup: names print as written
 
         table = Table.grid(padding=(0, 2))
         table.add_column(style="dim")
         table.add_column()
         for label, text in status_lines(status):
-            table.add_row(label, text)
+            table.add_row(Text(str(label)), Text(str(text)))
         title = "kinetics watch" + (" — stopped" if status.stop_reason else "")
         return Panel(table, title=title, expand=False)
 
@@ -82,7 +87,9 @@ class PageServer:
     """Serves the live page and its assets over HTTP on 127.0.0.1 only, from a daemon thread.
 
     Only the names in :data:`kinetics.run.outputs.OUTPUT_NAMES` (``index.html``,
-    ``series.png``, ``fit.json``, ``series.csv``) directly inside ``folder`` are served,
+    ``live.json``, ``live-data.js``, ``series.png``, ``fit.json``, ``series.csv``) directly
+    inside ``folder`` are served (a query string such as the page's cache-busting
+    ``?v=...`` is ignored),
     and ``/`` answers with ``index.html``.  Everything else — the ledger, any other file,
     a directory listing, a path leaving the folder — is 404.
     """
@@ -96,7 +103,8 @@ class PageServer:
 
         root = Path(folder)
         types = {".html": "text/html; charset=utf-8", ".png": "image/png",
-                 ".json": "application/json", ".csv": "text/csv; charset=utf-8"}
+                 ".json": "application/json", ".csv": "text/csv; charset=utf-8",
+                 ".js": "text/javascript; charset=utf-8"}
 
         class PageHandler(BaseHTTPRequestHandler):
             def log_message(self, *args) -> None:  # keep the terminal view clean
@@ -148,26 +156,29 @@ class PageServer:
 
 # ---------------------------------------------------------------- optional window
 class LivePlot:
-    """A matplotlib window redrawn on every refit (``--plot``; needs a display)."""
+    """A matplotlib window redrawn on every refit (``--plot``; needs a display).
+
+    Each update draws :func:`kinetics.plots.live_figure` (the series so far, the fit and
+    the residuals, in the figures' style) into the window's figure.
+    """
 
     def __init__(self):
         import matplotlib.pyplot as plt
 
         self._plt = plt
         plt.ion()
-        self.figure, self.axes = plt.subplots(figsize=(7, 4))
+        self.figure = plt.figure(figsize=(7, 4.5))
 
-    def update(self, table: pd.DataFrame, signals: list[str], curve: dict | None) -> None:
-        self.axes.clear()
-        for name in signals:
-            if name in table:
-                self.axes.plot(table["time_s"], table[name], "o", markersize=3, label=name)
-        if curve:
-            for name, values in curve.items():
-                if name != "time_s":
-                    self.axes.plot(curve["time_s"], values, "-", label=f"{name} fit")
-        self.axes.set_xlabel("time from start / s")
-        self.axes.legend(fontsize=8)
+    def update(self, table: pd.DataFrame, signals: list[str], curve: dict | None,
+               sigma_suffix: str = "_sigma") -> None:
+        from kinetics import plots
+
+        drawn = plots.live_figure(table, signals, curve, sigma_suffix=sigma_suffix)
+        # the library draws on its own Agg figure; the window shows a copy of its pixels
+        canvas = drawn.canvas
+        canvas.draw()
+        self.figure.clear()
+        self.figure.figimage(np.asarray(canvas.buffer_rgba()), resize=True)
         self.figure.canvas.draw_idle()
         self._plt.pause(0.001)
 

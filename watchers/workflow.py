@@ -15,6 +15,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 
 from kinetics import report as rp
+from kinetics.atomic import guard_output, write_atomic
 from kinetics.errors import InputFileError
 from kinetics.run.job import (STACKED_TRACES, JobOutcome, RunOutcome, inputs_of,  # noqa: F401
                               is_study_file, outcome_of, run_sections, run_single,
@@ -51,9 +52,9 @@ def _live_run(source: Path, run_dir: Path, config_text: str, label: str, interva
     incoming = run_dir / "incoming"
     if incoming.exists():
         shutil.rmtree(incoming)
-    incoming.mkdir(parents=True)
-    config_path = run_dir / "run.toml"
-    config_path.write_text(config_text, encoding="utf-8")
+    with guard_output(incoming):
+        incoming.mkdir(parents=True)
+    config_path = write_atomic(run_dir / "run.toml", config_text)
     live_dir = run_dir / "live"
     if live_dir.exists():  # a demo starts afresh; a real run would resume from its ledger
         shutil.rmtree(live_dir)
@@ -72,20 +73,29 @@ def _live_run(source: Path, run_dir: Path, config_text: str, label: str, interva
     return outcome_of(label, config_path, live_dir, summary, temperature_c, plan.config)
 
 
-def run_demo(out_dir: str | Path, data_dir: str | Path | None = None, interval_s: float = 0.02) -> JobOutcome:
-    """The whole job on the bundled demo: live runs, temperature study, one report."""
+def run_demo(out_dir: str | Path, data_dir: str | Path | None = None, interval_s: float = 0.02,
+             progress=None) -> JobOutcome:
+    """The whole job on the bundled demo: live runs, temperature study, one report.
+
+    ``progress`` (stage, done, total), when given, is told ``("runs", done, total)``."""
     from kinetics import demo
 
     out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
+    with guard_output(out_dir):
+        out_dir.mkdir(parents=True, exist_ok=True)
     data, where = _demo_data(None if data_dir is None else Path(data_dir), out_dir)
     notes = [where]
     runs = []
-    for spec in demo.demo_runs():
+    specs = demo.demo_runs()
+    for number, spec in enumerate(specs):
+        if progress is not None:
+            progress("runs", number, len(specs))
         label = f"{spec.temperature_c:g} °C"
         run_dir = out_dir / "runs" / spec.folder
         text = demo.run_config_text("incoming", spec.temperature_c)
         runs.append(_live_run((data / spec.folder).resolve(), run_dir, text, label, interval_s, spec.temperature_c))
+    if progress is not None:
+        progress("runs", len(specs), len(specs))
     tables = [(r.label, r.temperature_c, str((r.out_dir / "series.csv").relative_to(out_dir))) for r in runs]
     # the study over the live runs' tables in memory; its config text is kept for the record
     study_text = demo.study_config_text(tables)
@@ -101,9 +111,8 @@ def run_demo(out_dir: str | Path, data_dir: str | Path | None = None, interval_s
     study = study_from_runs(study_config, kinetic_runs, out_dir / "study", warnings)
     sections = []
     first = runs[0]
-    sections += run_sections(first, first.config, with_spectra=True, comparison=True)
-    for run in runs[1:]:
-        sections += run_sections(run, run.config, with_spectra=False, comparison=False)
+    for run in runs:  # every run: its spectra, courses of every species, rate laws compared
+        sections += run_sections(run, run.config, with_spectra=True, comparison=True, compact=True)
     sections = study_sections(study) + sections
     truth = {"ea_kj_per_mol": demo.EA_KJ_PER_MOL, "k_ref_per_s": demo.K_REF_PER_S,
              "t_ref_kelvin": demo.T_REF_KELVIN,

@@ -35,6 +35,10 @@ Keys
     ``species`` (the species columns to read; default the species of the law);
     ``temperature_c`` or ``temperature_kelvin``; ``catalyst_mol_per_l``; ``initial`` (a table
     ``species = mol/L``); ``factors`` (a table of other named numeric factors).
+``[fit]`` (optional)
+    ``bootstrap`` (residual-bootstrap refits of the global fit, reported beside the profile
+    intervals as a cross-check; default 0: none; run as tasks on the campaign's scheduler);
+    ``seed`` (root of the resamples' seeds, default 0: the same config gives the same intervals).
 """
 
 from __future__ import annotations
@@ -44,7 +48,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Mapping
 
-from kinetics.config import TIME_UNITS_S, _bool, _check_keys, _choice, _number, _string, _table, read_toml
+from kinetics.config import (TIME_UNITS_S, _bool, _check_keys, _choice, _number, _path_text, _string, _table,
+                             read_toml)
 from kinetics.errors import ConfigError, InputFileError
 
 SCHEDULER_LOCAL = "local"
@@ -55,6 +60,9 @@ FREE = "free"
 _CAMPAIGN_KEYS = {"name", "reactant", "catalyst", "orders", "stoichiometry", "inhibitors", "partner", "mechanism",
                   "temperature_law", "reference_temperature_kelvin", "fit_initial", "observed",
                   "exclude_flagged_runs", "scheduler", "workers"}
+_FIT_KEYS = {"bootstrap", "seed"}
+#: More refits than this add nothing to a 95 % percentile interval and take hours.
+MAX_BOOTSTRAP = 20000
 _RUN_KEYS = {"label", "table", "config", "folder", "time_column", "time_unit", "species", "temperature_c",
              "temperature_kelvin", "catalyst_mol_per_l", "initial", "factors"}
 
@@ -120,6 +128,8 @@ class CampaignConfig:
     scheduler: str
     workers: int | None
     runs: tuple
+    bootstrap: int = 0
+    seed: int = 0
 
     def power_law(self):
         """The :class:`~kinetics.campaign.powerlaw.PowerLaw` of the config (None with a mechanism)."""
@@ -198,6 +208,20 @@ def _workers(value, key: str) -> int:
     return int(value)
 
 
+def _fit_table(raw) -> tuple[int, int]:
+    """``[fit] bootstrap`` and ``seed`` (0 and 0 when the table is absent)."""
+    section = _table(raw, "fit")
+    _check_keys(section, _FIT_KEYS, "fit")
+    bootstrap = section.get("bootstrap", 0)
+    if isinstance(bootstrap, bool) or not isinstance(bootstrap, int) or not 0 <= bootstrap <= MAX_BOOTSTRAP:
+        raise ConfigError("fit.bootstrap", f"expected a whole number of refits from 0 to {MAX_BOOTSTRAP}, "
+                          f"got {bootstrap!r}", hint="200 to 1000 is common practice for 95 % percentile intervals")
+    seed = section.get("seed", 0)
+    if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
+        raise ConfigError("fit.seed", f"expected a whole number >= 0, got {seed!r}")
+    return int(bootstrap), int(seed)
+
+
 def run_folder_name(label: str) -> str:
     """The folder (under ``<out>/runs/``) of a run's ledger: its label in letters, digits and _."""
     return "".join(c if c.isalnum() else "_" for c in label).strip("_").lower() or "run"
@@ -217,13 +241,13 @@ def _campaign_run(raw, index: int, base: Path) -> CampaignRunConfig:
         raise ConfigError(f"{key}.folder", "a folder goes with 'config' (the run config applied to it)")
     table = config = folder = None
     if "table" in raw:
-        table = (base / _string(raw["table"], f"{key}.table")).resolve()
+        table = (base / _path_text(raw["table"], f"{key}.table")).resolve()
     else:
-        config = (base / _string(raw["config"], f"{key}.config")).resolve()
+        config = (base / _path_text(raw["config"], f"{key}.config")).resolve()
         if not config.is_file():
             raise ConfigError(f"{key}.config", f"run config {config} does not exist")
     if "folder" in raw:
-        folder = (base / _string(raw["folder"], f"{key}.folder")).resolve()
+        folder = (base / _path_text(raw["folder"], f"{key}.folder")).resolve()
         if not folder.is_dir():
             raise ConfigError(f"{key}.folder", f"folder {folder} does not exist")
     time_unit = _choice(raw.get("time_unit", "s"), f"{key}.time_unit", tuple(TIME_UNITS_S))
@@ -257,7 +281,8 @@ def campaign_config_from_dict(raw: Mapping[str, Any], path: str | Path) -> Campa
     if not is_campaign_config(raw):
         raise ConfigError("campaign", "missing the top-level [campaign] table",
                           hint="a campaign config starts with [campaign]")
-    _check_keys(raw, {"campaign", "runs"}, "")
+    _check_keys(raw, {"campaign", "runs", "fit"}, "")
+    bootstrap, seed = _fit_table(raw.get("fit"))
     section = raw["campaign"]
     _check_keys(section, _CAMPAIGN_KEYS, "campaign")
     if "reactant" not in section:
@@ -329,7 +354,7 @@ def campaign_config_from_dict(raw: Mapping[str, Any], path: str | Path) -> Campa
         fit_initial=_species_list(section["fit_initial"], "campaign.fit_initial") if "fit_initial" in section else (),
         observed=_species_list(section["observed"], "campaign.observed") if "observed" in section else None,
         exclude_flagged_runs=_bool(section.get("exclude_flagged_runs", True), "campaign.exclude_flagged_runs"),
-        scheduler=scheduler, workers=workers, runs=runs)
+        scheduler=scheduler, workers=workers, runs=runs, bootstrap=bootstrap, seed=seed)
     config.power_law()  # the law's own checks (a species with an order but no coefficient ...)
     return config
 

@@ -72,8 +72,11 @@ def simulate(label: str, rng: np.random.Generator) -> dict:
 
 def write_series(folder: str | Path) -> list[Path]:
     """Write the seven series tables into ``folder`` (created); returns their paths."""
+    from kinetics.atomic import guard_output, write_atomic
+
     folder = Path(folder)
-    folder.mkdir(parents=True, exist_ok=True)
+    with guard_output(folder):
+        folder.mkdir(parents=True, exist_ok=True)
     rng = np.random.default_rng(SEED)
     written = []
     for label in DESIGN:
@@ -84,7 +87,7 @@ def write_series(folder: str | Path) -> list[Path]:
         for i in range(columns["time_s"].size):
             lines.append(",".join(f"{columns[name][i]:.6g}" for name in names))
         path = folder / file_name(label)
-        path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+        write_atomic(path, "\n".join(lines) + "\n")
         written.append(path)
     return written
 

@@ -382,7 +382,8 @@ def _ssq_function(runs, params, predict_run, species_for_run):
 # ---------------------------------------------------------------- power rate law
 def fit_power_law(runs: Sequence[CampaignRun], law: PowerLaw | None = None, *, species=None,
                   fit_initial=(), temperature_reference_kelvin=None, absolute_sigma=False, profile=True,
-                  order_bounds=ORDER_BOUNDS, start_orders=None, temperature_law="arrhenius") -> GlobalFitResult:
+                  order_bounds=ORDER_BOUNDS, start_orders=None, temperature_law="arrhenius",
+                  warm_start=None) -> GlobalFitResult:
     """Fit ``rate = k prod [i]^{n_i}`` to every run at once with shared ``k`` and orders.
 
     Parameters
@@ -407,6 +408,9 @@ def fit_power_law(runs: Sequence[CampaignRun], law: PowerLaw | None = None, *, s
         How k depends on temperature when the runs differ in it: ``k_ref`` and
         ``ea_j_per_mol``, or ``dh_j_per_mol`` and ``ds_j_per_mol_k`` (started from the
         Arrhenius fit: ``dH = Ea - R T_ref``).
+    warm_start : Mapping name -> value, optional
+        Start every parameter named here at that value and skip the start scan (a refit
+        near a known optimum: the bootstrap's resamples).
     """
     runs = check_campaign(runs)
     law = law if law is not None else PowerLaw()
@@ -414,7 +418,9 @@ def fit_power_law(runs: Sequence[CampaignRun], law: PowerLaw | None = None, *, s
         raise ConfigError("temperature_law", f"{temperature_law!r}: use 'arrhenius' or 'eyring'")
     temperatures, t_ref = _temperatures(runs, temperature_reference_kelvin)
     eyring_start = None
-    if temperatures is not None and temperature_law == "eyring":
+    if temperatures is not None and temperature_law == "eyring" and warm_start is not None:
+        eyring_start = dict(warm_start)
+    elif temperatures is not None and temperature_law == "eyring":
         first = fit_power_law(runs, law, species=species, fit_initial=fit_initial,
                               temperature_reference_kelvin=temperature_reference_kelvin,
                               absolute_sigma=absolute_sigma, profile=False, order_bounds=order_bounds,
@@ -499,7 +505,9 @@ def fit_power_law(runs: Sequence[CampaignRun], law: PowerLaw | None = None, *, s
             f0 *= (c or 0.0) ** order
         return f0, initial.get(law.reactant, 1.0) or 1.0
 
-    if eyring_start is None:
+    if warm_start is not None:
+        params = _started(params, warm_start)
+    elif eyring_start is None:
         k0 = _k_start(runs, initial_rate_factor, 1.0)
         params[0] = _Param(params[0].name, k0, 0.0, math.inf, params[0].unit)
         params = _scan_start(params, 0, _ssq_function(runs, params, predict_run, species_for_run))
@@ -514,6 +522,12 @@ def fit_power_law(runs: Sequence[CampaignRun], law: PowerLaw | None = None, *, s
                           p.at_bound) if p.name in ("k", "k_ref") else p for p in result.parameters)
     described = law.describe(result.values)
     return _replace(result, parameters=fixed_units, description=described)
+
+
+def _started(params, warm_start) -> list:
+    """The parameters with their start values taken from ``warm_start`` where it names them."""
+    return [_Param(p.name, float(warm_start.get(p.name, p.start)), p.lower, p.upper, p.unit, p.profile)
+            for p in params]
 
 
 def _replace(result, **changes):
@@ -588,14 +602,15 @@ def compare_power_laws(runs, candidates: Mapping[str, PowerLaw], **options) -> t
 # ---------------------------------------------------------------- written mechanisms
 def fit_mechanism_campaign(runs: Sequence[CampaignRun], text, *, catalyst_species=None, fit_initial=(),
                            temperature_reference_kelvin=None, absolute_sigma=False, profile=True,
-                           method="LSODA") -> GlobalFitResult:
+                           method="LSODA", warm_start=None) -> GlobalFitResult:
     """Fit a written mechanism to every run with shared rate constants.
 
     Observed courses whose name is a species of the mechanism are fitted.  Initial
     concentrations come from each run's design (``initial_mol_per_l``; the catalyst loading
     for ``catalyst_species``); species not given start at 0 unless observed (then fitted)
     or listed in ``fit_initial``.  Runs at different temperatures give every rate constant
-    ``k_i`` an Arrhenius form (``k_i`` at ``T_ref`` and ``ea_<k_i>_j_per_mol``).
+    ``k_i`` an Arrhenius form (``k_i`` at ``T_ref`` and ``ea_<k_i>_j_per_mol``).  ``warm_start``
+    (name -> value) starts the named parameters there and skips the scan of the rate constants.
     """
     from kinetics.rates.mechanism import parse_mechanism
 
@@ -662,7 +677,7 @@ def fit_mechanism_campaign(runs: Sequence[CampaignRun], text, *, catalyst_specie
     # one common factor on every rate constant, scanned
     best, best_s = None, math.inf
     n_rates = len(mechanism.rate_names)
-    for factor in np.logspace(-3, 3, 13):
+    for factor in (np.logspace(-3, 3, 13) if warm_start is None else ()):
         theta = np.array([p.start for p in params])
         theta[:n_rates] *= factor
         s = evaluate(theta)
@@ -670,6 +685,123 @@ def fit_mechanism_campaign(runs: Sequence[CampaignRun], text, *, catalyst_specie
             best, best_s = theta, s
     if best is not None:
         params = [_Param(p.name, float(best[i]), p.lower, p.upper, p.unit, p.profile) for i, p in enumerate(params)]
+    if warm_start is not None:
+        params = _started(params, warm_start)
     description = " ; ".join(step.text for step in mechanism.steps)
     return _fit_pooled(description, runs, params, predict_run, species_for_run, absolute_sigma=absolute_sigma,
                        profile=profile, t_ref=t_ref)
+
+
+# ---------------------------------------------------------------- residual bootstrap (a cross-check)
+#: The bootstrap interval of a shared parameter this many times wider (or narrower) than its
+#: profile interval earns a note (chosen here: well beyond the percentile noise of ~200 refits).
+BOOTSTRAP_WIDTH_RATIO = 1.5
+
+
+@dataclass(frozen=True)
+class BootstrapIntervals:
+    """Residual-bootstrap percentile intervals of a global fit (the cross-check of the profiles).
+
+    Attributes
+    ----------
+    n_resamples, n_failed : int
+        Resamples asked for; refits that failed or did not converge (left out of the percentiles).
+    seed : int
+        Root of the ``numpy.random.SeedSequence`` whose ``spawn(n_resamples)`` children seed
+        the resamples, one each: the intervals do not depend on how resamples are grouped
+        into tasks, nor on the workers that run them.
+    intervals : Mapping name -> (lo, hi)
+        2.5th and 97.5th percentiles of each parameter over the converged refits.
+    where, seconds
+        Where the refits ran and the wall time they took.
+    """
+
+    n_resamples: int
+    n_failed: int
+    seed: int
+    intervals: Mapping
+    where: str = ""
+    seconds: float = math.nan
+
+    def to_dict(self) -> dict:
+        return {"method": "residual bootstrap, percentile", "n_resamples": self.n_resamples,
+                "n_failed": self.n_failed, "seed": self.seed, "where": self.where, "seconds": self.seconds,
+                "ci95": {name: [float(lo), float(hi)] for name, (lo, hi) in self.intervals.items()}}
+
+
+def resample_runs(runs: Sequence[CampaignRun], blocks, fitted: Mapping, residual: Mapping, dof: int,
+                  weighted: bool, rng: np.random.Generator) -> list:
+    """One residual-bootstrap copy of the runs of a global fit.
+
+    Residual bootstrap (Efron & Tibshirani 1993, ch. 9): the weighted residuals
+    ``r = (y - f)/sigma`` of each fitted course, rescaled by ``sqrt(N/dof)`` (a fit's residuals
+    are smaller than its noise) and centred within the course, are drawn with replacement
+    within the course and put back on its fitted curve: ``y* = f + sigma r*`` (``sigma = 1``
+    when the fit was unweighted).  Assumes the model is right and a course's residuals are
+    exchangeable (independent, one noise level per course after weighting); it keeps each
+    course's noise level and every run's design.  Courses not fitted are kept as measured.
+    ``blocks`` fixes the order of the draws (``GlobalFitResult.blocks``).
+    """
+    n_points = sum(np.size(residual[b]) for b in blocks)
+    scale = math.sqrt(n_points / max(int(dof), 1))
+    drawn = {}
+    for block in blocks:
+        r = np.asarray(residual[block], dtype=float)
+        centred = (r - r.mean()) * scale
+        drawn[block] = centred[rng.integers(0, r.size, size=r.size)]
+    out = []
+    for run in runs:
+        observed = dict(run.observed_mol_per_l)
+        for name in observed:
+            block = (run.label, name)
+            if block not in drawn:
+                continue
+            sigma = run.sigma(name) if weighted else None
+            observed[name] = np.asarray(fitted[block], dtype=float) + (drawn[block] if sigma is None
+                                                                       else drawn[block] * sigma)
+        out.append(CampaignRun(run.label, run.time_s, observed, dict(run.sigma_mol_per_l),
+                               dict(run.initial_mol_per_l), run.catalyst_mol_per_l, run.temperature_kelvin,
+                               dict(run.factors), run.source))
+    return out
+
+
+def percentile_intervals(names: Sequence[str], samples, level: float = 0.95) -> dict:
+    """``{name: (lo, hi)}``: the ``(1 -+ level)/2`` percentiles of each column of ``samples`` (n, p)."""
+    samples = np.asarray(samples, dtype=float).reshape(-1, len(names))
+    if samples.shape[0] < 2:
+        return {}
+    tail = 50.0 * (1.0 - level)
+    lo, hi = np.percentile(samples, [tail, 100.0 - tail], axis=0)
+    return {name: (float(lo[j]), float(hi[j])) for j, name in enumerate(names)}
+
+
+def with_bootstrap(fit: GlobalFitResult, found: BootstrapIntervals) -> GlobalFitResult:
+    """The fit with each parameter's ``ci_bootstrap`` filled in (the quoted ``ci95`` stays the profile)."""
+    from dataclasses import replace
+
+    parameters = tuple(replace(p, ci_bootstrap=found.intervals.get(p.name, p.ci_bootstrap)) for p in fit.parameters)
+    return _replace(fit, parameters=parameters)
+
+
+def bootstrap_notes(fit: GlobalFitResult, found: BootstrapIntervals) -> list:
+    """Notes where the bootstrap and the profile interval of a shared parameter disagree in width
+    by more than :data:`BOOTSTRAP_WIDTH_RATIO`, or the refits often failed."""
+    notes = []
+    if found.n_resamples and found.n_failed > 0.1 * found.n_resamples:
+        notes.append(f"{found.n_failed} of {found.n_resamples} bootstrap refits failed: the bootstrap "
+                     "intervals rest on the others and may be too narrow")
+    for p in fit.parameters:
+        if "@" in p.name or p.ci_profile is None or p.name not in found.intervals:
+            continue
+        lo, hi = found.intervals[p.name]
+        width_p = p.ci_profile[1] - p.ci_profile[0]
+        width_b = hi - lo
+        if not (np.isfinite(width_p) and width_p > 0 and width_b > 0):
+            continue
+        ratio = width_b / width_p
+        if ratio > BOOTSTRAP_WIDTH_RATIO or ratio < 1.0 / BOOTSTRAP_WIDTH_RATIO:
+            notes.append(f"{p.name}: the bootstrap interval ({lo:.4g} .. {hi:.4g}) is {ratio:.2g} times as wide "
+                         f"as the profile interval ({p.ci_profile[0]:.4g} .. {p.ci_profile[1]:.4g}): the "
+                         "profile's assumptions (the model right, independent noise of the size the fit "
+                         "estimates) may not hold; quote the wider one")
+    return notes

@@ -11,6 +11,10 @@ Stages
    (power law or written mechanism) -- without the runs the same-excess check names as
    slower when ``exclude_flagged_runs`` (the fit of every run is kept beside it) -- VTNA on
    the runs that share the modal ``[reactant]0`` and initial rates.
+   With ``[fit] bootstrap = N`` the headline fit is refitted on N residual-bootstrap
+   resamples (:func:`bootstrap_global_fit`), as tasks on the same cluster as the runs, each
+   resample seeded by its own ``SeedSequence`` child; the percentile intervals are reported
+   beside the profile ones.
 3. **Outputs**: CSV tables, PNG and SVG figures and ``summary.json`` in the out folder.
 
 Scale-out
@@ -24,7 +28,8 @@ the library keeps no global state.  A run whose task fails is reported (which ru
 the others go on.  A worker lost mid-task has its tasks redone by the scheduler; a redone
 run opens its own ledger folder again, where the ledger (keyed by file content) recognises
 the files already counted and does not count them twice, and results are gathered by run
-label, once each.
+label, once each.  :func:`task_client` and :func:`run_tasks` are the one task machinery; the
+re-processing of an archive (:mod:`kinetics.campaign.archive`) uses them too.
 """
 
 from __future__ import annotations
@@ -33,7 +38,7 @@ import logging
 import math
 import os
 import time
-from contextlib import ExitStack
+from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
@@ -45,6 +50,7 @@ from kinetics.campaign.config import (SCHEDULER_LOCAL, SCHEDULER_NONE, CampaignC
                                       run_folder_name)
 from kinetics.campaign.design import CampaignRun
 from kinetics.errors import ConfigError, InputFileError, KineticsError
+from kinetics.atomic import write_atomic
 
 log = logging.getLogger(__name__)
 
@@ -170,59 +176,41 @@ def _task(loader, run, runs_dir, species):
 
 
 # ---------------------------------------------------------------- executing the tasks
-def _workers_for(config: CampaignConfig, workers: int | None) -> int:
-    n = workers or config.workers or os.cpu_count() or 1
+def _workers_for(workers: int | None, default: int | None = None) -> int:
+    n = workers or default or os.cpu_count() or 1
     return max(1, int(n))
 
 
-def execute(config: CampaignConfig, runs_dir: Path, *, scheduler: str | None = None, workers: int | None = None,
-            loader: Callable = load_run) -> tuple[dict, list, dict]:
-    """Run every run's task; returns ``({label: LoadedRun}, [RunFailure], info)``.
-
-    ``scheduler`` overrides ``[campaign] scheduler``; ``workers`` the local cluster's size
-    (``workers = 1`` with the default scheduler runs in this process).  ``info`` says
-    where the tasks ran and the seconds spent in tasks and in all.
-    """
+def resolve_scheduler(default: str, scheduler: str | None = None, workers: int | None = None) -> str:
+    """The scheduler to use: ``scheduler`` (a ``--scheduler`` flag, validated) over ``default``
+    (the config's); the local cluster with ``workers = 1`` is this process."""
     if scheduler is not None:
         from kinetics.campaign.config import _scheduler
 
         scheduler = _scheduler(scheduler, "--scheduler")
-    scheduler = scheduler or config.scheduler
+    scheduler = scheduler or default
     if scheduler == SCHEDULER_LOCAL and workers == 1:
         scheduler = SCHEDULER_NONE
-    species = config.model_species()
-    started = time.perf_counter()
-    outcomes = {}
+    return scheduler
+
+
+@contextmanager
+def task_client(scheduler: str, workers: int | None = None, key: str = "campaign.scheduler"):
+    """``(client, where)`` for the tasks: None for ``"none"`` (this process), else a Dask
+    client of a local cluster (``"local"``, ``workers`` processes, one thread each, bound to
+    127.0.0.1, no dashboard) or of the scheduler at an address.  Both close on exit: the
+    library keeps no cluster between calls."""
     if scheduler == SCHEDULER_NONE:
-        for run in config.runs:
-            try:
-                outcomes[run.label] = _task(loader, run, str(runs_dir), species)
-            except Exception as error:  # noqa: BLE001 - a run that breaks is reported, the others go on
-                outcomes[run.label] = ("error", f"{type(error).__name__}: {error}", 0.0)
-        where = "in this process"
-    else:
-        outcomes, where = _execute_dask(config, runs_dir, scheduler, workers, loader, species)
-    loaded, failures, task_s = {}, [], 0.0
-    for run in config.runs:
-        status, value, seconds = outcomes[run.label]
-        task_s += seconds
-        if status == "ok":
-            loaded[run.label] = value
-        else:
-            failures.append(RunFailure(run.label, run.source, value))
-    info = {"where": where, "task_seconds": task_s, "wall_seconds": time.perf_counter() - started}
-    return loaded, failures, info
-
-
-def _execute_dask(config, runs_dir, scheduler, workers, loader, species):
+        yield None, "in this process"
+        return
     try:
-        from distributed import Client, LocalCluster, as_completed
+        from distributed import Client, LocalCluster
     except ImportError:  # pragma: no cover - a declared dependency
-        raise ConfigError("campaign.scheduler", "dask.distributed is not installed",
+        raise ConfigError(key, "dask.distributed is not installed",
                           hint='install it (pip install distributed) or use scheduler = "none"') from None
     with ExitStack() as stack:
         if scheduler == SCHEDULER_LOCAL:
-            n = _workers_for(config, workers)
+            n = _workers_for(workers)
             cluster = stack.enter_context(LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
                                                        host="127.0.0.1", dashboard_address=None,
                                                        silence_logs=logging.WARNING))
@@ -232,22 +220,68 @@ def _execute_dask(config, runs_dir, scheduler, workers, loader, species):
             try:
                 client = stack.enter_context(Client(scheduler, timeout="20s"))
             except (OSError, TimeoutError, ValueError) as error:
-                raise ConfigError("campaign.scheduler", f"no Dask scheduler answers at {scheduler} ({error})",
+                raise ConfigError(key, f"no Dask scheduler answers at {scheduler} ({error})",
                                   hint="start one (dask scheduler) or use \"local\"") from None
             where = f"Dask scheduler {scheduler}"
-        futures = {}
-        for i, run in enumerate(config.runs):
-            future = client.submit(_task, loader, run, str(runs_dir), species, pure=False,
-                                   key=f"campaign-run-{i}-{_slug(run.label)}-{os.getpid()}-{time.time_ns()}")
-            futures[future] = run.label
-        outcomes = {}
-        for future in as_completed(list(futures)):
-            label = futures[future]
+        yield client, where
+
+
+def run_tasks(items, loader: Callable, runs_dir, species, client=None, prefix: str = "campaign-run") -> dict:
+    """``{label: (status, value, seconds)}``: ``loader(item, runs_dir, species)`` for every item
+    (anything with a unique ``label``), here (``client`` None) or as Dask tasks.  A task that
+    raises is reported as ``("error", reason, seconds)``; the others go on.  A task lost with
+    its worker is redone by the scheduler; its result is gathered once, by label."""
+    outcomes = {}
+    if client is None:
+        for item in items:
             try:
-                outcomes[label] = future.result()
-            except Exception as error:  # noqa: BLE001 - e.g. KilledWorker: reported per run
-                outcomes[label] = ("error", f"{type(error).__name__}: {error}", 0.0)
-    return outcomes, where
+                outcomes[item.label] = _task(loader, item, str(runs_dir), species)
+            except Exception as error:  # noqa: BLE001 - a run that breaks is reported, the others go on
+                outcomes[item.label] = ("error", f"{type(error).__name__}: {error}", 0.0)
+        return outcomes
+    from distributed import as_completed
+
+    futures = {}
+    for i, item in enumerate(items):
+        future = client.submit(_task, loader, item, str(runs_dir), species, pure=False,
+                               key=f"{prefix}-{i}-{_slug(item.label)}-{os.getpid()}-{time.time_ns()}")
+        futures[future] = item.label
+    for future in as_completed(list(futures)):
+        label = futures[future]
+        try:
+            outcomes[label] = future.result()
+        except Exception as error:  # noqa: BLE001 - e.g. KilledWorker: reported per run
+            outcomes[label] = ("error", f"{type(error).__name__}: {error}", 0.0)
+    return outcomes
+
+
+def execute(config: CampaignConfig, runs_dir: Path, *, scheduler: str | None = None, workers: int | None = None,
+            loader: Callable = load_run, client=None, where: str | None = None) -> tuple[dict, list, dict]:
+    """Run every run's task; returns ``({label: LoadedRun}, [RunFailure], info)``.
+
+    ``scheduler`` overrides ``[campaign] scheduler``; ``workers`` the local cluster's size
+    (``workers = 1`` with the default scheduler runs in this process).  A ``client`` given
+    (with ``where`` it runs) is used as it is.  ``info`` says where the tasks ran and the
+    seconds spent in tasks and in all.
+    """
+    species = config.model_species()
+    started = time.perf_counter()
+    with ExitStack() as stack:
+        if client is None and where is None:
+            chosen = resolve_scheduler(config.scheduler, scheduler, workers)
+            client, where = stack.enter_context(task_client(chosen, workers or config.workers))
+        outcomes = run_tasks(config.runs, loader, runs_dir, species, client)
+    loaded, failures, task_s = {}, [], 0.0
+    for run in config.runs:
+        status, value, seconds = outcomes[run.label]
+        task_s += seconds
+        if status == "ok":
+            loaded[run.label] = value
+        else:
+            failures.append(RunFailure(run.label, run.source, value))
+    info = {"where": where or "in this process", "task_seconds": task_s,
+            "wall_seconds": time.perf_counter() - started}
+    return loaded, failures, info
 
 
 # ---------------------------------------------------------------- stage 2: analysis
@@ -270,6 +304,7 @@ class CampaignOutcome:
     notes: tuple = ()
     info: dict = field(default_factory=dict)
     files: tuple = ()
+    bootstrap: object = None  # BootstrapIntervals of the headline fit ([fit] bootstrap = N)
 
     @property
     def success(self) -> bool:
@@ -294,6 +329,7 @@ class CampaignOutcome:
             "excluded_runs": list(self.excluded),
             "global_fit": None if self.fit is None else self.fit.to_dict(),
             "global_fit_all_runs": None if self.fit_all is None else self.fit_all.to_dict(),
+            "bootstrap": None if self.bootstrap is None else self.bootstrap.to_dict(),
             "same_excess": [r.to_dict() for r in self.same_excess],
             "vtna": None if self.vtna is None else self.vtna.to_dict(),
             "initial_rates": None if self.initial_rates is None else self.initial_rates.to_dict(),
@@ -313,6 +349,15 @@ class CampaignOutcome:
             lines.append(f"global fit{left}: {self.fit.description}"
                          + ("" if self.fit.converged else f"  (NOT converged: {self.fit.message})"))
             lines.extend(_parameter_lines(self.fit))
+            if self.bootstrap is not None:
+                boot = self.bootstrap
+                lines.append(f"residual bootstrap, {boot.n_resamples - boot.n_failed} of {boot.n_resamples} refits "
+                             f"(seed {boot.seed}; {boot.where}, {boot.seconds:.1f} s), 95 % percentile intervals "
+                             "beside the profile ones:")
+                for p in self.fit.parameters:
+                    if "@" not in p.name and p.name in boot.intervals:
+                        lo, hi = boot.intervals[p.name]
+                        lines.append(f"  {p.name:<22} {lo:.4g} .. {hi:.4g}")
         if self.fit_all is not None:
             lines.append(f"global fit of every run (for comparison): {self.fit_all.description}")
             lines.extend(_parameter_lines(self.fit_all))
@@ -359,16 +404,104 @@ def _campaign_run(run: CampaignRunConfig, got: LoadedRun) -> CampaignRun:
                        run.temperature_kelvin, run.factors_dict(), got.source)
 
 
-def _global_fit(config: CampaignConfig, runs):
+def _global_fit(config: CampaignConfig, runs, **options):
+    """The config's global fit of ``runs`` (``options``: ``warm_start``, ``profile`` of the fitters)."""
     from kinetics.campaign.globalfit import fit_mechanism_campaign, fit_power_law
 
     if config.mechanism is not None:
         return fit_mechanism_campaign(runs, config.mechanism, catalyst_species=config.catalyst,
                                       fit_initial=config.fit_initial,
-                                      temperature_reference_kelvin=config.reference_temperature_kelvin)
+                                      temperature_reference_kelvin=config.reference_temperature_kelvin, **options)
     return fit_power_law(runs, config.power_law(), species=config.observed, fit_initial=config.fit_initial,
                          temperature_reference_kelvin=config.reference_temperature_kelvin,
-                         temperature_law=config.temperature_law)
+                         temperature_law=config.temperature_law, **options)
+
+
+# ---------------------------------------------------------------- bootstrap resamples (tasks)
+#: Resamples per task: enough that the scheduling (a few ms per task) is small beside the
+#: refits (~0.05-0.2 s each), few enough to spread over the workers.  The intervals do not
+#: depend on it (each resample has its own seed).
+BOOTSTRAP_CHUNK = 8
+
+
+@dataclass(frozen=True)
+class _BootstrapPayload:
+    """What a bootstrap task needs, as plain values (it travels to the workers)."""
+
+    config: CampaignConfig
+    runs: tuple  # (CampaignRunConfig, LoadedRun) of the runs fitted, in the fit's order
+    blocks: tuple
+    fitted: dict
+    residual: dict
+    dof: int
+    weighted: bool
+    start: dict
+    names: tuple
+
+
+def _bootstrap_refits(payload: _BootstrapPayload, seeds) -> list:
+    """One task: a refit per seed (a ``SeedSequence`` child) -> parameter values, or None when
+    the refit failed.  One BLAS thread, here and on every worker, so the arithmetic and the
+    results are the same wherever the task runs."""
+    from kinetics.campaign.globalfit import resample_runs
+    from kinetics.linalg import small_linear_algebra
+
+    runs = [_campaign_run(run, got) for run, got in payload.runs]
+    out = []
+    with small_linear_algebra():
+        for seed in seeds:
+            resampled = resample_runs(runs, payload.blocks, payload.fitted, payload.residual, payload.dof,
+                                      payload.weighted, np.random.default_rng(seed))
+            try:
+                fit = _global_fit(payload.config, resampled, warm_start=payload.start, profile=False)
+            except KineticsError:
+                out.append(None)
+                continue
+            values = fit.values
+            ok = fit.converged and all(np.isfinite(values.get(name, math.nan)) for name in payload.names)
+            out.append([float(values[name]) for name in payload.names] if ok else None)
+    return out
+
+
+def bootstrap_global_fit(config: CampaignConfig, fit, fit_runs, loaded: dict, client=None,
+                         where: str = "in this process"):
+    """``config.bootstrap`` residual-bootstrap refits of ``fit`` (over ``fit_runs``, the
+    CampaignRun records it was fitted to), as tasks of :data:`BOOTSTRAP_CHUNK` resamples on
+    ``client`` (None: here); returns :class:`~kinetics.campaign.globalfit.BootstrapIntervals`.
+
+    Resample ``i`` is seeded by child ``i`` of ``numpy.random.SeedSequence(config.seed)``, so
+    the intervals are the same in this process and on any number of workers.  A task that
+    fails (its worker lost beyond the scheduler's retries) counts its resamples as failed.
+    """
+    from kinetics.campaign.globalfit import BootstrapIntervals, percentile_intervals
+
+    by_label = {run.label: run for run in config.runs}
+    names = tuple(p.name for p in fit.parameters)
+    payload = _BootstrapPayload(config, tuple((by_label[run.label], loaded[run.label]) for run in fit_runs),
+                                tuple(fit.blocks), dict(fit.fitted), dict(fit.residual), int(fit.dof),
+                                bool(fit.weighted), dict(fit.values), names)
+    n = int(config.bootstrap)
+    seeds = np.random.SeedSequence(config.seed).spawn(n)
+    chunks = [seeds[i:i + BOOTSTRAP_CHUNK] for i in range(0, n, BOOTSTRAP_CHUNK)]
+    started = time.perf_counter()
+    if client is None:
+        results = [_bootstrap_refits(payload, chunk) for chunk in chunks]
+    else:
+        stamp = f"{os.getpid()}-{time.time_ns()}"
+        futures = [client.submit(_bootstrap_refits, payload, chunk, pure=False, key=f"campaign-bootstrap-{i}-{stamp}")
+                   for i, chunk in enumerate(chunks)]
+        results = []
+        for future, chunk in zip(futures, chunks):
+            try:
+                results.append(future.result())
+            except Exception as error:  # noqa: BLE001 - e.g. KilledWorker: its resamples count as failed
+                log.warning("bootstrap task lost (%s: %s): %d resamples counted as failed",
+                            type(error).__name__, error, len(chunk))
+                results.append([None] * len(chunk))
+    samples = [values for chunk in results for values in chunk if values is not None]
+    failed = n - len(samples)
+    return BootstrapIntervals(n, failed, int(config.seed), percentile_intervals(names, samples), where,
+                              time.perf_counter() - started)
 
 
 def _vtna_runs(config, runs):
@@ -497,11 +630,13 @@ def _methods_disagree(vtna_result, fit) -> list[str]:
 
 # ---------------------------------------------------------------- stage 3: outputs
 def _save(figure, out_dir: Path, name: str) -> list:
+    from kinetics import plots
+
     paths = []
     for suffix in ("png", "svg"):
         path = out_dir / f"{name}.{suffix}"
-        figure.savefig(path, dpi=120 if suffix == "png" else None)
-        paths.append(path)
+        data = plots.png_bytes(figure, dpi=120) if suffix == "png" else plots.svg_bytes(figure)
+        paths.append(write_atomic(path, data))
     return paths
 
 
@@ -519,16 +654,18 @@ def write_outputs(outcome: CampaignOutcome) -> list:
                             **r["factors"], "n_points": r.get("n_points"), "source": r["source"]}
                            for r in outcome.to_dict()["runs"]])
     files.append(out / "runs.csv")
-    design.to_csv(files[-1], index=False)
+    write_atomic(files[-1], design.to_csv(index=False))
     by_label = {run.label: run for run in outcome.runs}
     for name, fit in (("global_fit", outcome.fit), ("global_fit_all_runs", outcome.fit_all)):
         if fit is None:
             continue
         rows = [{"parameter": p.name, **{k: v for k, v in p.to_dict().items() if k != "ci95"},
                  "ci95_low": (p.to_dict().get("ci95") or (None, None))[0],
-                 "ci95_high": (p.to_dict().get("ci95") or (None, None))[1]} for p in fit.parameters]
+                 "ci95_high": (p.to_dict().get("ci95") or (None, None))[1],
+                 "ci95_bootstrap_low": (p.ci_bootstrap or (None, None))[0],
+                 "ci95_bootstrap_high": (p.ci_bootstrap or (None, None))[1]} for p in fit.parameters]
         files.append(out / f"{name}.csv")
-        pd.DataFrame(rows).to_csv(files[-1], index=False)
+        write_atomic(files[-1], pd.DataFrame(rows).to_csv(index=False))
         used = [by_label[label] for label in dict.fromkeys(b[0] for b in fit.blocks)]
         try:
             files += _save(fg.global_fit_figure(fit, used, config.reactant), out, name)
@@ -536,27 +673,27 @@ def write_outputs(outcome: CampaignOutcome) -> list:
             log.warning("figure %s skipped: %s", name, error)
     if outcome.same_excess:
         files.append(out / "same_excess.csv")
-        pd.DataFrame([{k: v for k, v in r.to_dict().items() if k != "rate_ratio_ci95"}
+        write_atomic(files[-1], pd.DataFrame([{k: v for k, v in r.to_dict().items() if k != "rate_ratio_ci95"}
                       | {"rate_ratio_ci95_low": r.rate_ratio_ci95[0], "rate_ratio_ci95_high": r.rate_ratio_ci95[1]}
-                      for r in outcome.same_excess]).to_csv(files[-1], index=False)
+                      for r in outcome.same_excess]).to_csv(index=False))
         for i, r in enumerate(outcome.same_excess, start=1):
             files += _save(fg.same_excess_figure(r, by_label[r.early], by_label[r.late], config.reactant), out,
                            f"same_excess_{i}")
     if outcome.vtna is not None:
         files.append(out / "vtna.csv")
-        pd.DataFrame([{"species": name, "order": order, "ci95_low": outcome.vtna.intervals.get(name, (None,))[0],
+        write_atomic(files[-1], pd.DataFrame([{"species": name, "order": order, "ci95_low": outcome.vtna.intervals.get(name, (None,))[0],
                        "ci95_high": outcome.vtna.intervals.get(name, (None, None))[1]}
-                      for name, order in outcome.vtna.orders.items()]).to_csv(files[-1], index=False)
+                      for name, order in outcome.vtna.orders.items()]).to_csv(index=False))
         files += _save(fg.vtna_figure(outcome.vtna, [by_label[label] for label in outcome.vtna.labels]), out, "vtna")
     if outcome.initial_rates is not None:
         files.append(out / "initial_rates.csv")
-        pd.DataFrame([{"run": r.label, "rate_mol_per_l_s": r.rate_mol_per_l_s, "stderr": r.stderr,
-                       "n_points": r.n_points} for r in outcome.initial_rates.rates]).to_csv(files[-1], index=False)
+        write_atomic(files[-1], pd.DataFrame([{"run": r.label, "rate_mol_per_l_s": r.rate_mol_per_l_s, "stderr": r.stderr,
+                       "n_points": r.n_points} for r in outcome.initial_rates.rates]).to_csv(index=False))
         files += _save(fg.initial_rates_figure(outcome.initial_rates), out, "initial_rates")
     files.append(out / "summary.json")
     document = outcome.to_dict()
     document["files"] = [str(p) for p in files]
-    files[-1].write_text(dumps(document) + "\n", encoding="utf-8")
+    write_atomic(files[-1], dumps(document) + "\n")
     return files
 
 
@@ -576,7 +713,23 @@ def run_campaign(config: CampaignConfig | str | Path, out_dir: str | Path, *, sc
         config = load_campaign_config(config)
     out = prepare_out_dir(Path(out_dir))
     runs_dir = out / "runs"
-    loaded, failures, info = execute(config, runs_dir, scheduler=scheduler, workers=workers, loader=loader)
+    with ExitStack() as stack:
+        # one cluster for the runs and the bootstrap resamples; closed at once when no bootstrap
+        chosen = resolve_scheduler(config.scheduler, scheduler, workers)
+        client, where = stack.enter_context(task_client(chosen, workers or config.workers))
+        loaded, failures, info = execute(config, runs_dir, loader=loader, client=client, where=where)
+        if not config.bootstrap:
+            stack.close()
+        outcome = _analyse_loaded(config, out, loaded, failures, info, client, where)
+    if outputs:
+        outcome = replace(outcome, files=tuple(write_outputs(outcome)))
+    return outcome
+
+
+def _analyse_loaded(config, out, loaded, failures, info, client, where) -> CampaignOutcome:
+    """Stage 2 on the gathered runs (and the bootstrap resamples as tasks on ``client``)."""
+    from kinetics.campaign.globalfit import bootstrap_notes, with_bootstrap
+
     runs, warnings = [], []
     for run in config.runs:
         got = loaded.get(run.label)
@@ -594,13 +747,24 @@ def run_campaign(config: CampaignConfig | str | Path, out_dir: str | Path, *, sc
     started = time.perf_counter()
     found = analyse(config, runs)
     info["analysis_seconds"] = time.perf_counter() - started
+    boot = None
+    if config.bootstrap and found["fit"] is not None and found["fit"].converged:
+        fit_runs = [run for run in runs if run.label not in found["excluded"]]
+        try:
+            boot = bootstrap_global_fit(config, found["fit"], fit_runs, loaded, client, where)
+        except KineticsError as error:
+            found["notes"].append(f"the bootstrap was skipped: {error}")
+        else:
+            found["fit"] = with_bootstrap(found["fit"], boot)
+            found["notes"].extend(bootstrap_notes(found["fit"], boot))
+            info["bootstrap_seconds"] = boot.seconds
     outcome = CampaignOutcome(config, out, tuple(runs), loaded, tuple(failures), found["fit"], found["fit_all"],
                               found["excluded"], found["same_excess"], found["vtna"], found["initial_rates"],
-                              tuple(dict.fromkeys(warnings + found["warnings"])), tuple(found["notes"]), info)
-    if outputs:
-        outcome = replace(outcome, files=tuple(write_outputs(outcome)))
+                              tuple(dict.fromkeys(warnings + found["warnings"])), tuple(found["notes"]), info,
+                              bootstrap=boot)
     return outcome
 
 
-__all__ = ["CampaignOutcome", "LoadedRun", "RunFailure", "analyse", "execute", "load_run", "run_campaign",
+__all__ = ["CampaignOutcome", "LoadedRun", "RunFailure", "analyse", "bootstrap_global_fit", "execute", "load_run",
+           "resolve_scheduler", "run_campaign", "run_tasks", "task_client",
            "write_outputs"]

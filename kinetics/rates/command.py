@@ -56,7 +56,8 @@ def _species_for(model_name, columns, observed, species):
 def fit_command(table, time_column, columns, *, model=None, mechanism=None, observed="reactant",
                 species=None, sigma_columns=None, compare=False, target_conversion=None,
                 bootstrap=0, seed=None, start=None, fixed=None, initial=None, profile=True,
-                absolute_sigma=False, weighting="none", time_unit=None, concentration_unit=None):
+                absolute_sigma=False, weighting="none", time_unit=None, concentration_unit=None,
+                progress=None):
     """Run ``kinetics fit``; returns ``(payload, text)``.
 
     ``payload`` is the JSON object (params keyed by name, aicc, bic, n_points, converged,
@@ -82,7 +83,7 @@ def fit_command(table, time_column, columns, *, model=None, mechanism=None, obse
                                     concentration_unit=concentration_unit)
     rng = np.random.default_rng(seed) if bootstrap else None
     options = dict(start=start or {}, fixed=fixed or {}, profile=profile, bootstrap=bootstrap,
-                   rng=rng, absolute_sigma=absolute_sigma, weighting=weighting)
+                   rng=rng, absolute_sigma=absolute_sigma, weighting=weighting, progress=progress)
     if mechanism is not None:
         parsed = parse_mechanism(mechanism)
         observed_species = tuple(species) if species else tuple(columns)

@@ -144,6 +144,8 @@ class FitOptions:
     warm: bool = False
     weighting: str = "none"
     guardrails: bool = True
+    #: told ``("bootstrap", done, total)`` during the bootstrap refits; not repeated by refit()
+    progress: Callable | None = field(default=None, repr=False, compare=False)
 
 
 @dataclass(frozen=True)
@@ -360,6 +362,37 @@ class FitResult:
             out[quantity.name] = quantity.to_dict()
         return out
 
+    def summary(self) -> str:
+        """The fit in words: :meth:`report` (status, parameters with value ± u and 95 %
+        interval, statistics, residual diagnostics, half-life, warnings)."""
+        return self.report()
+
+    def to_frame(self):
+        """The parameters as a pandas DataFrame, one row per parameter (index ``parameter``).
+
+        Columns: ``value``, ``stderr`` (standard error), ``ci95_low``/``ci95_high`` (the
+        95 % interval :attr:`ParameterEstimate.ci95` quotes), ``interval`` (how it was got:
+        profile, bootstrap or covariance), ``unit``, ``fixed``.  A parameter held fixed has
+        no standard error or interval (NaN).
+        """
+        import pandas as pd
+
+        rows = []
+        for p in self.params:
+            ci = p.ci95 if p.vary else None
+            rows.append({"parameter": p.name, "value": p.value,
+                         "stderr": np.nan if p.stderr is None or not p.vary else p.stderr,
+                         "ci95_low": np.nan if ci is None else ci[0], "ci95_high": np.nan if ci is None else ci[1],
+                         "interval": p.ci95_method if p.vary else None, "unit": p.unit, "fixed": not p.vary})
+        return pd.DataFrame(rows).set_index("parameter")
+
+    def plot(self, species=None, **options):
+        """Measured and fitted courses with the 95 % band and residuals, a matplotlib Figure
+        (:func:`kinetics.plots.fit_figure`; ``species`` and ``options`` as there)."""
+        from kinetics import plots
+
+        return plots.fit_figure(self, species=species, **options)
+
     def report(self) -> str:
         """Plain-text report: status, parameters with intervals, statistics, diagnostics."""
         from kinetics import numbers
@@ -518,7 +551,7 @@ def _lmfit_minimise(problem: iv.Problem, theta0, options: FitOptions):
 
 def fit_model(data: ConcentrationData, model: RateModel, *, start=None, fixed=None, bounds=None,
               profile=True, bootstrap=0, rng=None, absolute_sigma=False, tol=1e-10,
-              max_nfev=None, warm=False, weighting="none", guardrails=True) -> FitResult:
+              max_nfev=None, warm=False, weighting="none", guardrails=True, progress=None) -> FitResult:
     """Fit ``model`` to all observed series of ``data`` at once (a global fit).
 
     Parameters
@@ -554,6 +587,8 @@ def fit_model(data: ConcentrationData, model: RateModel, *, start=None, fixed=No
         zero from taking infinite weight).  Not with sigmas in ``data``.
     guardrails : bool
         Run the checks of :mod:`kinetics.rates.diagnostics` (default True).
+    progress : callable (stage, done, total), optional
+        Told ``("bootstrap", done, total)`` after each bootstrap refit.
 
     Returns
     -------
@@ -578,7 +613,7 @@ def fit_model(data: ConcentrationData, model: RateModel, *, start=None, fixed=No
             raise FitError(f"cannot profile {unknown[0]!r}: not a parameter of {model.name!r}")
     options = FitOptions(dict(start or {}), dict(fixed or {}), dict(bounds or {}), profile,
                          int(bootstrap), bool(absolute_sigma), float(tol), max_nfev, bool(warm),
-                         weighting, bool(guardrails))
+                         weighting, bool(guardrails), progress=progress)
     problem, theta0 = _build_problem(model, data, options)
     n = data.n_points
     p = len(problem.names)
@@ -743,7 +778,8 @@ def _finish(model, data, problem, theta0, options, rng, notes=(), depth=0) -> Fi
     boots = [None] * p
     failed = 0
     if converged and options.bootstrap:
-        samples, failed = iv.bootstrap_samples(problem, theta, options.bootstrap, rng, dof)
+        samples, failed = iv.bootstrap_samples(problem, theta, options.bootstrap, rng, dof,
+                                               progress=options.progress)
         if len(samples) >= 20:
             lo, hi = np.percentile(samples, [2.5, 97.5], axis=0)
             boots = [(float(a), float(b)) for a, b in zip(lo, hi)]

@@ -320,15 +320,19 @@ def profile_interval(problem: Problem, theta_hat, index: int, stderr, threshold,
     return (float(edges[0]), float(edges[1]))
 
 
-def bootstrap_samples(problem: Problem, theta_hat, n_samples: int, rng, dof: int):
-    """Residual-bootstrap refits, shape (n_ok, p), and the number of failed refits."""
+def bootstrap_samples(problem: Problem, theta_hat, n_samples: int, rng, dof: int, progress=None):
+    """Residual-bootstrap refits, shape (n_ok, p), and the number of failed refits.
+
+    ``progress`` (stage, done, total), when given, is told ``("bootstrap", i, n_samples)``."""
     fitted = problem.model(theta_hat)
     weighted = (problem.y - fitted) * problem.weight
     m, n = weighted.shape
     scale = np.sqrt(n * m / max(dof, 1))
     centred = (weighted - weighted.mean(axis=1, keepdims=True)) * scale
     samples, failed = [], 0
-    for _ in range(n_samples):
+    for done in range(n_samples):
+        if progress is not None:
+            progress("bootstrap", done, n_samples)
         picks = rng.integers(0, n, size=(m, n))
         y_star = fitted + np.take_along_axis(centred, picks, axis=1) / problem.weight
         # Percentiles need ~4 digits: a looser tolerance than the main fit.
@@ -337,6 +341,8 @@ def bootstrap_samples(problem: Problem, theta_hat, n_samples: int, rng, dof: int
             samples.append(theta)
         else:
             failed += 1
+    if progress is not None:
+        progress("bootstrap", n_samples, n_samples)
     return np.array(samples).reshape(-1, len(theta_hat)), failed
 
 

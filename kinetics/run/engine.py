@@ -9,7 +9,8 @@ construction.
 Steps of a turn (:meth:`RunState.take` then :meth:`RunState.refit` and
 :meth:`RunState.write_outputs`):
 
-1. :func:`process_ready`: hash each file, skip what the ledger already holds (a restart
+1. :func:`process_ready`: hash each file (a run read from one arrayed file: each complete
+   block, with its digest, :mod:`kinetics.run.sources`), skip what the ledger already holds (a restart
    does not reprocess), measure the new ones (a file that does not parse is quarantined
    with the reason, the run goes on), order them by acquisition time and hand them to
    :meth:`kinetics.store.Ledger.ingest`, one transaction per file.  In a batch run the
@@ -34,6 +35,7 @@ are in ``watchers/``.
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import multiprocessing
 import os
@@ -41,7 +43,7 @@ import time
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Callable, Protocol
+from typing import Any, Callable, Protocol
 
 import pandas as pd
 
@@ -49,7 +51,8 @@ from kinetics.config import RunConfig, load_run_config
 from kinetics import series
 from kinetics.errors import ConfigError, FitError, InputFileError, KineticsError
 from kinetics.linalg import small_linear_algebra
-from kinetics.run.files import ReadyFile, WatchSpec, acquisition_sort_key, check_folder, list_wanted
+from kinetics.run.files import (ReadyFile, WatchSpec, acquisition_sort_key, attribution_key, check_folder,
+                                 ledger_attribution_key, list_wanted, same_file_state)
 from kinetics.run.outputs import (LEDGER_NAME, RunLock, figure_png, prepare_out_dir, remove_stale_temporaries,
                                   run_status, write_page, write_table_and_fit)
 from kinetics.run.refit import FitOutcome, RatesRefitter, Refitter, refitter_from_config
@@ -61,6 +64,10 @@ log = logging.getLogger(__name__)
 
 #: a batch run measures in worker processes from this many new files on
 PARALLEL_MIN_FILES = 64
+
+#: A progress callback: ``progress(stage, done, total)``, e.g. ``("spectra", 12, 36)``.  The
+#: library reports through it and never prints; the command line draws bars from it.
+Progress = Callable[[str, int, int], None]
 
 
 # ---------------------------------------------------------------- the plan of a run
@@ -123,6 +130,9 @@ class RunPlan:
         Makes the run's incremental table state (a series run's :class:`SeriesState`).
     config : RunConfig or None
         The validated run config the plan was made from.
+    series : kinetics.run.sources.ArrayedSource or None
+        For a run read from one arrayed file: turns the ready file into its traces
+        (:mod:`kinetics.run.sources`); None for a folder of files.
     """
 
     spec: WatchSpec
@@ -135,9 +145,20 @@ class RunPlan:
     sigma_suffix: str = "_stderr"
     source: Callable[[], TableSource] | None = None
     config: RunConfig | None = field(default=None, repr=False, compare=False)
+    series: Any = field(default=None, repr=False, compare=False)
 
     def table_source(self) -> TableSource:
         return self.source() if self.source is not None else LedgerTable(self.build_table)
+
+
+def _ledger_exists(path: Path) -> bool:
+    """Whether a ledger is there; an output path the system refuses (too long) is an OutputError."""
+    try:
+        return path.exists()
+    except OSError as error:
+        from kinetics.atomic import output_error
+
+        raise output_error(path, error) from error
 
 
 def plan_from_config(config: RunConfig | str | Path, ledger_path: Path | None = None, *,
@@ -158,7 +179,8 @@ def plan_from_config(config: RunConfig | str | Path, ledger_path: Path | None = 
     if not isinstance(config, RunConfig):
         config = load_run_config(config)
     if folder is not None:
-        config = replace(config, folder=Path(folder))
+        config = replace(config, folder=Path(folder),
+                         file=None if config.file is None else Path(folder) / config.file.name)
     if require_named:
         config.require_named()
     live = config.live
@@ -166,19 +188,27 @@ def plan_from_config(config: RunConfig | str | Path, ledger_path: Path | None = 
     spec = WatchSpec(folder, include=(config.pattern,), exclude=live.exclude, recursive=live.recursive,
                      quiet_period_s=live.quiet_period_s, poll=live.poll, poll_interval_s=live.poll_interval_s)
     reference = None
-    if ledger_path is not None and str(ledger_path) != ":memory:" and Path(ledger_path).exists():
+    if ledger_path is not None and str(ledger_path) != ":memory:" and _ledger_exists(Path(ledger_path)):
         with Ledger(ledger_path) as ledger:
             record = ledger.first_record()
         reference = record.get("reference") if record else None
     resolved = folder.resolve() if folder.exists() else folder
     text = config.text if config.text is not None else (
         config.path.read_text(encoding="utf-8") if config.path is not None else repr(config))
+    arrayed = measure = None
+    if config.file is not None:  # one arrayed file: its complete blocks are the spectra
+        from kinetics.run.sources import ArrayedSource, TraceMeasurer
+
+        arrayed = ArrayedSource(config, resolved)
+        measure = TraceMeasurer(config, resolved, arrayed, reference)
+        # a block is complete when the reader finds its end, so no quiet period is waited
+        spec = replace(spec, quiet_period_s=0.0)
     return RunPlan(
-        spec=spec, measure=SeriesMeasurer(config, resolved, reference), build_table=None,
+        spec=spec, measure=measure or SeriesMeasurer(config, resolved, reference), build_table=None,
         refit=refitter_from_config(config.fit, live.target_conversion),
         signals=tuple(f"{name}_concentration" for name in config.species),
         config_text=text, target_conversion=live.target_conversion, sigma_suffix="_sigma",
-        source=lambda: SeriesState(config, resolved), config=config)
+        source=lambda: SeriesState(config, resolved), config=config, series=arrayed)
 
 
 # ---------------------------------------------------------------- one group of ready files
@@ -191,12 +221,16 @@ class _Candidate:
     sort_key: tuple = field(default_factory=tuple)
 
 
-def _stat_key(path: Path) -> tuple[int, int] | None:
+def _input(item):
+    """What the measurer is given: a file's path, or a trace of an arrayed file itself."""
+    return item if getattr(item, "digest", None) is not None else item.path
+
+
+def _stat_or_none(path: Path) -> os.stat_result | None:
     try:
-        stat = os.stat(path)
+        return os.stat(path)
     except FileNotFoundError:
         return None
-    return stat.st_size, stat.st_mtime_ns
 
 
 def _measure_safely(measure: Measurer, path: Path):
@@ -219,10 +253,11 @@ def _measure_safely(measure: Measurer, path: Path):
 
 
 _WORKER_MEASURE: Measurer | None = None  # set in the parent just before the worker processes fork
+_WORKER_INPUTS: list = []  # the paths (or traces) to measure, likewise
 
 
-def _measure_in_worker(path: Path):
-    measurement, error = _measure_safely(_WORKER_MEASURE, path)
+def _measure_in_worker(index: int):
+    measurement, error = _measure_safely(_WORKER_MEASURE, _WORKER_INPUTS[index])
     if error is None:
         return _picklable(measurement), None
     # an exception's own pickling loses its fields: send them and rebuild it
@@ -260,42 +295,55 @@ def _workers(n_files: int, parallel: bool) -> int:
     return max(1, min(cores, n_files // 4))
 
 
-def _measure_all(measure: Measurer, paths: list[Path], parallel: bool) -> list[tuple]:
+def _measure_all(measure: Measurer, paths: list[Path], parallel: bool, progress: Progress | None = None,
+                 ) -> list[tuple]:
     """Measure ``paths`` in order: the first here (it may become the reference), the rest in
-    worker processes when there are cores; results in the order of ``paths``."""
+    worker processes when there are cores; results in the order of ``paths``.  ``progress``
+    is told ``("spectra", done, total)`` after each file."""
     if not paths:
         return []
+    tick = progress or (lambda stage, done, total: None)
     results = [_measure_safely(measure, paths[0])]
+    tick("spectra", 1, len(paths))
     workers = _workers(len(paths) - 1, parallel)
     if workers <= 1:
-        return results + [_measure_safely(measure, path) for path in paths[1:]]
-    global _WORKER_MEASURE
-    _WORKER_MEASURE = measure
+        for path in paths[1:]:
+            results.append(_measure_safely(measure, path))
+            tick("spectra", len(results), len(paths))
+        return results
+    global _WORKER_MEASURE, _WORKER_INPUTS
+    _WORKER_MEASURE, _WORKER_INPUTS = measure, list(paths)
     try:
         # fork: the workers inherit the measurer (its config and reference spectrum), so
         # only paths go out and measurements come back
         with ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("fork")) as pool:
             chunk = max(1, (len(paths) - 1) // (4 * workers))
-            for measurement, error in pool.map(_measure_in_worker, paths[1:], chunksize=chunk):
+            for measurement, error in pool.map(_measure_in_worker, range(1, len(paths)), chunksize=chunk):
                 if error is not None:
                     path, problem, line, hint = error
                     error = InputFileError(path, problem, line=line, hint=hint)
                 else:
                     measurement = _unpickled(*measurement)
                 results.append((measurement, error))
+                tick("spectra", len(results), len(paths))
     finally:
-        _WORKER_MEASURE = None
+        _WORKER_MEASURE, _WORKER_INPUTS = None, []
     return results
 
 
 def process_ready(ready: list[ReadyFile], ledger: Ledger, measure: Measurer,
                   known: dict[str, tuple[int, int, str]] | None = None, *,
-                  taken: list | None = None, parallel: bool = False,
+                  taken: list | None = None, parallel: bool = False, progress: Progress | None = None,
                   ) -> tuple[list[FileRow], list[ReadyFile], list[ReadyFile]]:
     """Take a group of complete files into the ledger, in acquisition order.
 
     Acquisition order is the header's acquisition time when the file has one (the file
-    is parsed here anyway), else the modification time, then the name.
+    is parsed here anyway), else the modification time, then the name
+    (:func:`kinetics.run.files.attribution_key`).  Every file handed over is hashed: its
+    content, not its stat, says whether it is new.  A copy of content already counted
+    under another name is measured too, and counts instead when the rule puts it first
+    (the other row becomes its duplicate and is returned among ``rows``), so a live run
+    ends with a batch run's attribution whatever the arrival order.
 
     Parameters
     ----------
@@ -305,12 +353,16 @@ def process_ready(ready: list[ReadyFile], ledger: Ledger, measure: Measurer,
     ledger : Ledger
     measure : Measurer
     known : dict, optional
-        :meth:`Ledger.latest_stat`, to skip files already taken without hashing them.
+        :meth:`Ledger.latest_stat`, kept up to date; a trace of an arrayed file whose
+        digest it already holds is skipped (a plain file is always hashed: a rewrite
+        with the same size and modification time is a new version).
     taken : list, optional
         Receives ``(FileRow, FileMeasurement or None)`` of every new row, in ingest order
         (the engine's in-memory state is extended from it).
     parallel : bool
         Measure in worker processes when there are cores (batch runs).
+    progress : callable (stage, done, total), optional
+        Told ``("spectra", done, total)`` as the new files are measured (see :data:`Progress`).
 
     Returns
     -------
@@ -325,11 +377,13 @@ def process_ready(ready: list[ReadyFile], ledger: Ledger, measure: Measurer,
     candidates, handled, changed = [], [], []
     for item in ready:
         previous = known.get(item.relpath)
-        if previous is not None and previous[:2] == (item.size_bytes, item.mtime_ns):
+        digest = getattr(item, "digest", None)  # a trace of an arrayed file comes with its digest
+        if previous is not None and digest is not None and previous[:2] == (item.size_bytes, item.mtime_ns) \
+                and previous[2] == digest:
             handled.append(item)
             continue
         try:
-            sha = sha256_of_file(item.path)
+            sha = digest or sha256_of_file(item.path)
         except FileNotFoundError:
             continue  # deleted after it was complete: nothing to take
         except OSError as error:  # no read permission, a disk error: never stop the run
@@ -340,18 +394,20 @@ def process_ready(ready: list[ReadyFile], ledger: Ledger, measure: Measurer,
             handled.append(item)
             continue
         candidates.append((_Candidate(item, sha), action))
-    new = [candidate for candidate, action in candidates if action == "new"]
-    for candidate, (measurement, error) in zip(new, _measure_all(measure, [c.ready.path for c in new], parallel)):
+    # a duplicate copy is measured too: its acquisition time decides which copy counts
+    new = [candidate for candidate, action in candidates if action in ("new", "duplicate")]
+    for candidate, (measurement, error) in zip(new, _measure_all(measure, [_input(c.ready) for c in new], parallel,
+                                                                        progress)):
         candidate.measurement, candidate.error = measurement, error
     ordered = []
     for candidate, _ in candidates:
         item = candidate.ready
-        if _stat_key(item.path) != (item.size_bytes, item.mtime_ns):
+        # a trace's bytes were read once and are identified by its digest: the file may grow
+        if getattr(item, "digest", None) is None and not same_file_state(item, _stat_or_none(item.path)):
             changed.append(item)
             continue
         acquired = candidate.measurement.acquired_utc if candidate.measurement else None
-        seconds = acquired.timestamp() if acquired is not None else item.mtime_ns / 1e9
-        candidate.sort_key = (seconds,) + acquisition_sort_key(item)[1:]
+        candidate.sort_key = attribution_key(acquired, item.mtime_ns, item.relpath)
         ordered.append(candidate)
     ordered.sort(key=lambda c: c.sort_key)
     rows = []
@@ -363,19 +419,32 @@ def process_ready(ready: list[ReadyFile], ledger: Ledger, measure: Measurer,
                 raise candidate.error
             measurement = candidate.measurement
             if measurement is None:  # a duplicate whose twin has just gone
-                measurement, error = _measure_safely(measure, candidate.ready.path)
+                measurement, error = _measure_safely(measure, _input(candidate.ready))
                 if error is not None:
                     raise error
             used.append(measurement)
             return measurement
 
+        def outranks(twin, key=candidate.sort_key) -> bool:  # the one attribution rule
+            return key < ledger_attribution_key(twin.acquired_utc, twin.mtime_ns, twin.path)
+
+        demoted: list[FileRow] = []
         row = ledger.ingest(candidate.ready.relpath, candidate.sha256, candidate.ready.size_bytes,
-                            candidate.ready.mtime_ns, measured, candidate.ready.first_seen_utc)
+                            candidate.ready.mtime_ns, measured, candidate.ready.first_seen_utc,
+                            source=getattr(candidate.ready, "source", None),
+                            block=getattr(candidate.ready, "block", None),
+                            outranks=outranks, demoted=demoted)
         handled.append(candidate.ready)
         if row is not None:
             rows.append(row)
             if taken is not None:
                 taken.append((row, used[-1] if used and row.status == "processed" else None))
+            for lost in demoted:  # a copy counted before, now this one's duplicate
+                log.info("%s counts instead of its copy %s (earlier by acquisition, then name)",
+                         row.path, lost.path)
+                rows.append(lost)
+                if taken is not None:
+                    taken.append((lost, None))
             known[candidate.ready.relpath] = (candidate.ready.size_bytes,
                                               candidate.ready.mtime_ns, candidate.sha256)
     return rows, handled, changed
@@ -426,13 +495,18 @@ class RunState:
     def close(self) -> None:
         self.ledger.close()
 
-    def take(self, ready: list[ReadyFile], parallel: bool = False):
-        """One group of complete files into the ledger and the in-memory state."""
+    def take(self, ready: list[ReadyFile], parallel: bool = False, progress: Progress | None = None):
+        """One group of complete files into the ledger and the in-memory state (an arrayed
+        file's complete blocks, each once: :mod:`kinetics.run.sources`)."""
         taken: list = []
-        result = process_ready(ready, self.ledger, self.plan.measure, self.known, taken=taken,
-                               parallel=parallel)
+        series_source = self.plan.series
+        items = ready if series_source is None else series_source.items(ready)
+        rows, handled, changed = process_ready(items, self.ledger, self.plan.measure, self.known, taken=taken,
+                                               parallel=parallel, progress=progress)
         self.source.take(taken)
-        return result
+        if series_source is not None:
+            handled, changed = series_source.files_of(ready, handled, changed)
+        return rows, handled, changed
 
     def refit(self, from_scratch: bool = False) -> FitOutcome | None:
         """The table (extended, or from scratch) and its fit (warm start unless from scratch)."""
@@ -478,13 +552,18 @@ class RunState:
             reference = measure.reference
             reference_path = measure.reference_path or (self.ledger.first_record() or {}).get("reference")
             if reference is None and reference_path is not None:  # a restart that measured nothing new
-
-                reference = series.make_reference(self.source.folder / reference_path, self.plan.config)
+                if hasattr(measure, "reference_of"):  # a trace of an arrayed file
+                    reference = measure.reference_of(reference_path)
+                else:
+                    reference = series.make_reference(self.source.folder / reference_path, self.plan.config)
+            measured = self.source.measurements()
+            if self.plan.series is not None:  # a restart: the traces' spectra come from the file
+                measured = self.plan.series.restore_spectra(measured, reference)
             many = self.parallel_assessment and len(self.source) >= PARALLEL_MIN_FILES
             workers = worker_count() if many else 1
             with small_linear_algebra():
                 k, doc, warnings, text = assess_outcome(
-                    self.plan.config, self.plan.refit, self.source.measurements(), reference, self.table,
+                    self.plan.config, self.plan.refit, measured, reference, self.table,
                     outcome, workers=workers,
                     fits=self.source.final_fits())
         except (KineticsError, ValueError, ArithmeticError) as error:
@@ -533,24 +612,27 @@ class RunSummary:
     table: pd.DataFrame | None = field(default=None, compare=False, repr=False)
 
 
-def ready_files(spec: WatchSpec) -> list[ReadyFile]:
-    """Every wanted file of a finished folder, in acquisition order (the engine's rule)."""
+def ready_files(spec: WatchSpec, noted: set[str] | None = None) -> list[ReadyFile]:
+    """Every wanted file of a finished folder, in acquisition order (the engine's rule).
+
+    ``noted``: symbolic links already warned about (each link not followed is named once)."""
     now = utc_now_iso()
-    ready = [ReadyFile(Path(spec.folder) / rel, rel, st.st_size, st.st_mtime_ns, now)
-             for rel, st in list_wanted(spec)]
+    ready = [ReadyFile.from_stat(Path(spec.folder) / rel, rel, st, now) for rel, st in list_wanted(spec, noted)]
     ready.sort(key=acquisition_sort_key)
     return ready
 
 
-def batch_run(plan: RunPlan | RunConfig | str | Path, out_dir: Path, *, parallel: bool = True,
-              outputs: bool = True, figures: bool = True, processing_uncertainty: bool = True) -> RunSummary:
+def batch_run(plan: RunPlan | RunConfig | str | Path, out_dir: Path | None, *, parallel: bool = True,
+              outputs: bool = True, figures: bool = True, processing_uncertainty: bool = True,
+              progress: Progress | None = None) -> RunSummary:
     """A finished folder through the engine: ledger, table and fit from scratch, outputs.
 
     Parameters
     ----------
     plan : RunPlan, or a run config (path or record; see :func:`plan_from_config`)
-    out_dir : Path
+    out_dir : Path or None
         Gets ``ledger.sqlite``, ``series.csv``, ``fit.json``, ``series.png``, ``index.html``.
+        None: the run is kept in memory (ledger in memory, no file written; the Python API).
     parallel : bool
         Measure files in worker processes where there are cores (results are identical
         and in the same order; the ledger is written by this process alone).
@@ -561,22 +643,30 @@ def batch_run(plan: RunPlan | RunConfig | str | Path, out_dir: Path, *, parallel
     processing_uncertainty : bool
         Assess k's systematic term over neighbouring processing choices
         (:meth:`RunState.final_fit`).
+    progress : callable (stage, done, total), optional
+        Told ``("spectra", done, total)`` as files are measured (see :data:`Progress`).
     """
     if not isinstance(plan, RunPlan):
-        plan = plan_from_config(plan, Path(out_dir) / LEDGER_NAME)
+        plan = plan_from_config(plan, None if out_dir is None else Path(out_dir) / LEDGER_NAME)
     folder = check_folder(plan.spec.folder)
     plan = replace(plan, spec=replace(plan.spec, folder=folder))
-    if not list_wanted(plan.spec):  # a finished folder with nothing to take: a config error
+    noted: set[str] = set()  # links not followed, named once
+    if not list_wanted(plan.spec, noted) and plan.series is not None:
+        raise ConfigError("run.file", f"{plan.series.path} does not exist",
+                          hint="check run.file (relative to the config's folder)")
+    if not list_wanted(plan.spec, noted):  # a finished folder with nothing to take: a config error
         raise ConfigError("run.pattern", f"no file in {folder} matches {' or '.join(plan.spec.include)!r}",
                           hint="check run.folder and run.pattern (e.g. '*.jdx'; live.exclude also applies)")
-    out_dir = prepare_out_dir(out_dir)
-    with RunLock(out_dir):
+    out_dir = None if out_dir is None else prepare_out_dir(out_dir)
+    with RunLock(out_dir) if out_dir is not None else contextlib.nullcontext():
         state = RunState(plan, out_dir)
         try:
-            state.take(ready_files(plan.spec), parallel=parallel)
+            state.take(ready_files(plan.spec, noted), parallel=parallel, progress=progress)
+            if plan.series is not None and plan.series.error is not None:
+                raise plan.series.error  # the run's one file cannot be read: say where and why
             state.parallel_assessment = parallel
             outcome = state.final_fit(processing_uncertainty)
-            if outputs:
+            if outputs and out_dir is not None:
                 state.write_outputs(stop_reason="batch run finished", final=True, figures=figures)
             return RunSummary("batch run finished", state.ledger.counts(), outcome, out_dir, state.table)
         finally:

@@ -21,7 +21,7 @@ import numpy as np
 import pandas as pd
 
 from kinetics import report as rp
-from kinetics.numbers import format_estimate
+from kinetics.numbers import format_estimate, format_interval, format_value, unit_text
 from kinetics.errors import InputFileError, KineticsError
 
 log = logging.getLogger(__name__)
@@ -69,13 +69,16 @@ class RunOutcome:
         if not doc.get("assessed"):
             return doc.get("reason")
         stat, sys_, value = doc["statistical"], doc["systematic"], doc.get("value")
+        unit = doc.get("unit", "")
         lo, hi = stat["ci95"]
-        rel = (lambda x: f" ({100 * x / abs(value):.2g} %)") if value else (lambda x: "")
         if sys_["stderr"] > 0:
-            systematic = f"sd {sys_['stderr']:.2g}{rel(sys_['stderr'])}"
+            relative = f" ({format_value(100 * sys_['stderr'] / abs(value), 2)} %)" if value else ""
+            shown_unit = unit_text(unit)
+            systematic = f"u = {format_value(sys_['stderr'], 2)}{' ' + shown_unit if shown_unit else ''}{relative}"
         else:
-            systematic = "0: the variants' spread is no more than noise alone gives"
-        text = f"statistical 95 %: {lo:.4g} .. {hi:.4g}; systematic (processing choices) {systematic}"
+            systematic = "none beyond noise (the variants spread no more than noise alone gives)"
+        text = (f"statistical 95 % interval {format_interval(lo, hi, unit)}; "
+                f"systematic (processing choices) {systematic}")
         largest = (doc.get("breakdown") or [None])[0]
         if largest and largest.get("stderr") and sys_["stderr"] > 0:
             text += f"; most from {largest['choice'].replace('_', ' ')} of {largest['target']}"
@@ -125,6 +128,15 @@ def _processed_spectra(config, files: list[Path]) -> list:
     pipeline = config.pipeline
     picks = np.unique(np.linspace(0, len(files) - 1, min(STACKED_TRACES, len(files))).round().astype(int))
     out = []
+    if getattr(config, "file", None) is not None:  # traces of one arrayed file, read once
+        from kinetics.run.sources import trace_records
+
+        try:
+            records = trace_records(config, [Path(files[i]).name for i in picks])
+        except (InputFileError, OSError) as error:
+            log.warning("stacked plot skipped: %s", error)
+            return []
+        return [(int(i), pipeline(record).spectrum) for i, record in zip(picks, records)]
     for index in picks:
         try:
             out.append((int(index), pipeline(read(files[index])).spectrum))
@@ -133,7 +145,77 @@ def _processed_spectra(config, files: list[Path]) -> list:
     return out
 
 
-def run_sections(run: RunOutcome, config, with_spectra: bool, comparison: bool) -> list:
+def species_courses(table: pd.DataFrame, fit, config) -> dict:
+    """The run's other measured courses on the fit's time points, for the courses figure.
+
+    Every tracked species the fit did not take (products, a co-product), the standard when
+    its concentration was measured (not when it defines the scale: then it is constant) and
+    the mass balance; each as ``(values, sigma)``.  Rows are matched to the fit by time.
+    """
+    if fit is None or table is None or not len(table) or "time_s" not in table:
+        return {}
+    fit_t = np.asarray(fit.time_s, float)
+    table_t = table["time_s"].to_numpy(float)
+    rows = []
+    for t in fit_t:
+        hit = np.flatnonzero(np.isclose(table_t, t, rtol=0, atol=1e-6 * max(1.0, abs(t))))
+        if not hit.size:
+            return {}
+        rows.append(int(hit[0]))
+    fitted = {str(c).removesuffix("_concentration") for c in fit.columns} | set(getattr(fit, "species", ()) or ())
+    out = {}
+
+    def column(name):
+        return table[name].to_numpy(float)[rows] if name in table else None
+
+    for name in getattr(config, "species", ()):
+        values = column(f"{name}_concentration")
+        if name in fitted or values is None or not np.isfinite(values).any():
+            continue
+        if np.nanmax(values) - np.nanmin(values) <= 1e-12 * max(1.0, abs(np.nanmax(values))):
+            continue  # the standard that defines the scale: constant, nothing measured
+        out[name] = (values, column(f"{name}_concentration_sigma"))
+    total = column("mass_balance_total")
+    if total is not None and np.isfinite(total).any():
+        out["mass balance"] = (total, column("mass_balance_deviation_sigma"))
+    return out
+
+
+def processing_section(run: RunOutcome):
+    """The processing uncertainty of k as a table (choice, what it was applied to, u(k))."""
+    doc = run.processing or {}
+    heading = f"Processing uncertainty: {run.label}"
+    text = run.breakdown() or ""
+    rows = doc.get("breakdown") or []
+    if not doc.get("assessed") or not rows:
+        return rp.Section(heading, (rp.TextBlock("k under neighbouring processing choices", (text,)),))
+    unit = doc.get("unit", "")
+    value = doc.get("value")
+    frame = pd.DataFrame([{"choice": r["choice"], "target": r["target"], "k_stderr": r["stderr"],
+                           "relative_percent": 100 * r.get("relative", float("nan"))} for r in rows])
+    display = pd.DataFrame({
+        "processing choice varied": [r["choice"].replace("_", " ") for r in rows],
+        "applied to": [str(r["target"]) for r in rows],
+        f"u(k) / {unit_text(unit)}" if unit else "u(k)": [format_value(r["stderr"], 2) if r["stderr"] else "0"
+                                                         for r in rows],
+        "u(k)/k / %": [format_value(100 * r["stderr"] / abs(value), 2) if value and r["stderr"] else "0"
+                         for r in rows]})
+    caption = (f"k = {format_estimate({'value': value, 'stderr': (doc.get('statistical') or {}).get('stderr'), 'unit': unit})}"
+               f" from the fit; {text}. Each choice was varied to its neighbours (fit baseline order ±1, "
+               "windows ×0.7 and ×1.3, grouping of overlapping signals) and the run re-quantified and refitted; "
+               "u(k) is the root mean square change of k, combined over choices as a root sum of squares.")
+    return rp.Section(heading, (rp.TableBlock("k under neighbouring processing choices", frame,
+                                              name=f"processing_{_slug(run.label)}", caption=caption,
+                                              display=display),))
+
+
+def run_sections(run: RunOutcome, config, with_spectra: bool, comparison: bool, compact: bool = False) -> list:
+    """A run's report sections: stacked spectra, courses of every species with the fit,
+    band and residuals, the rate laws compared, the processing uncertainty.
+
+    ``compact`` (studies) leaves out the fit's plain-text report (its tables say the same)
+    and puts the processing uncertainty in the run's own section.
+    """
     from kinetics.rates.compare import compare_models
 
     sections = []
@@ -146,7 +228,8 @@ def run_sections(run: RunOutcome, config, with_spectra: bool, comparison: bool) 
             times = run.table["time_s"].to_numpy(float)
             sections.append(rp.spectra_section([s for _, s in picked], windows=windows,
                                                time_s=[times[i] for i, _ in picked], total=len(files),
-                                               heading=f"Spectra through time: {run.label}"))
+                                               heading=f"Spectra through time: {run.label}",
+                                               height_in=3.0 if compact else None))
     if run.fit is not None:
         ranking = None
         if comparison and run.fit.data is not None and not config.fit.mechanism:
@@ -155,12 +238,16 @@ def run_sections(run: RunOutcome, config, with_spectra: bool, comparison: bool) 
             except KineticsError as error:  # a comparison that cannot run must not lose the report
                 log.warning("model comparison skipped for %s: %s", run.label, error)
         sections.append(rp.fit_section(run.fit, heading=f"Rate law: {run.label}", comparison=ranking,
-                                       name=f"fit_{_slug(run.label)}"))
+                                       name=f"fit_{_slug(run.label)}",
+                                       species=species_courses(run.table, run.fit, config),
+                                       fit_report=not compact, compact=compact))
     if run.processing:
-        text = run.processing_text or run.breakdown() or ""
-        sections.append(rp.Section(f"Processing uncertainty: {run.label}", (rp.TextBlock(
-            "k under neighbouring processing choices (fit baseline order +-1, windows +-30 %, grouping)",
-            (text,), preformatted=True),)))
+        processing = processing_section(run)
+        if compact and sections:
+            last = sections[-1]
+            sections[-1] = rp.Section(last.heading, last.blocks + processing.blocks, last.intro)
+        else:
+            sections.append(processing)
     return sections
 
 
@@ -226,8 +313,10 @@ def outcome_of(label: str, config_path: Path, out_dir: Path, summary, temperatur
                       warnings=tuple(outcome.warnings), processing_text=outcome.report_text)
 
 
-def run_single(config_path: str | Path, out_dir: str | Path, report: bool = True) -> JobOutcome:
-    """A run config over its finished folder: ledger, series, fit (batch = live path), report."""
+def run_single(config_path: str | Path, out_dir: str | Path, report: bool = True, progress=None) -> JobOutcome:
+    """A run config over its finished folder: ledger, series, fit (batch = live path), report.
+
+    ``progress`` (stage, done, total) is passed to :func:`kinetics.run.engine.batch_run`."""
     from kinetics.config import load_run_config
     from kinetics.run.engine import batch_run, plan_from_config
     from kinetics.run.files import check_folder
@@ -236,18 +325,22 @@ def run_single(config_path: str | Path, out_dir: str | Path, report: bool = True
     out_dir = Path(out_dir)
     config = load_run_config(config_path)
     check_folder(config.folder)  # a missing folder is named before anything else
-    summary = batch_run(plan_from_config(config, out_dir / "ledger.sqlite"), out_dir)
+    summary = batch_run(plan_from_config(config, out_dir / "ledger.sqlite"), out_dir, progress=progress)
     run = outcome_of(config_path.stem, config_path, out_dir, summary, config=config)
     html = pdf = None
     if report:
-        files = rp.write_report(
-            out_dir / "report", *run_sections(run, config, with_spectra=True, comparison=True),
-            title=f"Reaction kinetics: {config_path.stem}",
-            provenance=rp.Provenance(config_text=config_path.read_text(encoding="utf-8"),
-                                     input_files=inputs_of([run])),
-            summary=summary_of([run]), warnings=run_warnings([run]))
+        files = write_run_report(run, config, out_dir / "report", config_path.read_text(encoding="utf-8"))
         html, pdf = files.html, files.pdf
     return JobOutcome("run", out_dir, html, pdf, runs=(run,))
+
+
+def write_run_report(run: RunOutcome, config, folder: str | Path, config_text: str):
+    """The report of one run (``kinetics run`` and :meth:`kinetics.api.Run.report`)."""
+    return rp.write_report(
+        Path(folder), *run_sections(run, config, with_spectra=True, comparison=True),
+        title=f"Reaction kinetics: {run.label}",
+        provenance=rp.Provenance(config_text=config_text, input_files=inputs_of([run])),
+        summary=summary_of([run]), warnings=run_warnings([run]))
 
 
 def run_warnings(runs: list[RunOutcome]) -> list[str]:
@@ -260,21 +353,94 @@ def run_warnings(runs: list[RunOutcome]) -> list[str]:
 
 
 # ---------------------------------------------------------------- study
-def run_study_config(config_path: str | Path, out_dir: str | Path, report: bool = True) -> JobOutcome:
-    """A temperature-study config: per-run fits, Arrhenius, Eyring, global fit, report."""
+def run_study_config(config_path: str | Path, out_dir: str | Path, report: bool = True,
+                     progress=None) -> JobOutcome:
+    """A temperature-study config: per-run fits, Arrhenius, Eyring, global fit, report.
+
+    ``progress`` (stage, done, total) is passed to :func:`kinetics.study.run_study`."""
     from kinetics.study import run_study
 
     config_path = Path(config_path)
     out_dir = Path(out_dir)
-    study = run_study(config_path, out_dir)
+    study = run_study(config_path, out_dir, progress=progress)
+    runs = study_run_outcomes(study)
     html = pdf = None
     if report:
-        files = rp.write_report(
-            out_dir / "report", *study_sections(study), title=f"Temperature study: {study.name}",
-            provenance=rp.Provenance(config_text=config_path.read_text(encoding="utf-8")),
-            summary=summary_of([], study))
+        files = write_study_report(study, runs, out_dir / "report", _study_config_text(config_path, runs))
         html, pdf = files.html, files.pdf
-    return JobOutcome("study", out_dir, html, pdf, study=study)
+    return JobOutcome("study", out_dir, html, pdf, runs=tuple(runs), study=study)
+
+
+def _study_config_text(config_path: Path, runs: list[RunOutcome]) -> str:
+    """The study config as written, followed by each run config it names (once each)."""
+    text = config_path.read_text(encoding="utf-8")
+    for path in dict.fromkeys(Path(run.config_path) for run in runs):
+        if path.is_file() and path.resolve() != config_path.resolve():
+            text += f"\n\n# ---- run config {path.name} (applied to each run's folder) ----\n"
+            text += path.read_text(encoding="utf-8")
+    return text
+
+
+def study_run_outcomes(study) -> list[RunOutcome]:
+    """The study's runs that went through the run engine, as RunOutcomes."""
+    return [outcome_of(e.label, e.config_path, e.out_dir, e.summary, e.temperature_kelvin - 273.15, e.config)
+            for e in study.engine_runs]
+
+
+def write_study_report(study, runs: list[RunOutcome], folder: str | Path, config_text: str):
+    """The report of a study (``kinetics run`` and :meth:`kinetics.api.Study.report`)."""
+    return rp.write_report(
+        Path(folder), *study_report_sections(study, runs), title=f"Temperature study: {study.name}",
+        provenance=rp.Provenance(config_text=config_text, input_files=inputs_of(runs)),
+        summary=summary_of(runs, study), warnings=list(study.warnings) + run_warnings(runs))
+
+
+def study_report_sections(study, runs: list[RunOutcome]) -> list:
+    """The study report: Arrhenius and Eyring (two-step and global lines), the global fit,
+    then every run: stacked spectra, courses of every species with fit, band and residuals,
+    the rate laws compared and the processing uncertainty.
+
+    ``runs`` are the runs that went through the engine (with spectra); runs given as series
+    tables get their courses, fit and comparison from the table alone.
+    """
+    sections = study_sections(study)
+    by_label = {run.label: run for run in runs}
+    for kinetic in study.runs:
+        run = by_label.get(kinetic.label)
+        if run is not None and run.config is not None:
+            sections += run_sections(run, run.config, with_spectra=True, comparison=True, compact=True)
+        else:
+            sections += _table_run_sections(kinetic, study)
+    return sections
+
+
+def _table_run_sections(kinetic, study) -> list:
+    """A study run given as a series table: its fit (the study's rate law) and the comparison."""
+    from kinetics.rates.compare import compare_models
+    from kinetics.rates.fit import fit_arrays
+
+    try:
+        config = _study_options(study)
+        fit = fit_arrays(kinetic.time_s, kinetic.concentration_mol_per_l, config["model"],
+                         observed=config["observed"], sigma=kinetic.sigma_mol_per_l)
+    except (KineticsError, ValueError) as error:
+        log.warning("run %s: no courses figure (%s)", kinetic.label, error)
+        return []
+    try:
+        ranking = compare_models(fit.data, observed=config["observed"])
+    except KineticsError as error:
+        log.warning("model comparison skipped for %s: %s", kinetic.label, error)
+        ranking = None
+    return [rp.fit_section(fit, heading=f"Rate law: {kinetic.label}", comparison=ranking,
+                           name=f"fit_{_slug(kinetic.label)}", fit_report=False, compact=True)]
+
+
+def _study_options(study) -> dict:
+    """The study's rate law and observed species (from its config file)."""
+    from kinetics.config import load_study_config
+
+    config = load_study_config(study.config_path)
+    return {"model": config.model, "observed": config.observed}
 
 
 def is_study_file(config_path: str | Path) -> bool:
@@ -293,9 +459,18 @@ def is_campaign_file(config_path: str | Path) -> bool:
 
 
 def run_campaign_config(config_path: str | Path, out_dir: str | Path, *, scheduler: str | None = None,
-                        workers: int | None = None):
+                        workers: int | None = None, report: bool = True):
     """A campaign config (:func:`kinetics.campaign.runner.run_campaign`): the runs as tasks, then
-    the global fit, VTNA, the same-excess check and initial rates; returns a CampaignOutcome."""
+    the global fit, VTNA, the same-excess check and initial rates, then (``report``) the report
+    in ``<out>/report/`` (:func:`kinetics.campaign.figures.write_campaign_report`); returns a
+    CampaignOutcome whose ``files`` include report.html and report.pdf."""
+    from dataclasses import replace
+
+    from kinetics.campaign.figures import write_campaign_report
     from kinetics.campaign.runner import run_campaign
 
-    return run_campaign(config_path, out_dir, scheduler=scheduler, workers=workers)
+    outcome = run_campaign(config_path, out_dir, scheduler=scheduler, workers=workers)
+    if report and len(outcome.runs):
+        files = write_campaign_report(outcome)
+        outcome = replace(outcome, files=tuple(outcome.files) + (files.html, files.pdf))
+    return outcome

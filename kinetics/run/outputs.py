@@ -2,9 +2,10 @@
 
 * ``fit.json`` (the fit as JSON, with the counts, the quarantined files and, at the end,
   the stop reason) — rewritten after every turn;
-* ``series.csv`` (the table), ``series.png`` (:func:`render_png`) and ``index.html``
-  (:func:`render_html`: the status lines and the figure inline, self-refreshing while
-  the run is live) — rewritten at most once per refresh interval, and at the end;
+* ``series.csv`` (the table), ``series.png`` (:func:`render_png`), the live page's data
+  ``live.json`` and ``live-data.js`` and ``index.html`` (:func:`render_html`, the page of
+  :mod:`kinetics.livepage`: interactive plots that follow the run without reloading) —
+  rewritten at most once per refresh interval, and at the end;
 * ``ledger.sqlite`` (:mod:`kinetics.store`); :class:`RunLock` keeps a second writer out.
 
 Every file is written atomically (:func:`kinetics.atomic.write_atomic`), so a reader or a
@@ -13,9 +14,7 @@ crash never sees half a file.
 
 from __future__ import annotations
 
-import base64
 import fcntl
-import html
 import os
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -24,10 +23,13 @@ import pandas as pd
 
 from kinetics.atomic import write_atomic
 from kinetics.jsonio import dumps
+from kinetics.numbers import (duration_unit, format_duration, format_estimate, format_interval, format_uncertain,
+                             format_value, unit_text)
 from kinetics.store import OutputError, output_error, utc_now_iso
 
 LEDGER_NAME = "ledger.sqlite"
-OUTPUT_NAMES = ("series.csv", "fit.json", "series.png", "index.html")
+#: every file a run writes besides the ledger (the page server serves exactly these)
+OUTPUT_NAMES = ("series.csv", "fit.json", "series.png", "index.html", "live.json", "live-data.js")
 
 
 # ---------------------------------------------------------------- the output folder
@@ -107,20 +109,33 @@ class LiveStatus:
     stop_reason: str | None = None
 
 
-def _fmt(value: float | None, digits: int = 4) -> str:
-    return "–" if value is None else f"{value:.{digits}g}"
-
-
-def format_parameter(parameter: dict | None, digits: int = 4) -> str:
-    """``value [lo, hi] unit`` of a parameter dict, or a dash."""
+def format_parameter(parameter: dict | None, digits: int | None = None) -> str:
+    """A parameter dict (``value``, ``stderr``, ``ci95``, ``unit``) as a chemist writes it:
+    value and uncertainty rounded together, then the 95 % interval (or a dash)."""
     if not parameter or parameter.get("value") is None:
         return "–"
-    text = _fmt(parameter["value"], digits)
+    if parameter.get("stderr") is not None:
+        return format_estimate(parameter)
     interval = parameter.get("ci95")
+    text = f"{format_value(parameter['value'])}"
+    unit = unit_text(parameter.get("unit") or "")
     if interval and interval[0] is not None and interval[1] is not None:
-        text += f"  (95 %: {_fmt(interval[0], digits)} – {_fmt(interval[1], digits)})"
-    unit = parameter.get("unit")
+        return f"{text}{' ' + unit if unit else ''} (95 %: {format_interval(interval[0], interval[1], parameter.get('unit') or '')})"
     return f"{text} {unit}" if unit else text
+
+
+def format_duration_parameter(parameter: dict | None) -> str:
+    """A duration in seconds (``value``, ``ci95``) in the unit a person would use, its
+    interval in the same unit."""
+    if not parameter or parameter.get("value") is None:
+        return "–"
+    value = float(parameter["value"])
+    unit, scale = duration_unit(value)
+    interval = parameter.get("ci95")
+    text = format_duration(value, parameter.get("stderr"), significant=3)
+    if interval and interval[0] is not None and interval[1] is not None:
+        text += f" (95 %: {format_interval(interval[0] / scale, interval[1] / scale, unit)})"
+    return text
 
 
 def status_lines(status: LiveStatus) -> list[tuple[str, str]]:
@@ -132,18 +147,15 @@ def status_lines(status: LiveStatus) -> list[tuple[str, str]]:
         ("acquired", status.latest_acquired_utc or "–"),
     ]
     if status.latest_time_s is not None:
-        lines.append(("time from start", f"{status.latest_time_s:.1f} s"))
+        lines.append(("time from start", format_duration(status.latest_time_s, significant=3)))
     for name, (value, stderr) in status.concentrations.items():
-        text = _fmt(value)
-        if stderr is not None:
-            text += f" ± {_fmt(stderr, 2)}"
-        lines.append((name, f"{text} {status.concentration_unit}"))
+        lines.append((name, format_uncertain(value, stderr, status.concentration_unit)))
     lines.append((status.k_name, format_parameter(status.k)))
     if status.conversion is not None:
-        lines.append(("conversion", format_parameter(status.conversion, 3)))
+        lines.append(("conversion", format_parameter(status.conversion)))
     if status.target_conversion is not None:
         lines.append((f"time to {status.target_conversion:.0%}",
-                      format_parameter(status.time_to_target_s)))
+                      format_duration_parameter(status.time_to_target_s)))
     if status.fit_message:
         lines.append(("fit", status.fit_message))
     lines.append(("files", f"{counts.get('processed', 0)} processed, "
@@ -178,28 +190,20 @@ def render_png(table: pd.DataFrame, signals: list[str], curve: dict | None = Non
 
 
 # ---------------------------------------------------------------- page
-def render_html(status: LiveStatus, png: bytes | None, refresh_s: float | None) -> str:
-    """The run page: a table of the status lines and the plot inline.
+def render_html(status: LiveStatus, png: bytes | None, refresh_s: float | None,
+                document: dict | None = None) -> str:
+    """The run page (:mod:`kinetics.livepage`): interactive plots that follow the run in
+    place, the status lines as text, and for a browser without scripts the PNG inline
+    and a refresh every ``refresh_s`` (None, the final page: no refresh).
 
-    ``refresh_s`` None (the final page) leaves out the meta refresh.
+    ``document`` is the page's data (:func:`kinetics.livepage.live_document`); without
+    it the page shows the status alone.
     """
-    refresh = "" if refresh_s is None else (
-        f'<meta http-equiv="refresh" content="{max(1, int(round(refresh_s)))}">')
-    rows = "\n".join(
-        f"<tr><th>{html.escape(label)}</th><td>{html.escape(text)}</td></tr>"
-        for label, text in status_lines(status))
-    image = ""
-    if png:
-        encoded = base64.b64encode(png).decode("ascii")
-        image = f'<img alt="concentrations against time" src="data:image/png;base64,{encoded}">'
-    state = "run ended" if status.stop_reason else "live"
-    return (
-        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
-        f"{refresh}<title>kinetics — {state}</title>"
-        "<style>body{font-family:sans-serif;margin:1.5em}th{text-align:left;padding-right:1em;"
-        "font-weight:normal;color:#555}td{font-family:monospace}</style></head><body>"
-        f"<h1>kinetics — {state}</h1>{image}<table>{rows}</table></body></html>\n"
-    )
+    from kinetics import livepage
+
+    if document is None:
+        document = livepage.status_document(status, final=refresh_s is None, refresh_s=refresh_s)
+    return livepage.render_page(status, png, refresh_s, document)
 
 
 def _float(value) -> float | None:
@@ -268,9 +272,16 @@ def figure_png(state, table: pd.DataFrame) -> bytes:
 
 
 def write_page(state, status: LiveStatus, png: bytes, final: bool) -> None:
-    """``series.png`` and ``index.html`` of a run state, atomically."""
+    """``series.png``, the live page's data (``live.json``, ``live-data.js``) and
+    ``index.html`` of a run state, each atomically; the data before the page."""
+    from kinetics import livepage
+
     write_atomic(state.out_dir / "series.png", png)
-    write_atomic(state.out_dir / "index.html", render_html(status, png, None if final else state.refresh_s))
+    document = livepage.live_document(state, status, final)
+    write_atomic(state.out_dir / livepage.DATA_JSON, livepage.document_json(document))
+    write_atomic(state.out_dir / livepage.DATA_SCRIPT, livepage.document_script(document))
+    write_atomic(state.out_dir / "index.html",
+                 render_html(status, png, None if final else state.refresh_s, document))
 
 
 __all__ = ["LEDGER_NAME", "LiveStatus", "OUTPUT_NAMES", "RunLock", "format_parameter", "prepare_out_dir",

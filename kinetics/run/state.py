@@ -28,6 +28,7 @@ import pandas as pd
 from kinetics import series
 from kinetics.config import RunConfig
 from kinetics.errors import ConfigError, InputFileError, KineticsError
+from kinetics.run.preflight import check_first_spectrum
 from kinetics.store import FileMeasurement, FileRow, Ledger, SignalRow
 
 log = logging.getLogger(__name__)
@@ -108,7 +109,12 @@ class SeriesMeasurer:
         first = self.reference is None
         try:
             if self.reference is None and self.reference_path is None:
-                self.reference, measurement = series.measure_first(path, self.config)
+                # the run's first spectrum: read and processed once, the config checked
+                # against it (kinetics.run.preflight), then it becomes the reference
+                record, processed = series._read_processed(path, self.config)
+                check_first_spectrum(self.config, processed.spectrum, processed.reference_shift_ppm)
+                self.reference = series.reference_from_spectrum(processed.spectrum, path, self.config)
+                measurement = series.measure_record(path, record, processed, self.config, self.reference)
                 self.reference_path = path.relative_to(folder).as_posix()
             else:
                 if self.reference is None:

@@ -55,6 +55,10 @@ _ROLE_NAMES = {
     "imag": "imag", "imaginary": "imag", "im": "imag", "dispersion": "imag",
 }
 _HINT = "each data row needs ppm, real and optionally imag as numbers"
+#: What a user should do with a table holding one intensity column per time point.
+MATRIX_HINT = ('a table with one intensity column per time point is an arrayed series (matrix table, header '
+               'row "ppm, t1, t2, ..."): name it in the run config as [run] file = "<this file>" '
+               '(kinetics.spectra.arrayed.read_traces reads it)')
 
 
 _DECIMAL_COMMA = re.compile(r"[+-]?\d*,\d+(?:[eE][+-]?\d+)?")
@@ -199,10 +203,12 @@ def parse_delimited(loaded: LoadedText) -> Spectrum:
                     roles = _column_roles(path, fields, number)
                     separator = None  # taken again from the first data row
                     continue
-                raise InputFileError(path, f"not a spectrum table: {line[:40]!r}", line=number, hint=_HINT)
+                matrix = len(fields) >= 2 and all(_is_number(item) for item in fields[1:])
+                raise InputFileError(path, f"not a spectrum table: {line[:40]!r}", line=number,
+                                     hint=MATRIX_HINT if matrix else _HINT)
             if len(fields) not in (2, 3):
                 raise InputFileError(path, f"data rows need 2 or 3 columns, this one has {len(fields)}",
-                                     line=number, hint=_HINT)
+                                     line=number, hint=MATRIX_HINT if len(fields) > 3 else _HINT)
             roles = ["ppm", "real", "imag"][: len(fields)]
         if separator is None and not lines:
             separator, decimal_comma = _separator(line)

@@ -21,7 +21,8 @@ version 6.0 for NMR pages: Woollam et al.).  Supported here:
 * ``##LONG DATE`` (or the old ``##DATE``/``##TIME`` pair) -> ``acquired_utc``;
   ``##.AVERAGES`` / ``##NUMBER OF SCANS`` -> ``n_scans``;
 * compound files (a ``##DATA TYPE= LINK`` block around others): the one spectrum (or
-  FID) among them is read; two spectra or two FIDs are refused as ambiguous, and a
+  FID) among them is read; two spectra or two FIDs are refused as ambiguous (a series in
+  one file is read by :mod:`kinetics.spectra.arrayed`, which the message names), and a
   file holding only a ``##PEAK TABLE=`` is told so.
 
 No standard label states a digital-filter group delay or an acquisition duration; this
@@ -69,6 +70,11 @@ DURATION_LABEL = "$KINETICS ACQUISITION DURATION S"
 GROUP_DELAY_LABEL = "$KINETICS GROUP DELAY POINTS"
 
 _FIX_HINT = "re-export the file from the instrument software, or repair the line shown"
+
+#: What a user should do with a file holding a whole series (one spectrum per time point).
+ARRAYED_HINT = ('a file holding one spectrum per time point is an arrayed series: name it in the run '
+                'config as [run] file = "<this file>" (kinetics.spectra.arrayed.read_traces reads it), '
+                'or export one spectrum per file')
 
 
 # ============================================================ label records
@@ -558,8 +564,8 @@ def _ntuples(path: str, block: _Block, budget: int) -> tuple[_Axis, np.ndarray |
             raise InputFileError(path, f"data table uses symbol {symbol} that ##SYMBOL= does not declare",
                                  line=record.line, hint=_FIX_HINT)
         if symbol in pages:
-            raise InputFileError(path, f"more than one {symbol} page (multi-dimensional NTUPLES are not supported)",
-                                 line=record.line, hint="export one 1D spectrum per file")
+            raise InputFileError(path, f"more than one {symbol} page (a series of pages is an arrayed file)",
+                                 line=record.line, hint=ARRAYED_HINT)
         index = symbols.index(symbol)
         form = forms[index].upper() if forms[index].upper() in ("AFFN", "ASDF") else None
         declared = _count(path, dims_record, dims[index])
@@ -652,7 +658,7 @@ def _select_block(path: str, blocks: list[_Block]) -> _Block:
         if len(same) > 1:
             raise InputFileError(path, f"the file holds {len(same)} data blocks of one kind (lines "
                                  f"{_lines_listed([b.start_line for b in same])}); which one to read is unclear",
-                                 line=same[1].start_line, hint="export one spectrum (or FID) per file")
+                                 line=same[1].start_line, hint=ARRAYED_HINT)
     if spectra and fids:
         log.info("%s: file holds a spectrum and an FID; reading the spectrum", path)
     return (spectra or fids)[0]
@@ -729,23 +735,42 @@ def parse_jcampdx(loaded: LoadedText) -> Spectrum | Fid:
         blocks = _split_blocks(loaded)
         block = _select_block(path, blocks)
         del blocks  # the other blocks' records are freed now, the chosen one is kept
-    budget = point_budget(len(loaded.text))
-    kind_record = block.first("DATATYPE")
-    kind = _norm(kind_record.value) if kind_record is not None else ""
+    return record_from_block(path, block, point_budget(len(loaded.text)), loaded.sha256)
+
+
+def record_from_block(path: str, block: _Block, budget: int, sha256: str | None) -> Spectrum | Fid:
+    """The Spectrum or Fid of one data block (``##XYDATA``/``##XYPOINTS`` or one-page-per-part
+    ``##NTUPLES``); ``budget`` bounds the points the block may declare, ``sha256`` is stored
+    on the record.  Shared with :mod:`kinetics.spectra.arrayed` (one block per trace)."""
     if block.first("NTUPLES") is not None:
         axis, real, imag, line = _ntuples(path, block, budget)
     else:
         axis, real, imag, line = _xydata(path, block, budget)
+    return build_record(path, block, axis, real, imag, line, sha256)
+
+
+def build_record(path: str, block: _Block, axis: _Axis, real: np.ndarray, imag: np.ndarray | None,
+                 line: int, sha256: str | None, page: _Block | None = None,
+                 header: dict[str, str] | None = None) -> Spectrum | Fid:
+    """A Spectrum or Fid from decoded ordinates and the header labels of ``block``.
+
+    ``page`` (labels written after an arrayed file's ``##PAGE=``) is read instead of the
+    block for ``##LONG DATE``, ``##.AVERAGES`` and acquisition duration of that page's
+    trace; ``header``, when given, is the record's header (else the block's labels).
+    """
+    kind_record = block.first("DATATYPE")
+    kind = _norm(kind_record.value) if kind_record is not None else ""
     is_fid = kind in _FID_TYPES or (not kind and axis.units in ("SECONDS", "SECOND", "S", "SEC"))
     observe_mhz = _observe_mhz(path, block)
+    timed = block if page is None else page
     common = dict(
         nucleus=_nucleus(path, block),
-        acquired_utc=_acquired(path, block),
-        duration_s=_optional_number(path, block, _norm(DURATION_LABEL)),
-        n_scans=_n_scans(path, block),
+        acquired_utc=_acquired(path, timed),
+        duration_s=_optional_number(path, timed, _norm(DURATION_LABEL)),
+        n_scans=_n_scans(path, timed),
         source_path=path,
-        sha256=loaded.sha256,
-        header=_header_mapping(block),
+        sha256=sha256,
+        header=_header_mapping(block) if header is None else header,
         decoupler=_decoupler(block),
     )
     try:
@@ -987,4 +1012,5 @@ def write_fid(path: str | Path, fid: Fid, compression: str = "dif") -> Path:
     return Path(path)
 
 
-__all__ = ["read_jcampdx", "parse_jcampdx", "write_spectrum", "write_fid", "spectrum_text", "fid_text"]
+__all__ = ["read_jcampdx", "parse_jcampdx", "record_from_block", "build_record", "ARRAYED_HINT",
+           "write_spectrum", "write_fid", "spectrum_text", "fid_text"]

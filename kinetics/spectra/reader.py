@@ -5,6 +5,10 @@
 decided by content, never by extension: a text file whose first non-blank line starts
 with ``##`` is JCAMP-DX, any other text is delimited text (CSV, TSV, whitespace).
 
+A file holding a whole series (several spectra, NTUPLES pages per time point, a matrix
+table) is refused here with a message naming ``[run] file``; such files are read trace by
+trace by :func:`kinetics.spectra.arrayed.read_traces`.
+
 Every problem is an :class:`~kinetics.errors.InputFileError` naming the file, the line
 when known and what to do.  Files above :data:`MAX_FILE_BYTES` are refused before they
 are read, so a stray disk image dropped into a watched folder cannot fill memory, and no
