@@ -172,7 +172,13 @@ class Run:
         from kinetics.sensitivity import processed_run
 
         folder = Path(self.config.folder)
-        spectra, _, _ = processed_run(self.config, paths=[folder / name for name in self.table["file"]])
+        names = list(self.table["file"])
+        if self.config.file is not None:  # the traces of one arrayed file, read once
+            from kinetics.run.sources import trace_records
+
+            spectra, _, _ = processed_run(self.config, records=trace_records(self.config, names))
+        else:
+            spectra, _, _ = processed_run(self.config, paths=[folder / name for name in names])
         return tuple(spectra)
 
 

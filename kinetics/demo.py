@@ -372,7 +372,7 @@ def make_f19_arrayed(folder: str | Path) -> Path:
     and ``truth.csv``; returns the arrayed file.  Bit for bit the same on every call."""
     import tempfile
 
-    from kinetics.spectra.arrayed import write_arrayed_jcampdx
+    from kinetics.spectra.arrayed_writers import write_arrayed_jcampdx
     from kinetics.spectra.reader import read
 
     folder = Path(folder)

@@ -209,3 +209,24 @@ def test_load_campaign_in_this_process_writes_nothing(tmp_path, monkeypatch):
     outcome = kinetics.load_campaign(ROOT / "configs" / "demo_campaign.toml", scheduler="none")
     assert outcome.success and outcome.fit.converged
     assert outcome.files == () and list(tmp_path.iterdir()) == []
+
+
+def test_an_arrayed_run_through_the_api():
+    # the 19F demo is one arrayed JCAMP-DX file (demo_series/f19_arrayed, generator truth in
+    # its truth.json): the API reads its traces from that file, not as files of a folder,
+    # and the k interval holds the generator's k
+    import json
+
+    root = Path(__file__).resolve().parent.parent
+    truth = json.loads((root / "demo_series" / "f19_arrayed" / "truth.json").read_text())
+    run = kinetics.load_run(root / "configs" / "demo_19f.toml", processing_uncertainty=False)
+    k = run.k()
+    assert k["ci95"][0] < truth["scenario"]["k_per_s"] < k["ci95"][1]
+    spectra = run.spectra
+    assert len(spectra) == len(run.table) == len(truth["files"])
+    # every trace is referenced to the standard's tabulated shift (PhCF3, -63.72 ppm)
+    for spectrum in spectra[::9]:
+        ppm, real = np.asarray(spectrum.ppm), np.asarray(spectrum.real)
+        window = (ppm > -64.2) & (ppm < -63.2)
+        assert spectrum.nucleus == "19F"
+        assert abs(ppm[window][np.argmax(real[window])] - truth["scenario"]["standard_ppm"]) < 0.01

@@ -21,17 +21,8 @@ import pytest
 from kinetics import simulate
 from kinetics.errors import InputFileError
 from kinetics.spectra import read
-from kinetics.spectra.arrayed import (
-    Trace,
-    arrayed_text,
-    is_arrayed,
-    link_parts,
-    parse_time_cell,
-    parse_traces,
-    read_traces,
-    write_arrayed_jcampdx,
-    write_matrix_table,
-)
+from kinetics.spectra.arrayed import Trace, is_arrayed, parse_time_cell, parse_traces, read_traces
+from kinetics.spectra.arrayed_writers import arrayed_text, link_parts, write_arrayed_jcampdx, write_matrix_table
 from kinetics.spectra.jcampdx import fid_text, spectrum_text
 from kinetics.spectra.reader import parse_loaded
 from kinetics.spectra.text import LoadedText

@@ -40,7 +40,8 @@ from kinetics.config import load_run_config
 from kinetics.errors import ConfigError
 from kinetics.processing.steps import peak_position
 from kinetics.run.engine import batch_run, plan_from_config
-from kinetics.spectra.arrayed import read_traces, write_arrayed_jcampdx, write_matrix_table
+from kinetics.spectra.arrayed import read_traces
+from kinetics.spectra.arrayed_writers import write_arrayed_jcampdx, write_matrix_table
 from kinetics.spectra.delimited import write_csv
 from kinetics.spectra.reader import read
 from kinetics.spectra.spectrum import Spectrum

@@ -29,7 +29,8 @@ from hypothesis import strategies as st
 
 from kinetics.errors import InputFileError
 from kinetics.spectra import Fid, Spectrum
-from kinetics.spectra.arrayed import Trace, arrayed_text, matrix_text, parse_traces, read_traces
+from kinetics.spectra.arrayed import Trace, parse_traces, read_traces
+from kinetics.spectra.arrayed_writers import arrayed_text, matrix_text
 from kinetics.spectra.delimited import csv_text
 from kinetics.spectra.jcampdx import fid_text, spectrum_text
 from kinetics.spectra.reader import parse_loaded, read

@@ -22,6 +22,8 @@ Statistics: weighted least squares over the pooled courses (``(y - f)/sigma``, s
 the runs when every course used has one, else equal weights with the noise estimated from
 the fit).  Intervals are profile-likelihood 95 % intervals (:mod:`kinetics.rates.intervals`:
 the F-based threshold ``S_min (1 + t^2/dof)``, or ``S_min + chi2_1`` with ``absolute_sigma``).
+A residual bootstrap (:func:`resample_runs`, :func:`percentile_intervals`; the refits run as
+tasks in :mod:`kinetics.campaign.runner`) gives percentile intervals beside them as a cross-check.
 Model choice by AICc with Akaike weights (as :mod:`kinetics.rates.compare`), and the single-run
 guardrails of :mod:`kinetics.rates.diagnostics` on the pooled residuals, plus a per-run
 runs test that names a run the shared law does not describe.

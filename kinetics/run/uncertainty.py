@@ -45,7 +45,15 @@ def run_spectra(config, measurements, reference):
     reference_spectrum = None if reference is None else reference.spectrum
     if missing:
         log.info("processing uncertainty: %d spectra not in memory are read again", len(missing))
-        spectra, again, made = sens.processed_run(config, paths=[m.path for m in missing], reference=reference)
+        if getattr(config, "file", None) is not None:  # traces of one arrayed file, read once
+            from pathlib import Path
+
+            from kinetics.run.sources import trace_records
+
+            records = trace_records(config, [Path(m.path).name for m in missing])
+            spectra, again, made = sens.processed_run(config, records=records, reference=reference)
+        else:
+            spectra, again, made = sens.processed_run(config, paths=[m.path for m in missing], reference=reference)
         reread = {m.path: s for m, s in zip(missing, spectra)}
         reference_spectrum = made if reference_spectrum is None else reference_spectrum
     spectra = [m.spectrum if m.spectrum is not None else reread[m.path] for m in measurements]
