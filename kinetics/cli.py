@@ -443,6 +443,10 @@ def _cmd_demo(args) -> int:
 def _fmt(entry, digits: int = 4) -> str:
     if not entry or entry.get("value") is None:
         return "n/a"
+    if entry.get("stderr") is not None:  # value and uncertainty rounded together, then the interval
+        from kinetics.numbers import format_estimate
+
+        return format_estimate(entry)
     ci = entry.get("ci95") or [None, None]
     interval = "" if None in ci else f"  (95 %: {ci[0]:.{digits}g} .. {ci[1]:.{digits}g})"
     return f"{entry['value']:.{digits}g} {entry.get('unit', '')}{interval}"
@@ -476,11 +480,11 @@ def _job_text(job, quiet: bool = False) -> str:
     if job.runs:
         lines.append("")
         width = max(12, *(len(run.label) + 1 for run in job.runs))
-        lines.append(f"{'run':<{width}} {'spectra':>7}  {'k with 95 % interval':<48} {'fit'}")
+        lines.append(f"{'run':<{width}} {'spectra':>7}  {'k with 95 % interval':<64} {'fit'}")
         for run in job.runs:
             status = "no fit" if run.fit is None else ("converged" if run.fit.converged else
                                                         f"NOT converged: {run.fit.message}")
-            lines.append(f"{run.label:<{width}} {len(run.table):>7}  {_fmt(run.k()):<48} {status}")
+            lines.append(f"{run.label:<{width}} {len(run.table):>7}  {_fmt(run.k()):<64} {status}")
             if run.breakdown():
                 lines.append(f"{'':<{width}} {'':>7}  {run.breakdown()}")
             skipped = {k: v for k, v in run.counts.items() if k not in ("processed",) and v}
