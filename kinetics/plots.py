@@ -30,6 +30,7 @@ from kinetics.atomic import write_atomic
 __all__ = [
     "styled",
     "time_scale",
+    "species_label",
     "SeriesStyle",
     "SERIES_STYLES",
     "series_style",
@@ -417,6 +418,11 @@ def concentration_figure(
     return figure
 
 
+def species_label(column: str) -> str:
+    """``ester_concentration`` -> ``ester``: the legend names the species, the axis the quantity."""
+    return column[: -len("_concentration")] if column.endswith("_concentration") and len(column) > 14 else column
+
+
 def fit_figure(fit, *, species: Mapping | None = None, concentration_unit: str = "mol L⁻¹",
                n_curve: int = 300, title: str | None = None, width: str | float = "double") -> Figure:
     """A rate-law fit: measured and fitted courses, 95 % band, residuals (:func:`concentration_figure`).
@@ -434,13 +440,10 @@ def fit_figure(fit, *, species: Mapping | None = None, concentration_unit: str =
     n_curve : int
         Points of the fitted curve and its band.
     """
-    def label(column: str) -> str:  # ``ester_concentration`` -> ``ester``: the axis names the quantity
-        return column[: -len("_concentration")] if column.endswith("_concentration") and len(column) > 14 else column
-
     time_s = np.asarray(fit.time_s, float)
     observed = np.atleast_2d(np.asarray(fit.observed, float))
     fitted = np.atleast_2d(np.asarray(fit.fitted, float))
-    columns = [label(str(c)) for c in fit.columns]
+    columns = [species_label(str(c)) for c in fit.columns]
     sigma_array = getattr(getattr(fit, "data", None), "sigma", None)
     curve_t = np.linspace(float(time_s.min()), float(time_s.max()), n_curve)
     curve, low, high = (np.atleast_2d(np.asarray(a, float)) for a in fit.band(curve_t))
@@ -450,12 +453,12 @@ def fit_figure(fit, *, species: Mapping | None = None, concentration_unit: str =
         if isinstance(values, tuple) and len(values) == 2:
             values, errors = values
             if errors is not None:
-                sigma_map[label(str(name))] = np.asarray(errors, float)
+                sigma_map[species_label(str(name))] = np.asarray(errors, float)
         values = np.asarray(values, float)
         if values.shape != time_s.shape:
             raise ValueError(f"species {name!r}: {values.shape[0] if values.ndim else 0} values for "
                              f"{time_s.size} time points")
-        observed_map[label(str(name))] = values
+        observed_map[species_label(str(name))] = values
     return concentration_figure(
         time_s, observed_map, sigma=sigma_map or None, curve_time_s=curve_t, curve=dict(zip(columns, curve)),
         band={c: (lo, hi) for c, lo, hi in zip(columns, low, high) if np.all(np.isfinite(lo))},
@@ -500,16 +503,12 @@ def _is_temperature_result(item) -> bool:
 
 def _result_line(result, which: str, n_line: int = 100) -> dict:
     """The weighted line of a TemperatureResult with its 95 % band, on a temperature grid."""
-    from kinetics.temperature import quantile95
-
     t = np.asarray(result.temperature_kelvin, float)
     x = 1.0 / t
     pad = 0.06 * np.ptp(x) if np.ptp(x) > 0 else 0.02 * x.mean()
     grid_x = np.linspace(x.min() - pad, x.max() + pad, n_line)
-    line_fit = getattr(result, which)
-    value, stderr = line_fit.predict(grid_x, result.basis)
-    q = quantile95(result.basis, line_fit.dof)
-    return {"temperature_kelvin": 1.0 / grid_x, "value": value, "low": value - q * stderr, "high": value + q * stderr}
+    value, low, high = getattr(result, which).band95(grid_x, result.basis)
+    return {"temperature_kelvin": 1.0 / grid_x, "value": value, "low": low, "high": high}
 
 
 def _temperature_figure(
@@ -722,10 +721,9 @@ def global_fit_figure(
         raise ValueError("global_fit_figure needs at least one run")
     if model is None and global_result is not None:
         from kinetics.errors import KineticsError
-        from kinetics.temperature import resolve_model
 
         try:  # the rate law named in the result (a custom function cannot be named: data only)
-            model = resolve_model(global_result.model_name)
+            model = global_result.model()
         except (KineticsError, ValueError, KeyError):
             model = None
     n_cols = min(len(runs), max_columns)

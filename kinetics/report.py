@@ -298,11 +298,6 @@ def _sentence(text) -> str:
     return text if text.endswith((".", "!", "?")) else text + "."
 
 
-def _species_label(column: str) -> str:
-    """``ester_concentration`` -> ``ester`` (the legend names the species, the axis the quantity)."""
-    return column[: -len("_concentration")] if column.endswith("_concentration") and len(column) > 14 else column
-
-
 def fit_section(fit, *, heading: str = "Concentrations and fitted rate law", comparison=None,
                 concentration_unit: str = "mol L⁻¹", n_curve: int = 300, name: str = "fit",
                 species: Mapping[str, Any] | None = None, fit_report: bool = True,
@@ -329,34 +324,12 @@ def fit_section(fit, *, heading: str = "Concentrations and fitted rate law", com
     compact : bool
         Give the fit statistics in the parameters' caption instead of a table of their own.
     """
-    time_s = np.asarray(fit.time_s, float)
-    observed = np.atleast_2d(np.asarray(fit.observed, float))
-    fitted = np.atleast_2d(np.asarray(fit.fitted, float))
-    columns = [str(c) for c in fit.columns]
-    sigma_array = getattr(getattr(fit, "data", None), "sigma", None)
-    curve_t = np.linspace(float(time_s.min()), float(time_s.max()), n_curve)
-    curve, low, high = (np.atleast_2d(np.asarray(a, float)) for a in fit.band(curve_t))
-    columns = [_species_label(c) for c in columns]
-    observed_map = dict(zip(columns, observed))
-    sigma_map = {} if sigma_array is None else dict(zip(columns, np.atleast_2d(sigma_array)))
-    for label, values in (species or {}).items():
-        if isinstance(values, tuple) and len(values) == 2:
-            values, errors = values
-            if errors is not None:
-                sigma_map[_species_label(str(label))] = np.asarray(errors, float)
-        values = np.asarray(values, float)
-        if values.shape != time_s.shape:
-            raise ValueError(f"species {label!r}: {values.shape[0] if values.ndim else 0} values for "
-                             f"{time_s.size} time points")
-        observed_map[_species_label(str(label))] = values
-    figure = plots.concentration_figure(
-        time_s, observed_map, sigma=sigma_map or None,
-        curve_time_s=curve_t, curve=dict(zip(columns, curve)),
-        band={c: (lo, hi) for c, lo, hi in zip(columns, low, high) if np.all(np.isfinite(lo))},
-        fitted=dict(zip(columns, fitted)), concentration_unit=concentration_unit)
+    columns = [plots.species_label(str(c)) for c in fit.columns]
+    figure = plots.fit_figure(fit, species=species, concentration_unit=concentration_unit, n_curve=n_curve)
     summary = fit.to_dict()
     status = "converged" if summary.get("converged") else "did NOT converge"
-    others = [label for label in observed_map if label not in columns]
+    others = [label for label in dict.fromkeys(plots.species_label(str(name)) for name in (species or {}))
+              if label not in columns]
     shown = (f"Points: measured {', '.join(columns + others)} (error bars: standard uncertainty); "
              f"lines: the fitted rate law for {', '.join(columns)}"
              + (" (the other courses are measured only, not fitted)" if others else ""))

@@ -306,9 +306,9 @@ def _estimate_text(parameter: dict | None, fallback) -> str:
 
 
 def status_document(status, final: bool, name: str | None = None, refresh_s: float | None = None) -> dict:
-    """The page's data from a :class:`kinetics.run.outputs.LiveStatus` alone (no series,
+    """The page's data from a :class:`kinetics.livepage.status.LiveStatus` alone (no series,
     no spectra): what a page without a run state shows."""
-    from kinetics.run.outputs import format_parameter, status_lines
+    from kinetics.livepage.status import format_parameter, status_lines
 
     counts = status.counts
     return {

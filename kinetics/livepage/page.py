@@ -41,7 +41,7 @@ def render_page(status, png: bytes | None, refresh_s: float | None, document: di
 
     Parameters
     ----------
-    status : kinetics.run.outputs.LiveStatus
+    status : kinetics.livepage.status.LiveStatus
         Its lines are written into the page as text, for readers without scripts.
     png : bytes or None
         The static figure (``series.png``), shown only where scripts do not run.
@@ -50,7 +50,7 @@ def render_page(status, png: bytes | None, refresh_s: float | None, document: di
     document : dict
         The page's data (:func:`kinetics.livepage.data.live_document`).
     """
-    from kinetics.run.outputs import status_lines
+    from kinetics.livepage.status import status_lines
 
     escape = html.escape
     name, state = str(document.get("run", "")), str(document.get("state", ""))

@@ -383,6 +383,10 @@ class GlobalFitResult:
     def reduced_chi2(self) -> float:
         return self.chi2 / self.dof if self.dof > 0 else float("nan")
 
+    def model(self) -> "GlobalModel":
+        """The rate law this result names (:func:`resolve_model` of ``model_name``)."""
+        return resolve_model(self.model_name)
+
     def k_at(self, temperature_kelvin) -> np.ndarray:
         """k(T) from the fitted Ea and k_ref, shape like ``temperature_kelvin``."""
         t = np.asarray(temperature_kelvin, float)

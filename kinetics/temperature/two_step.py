@@ -104,6 +104,14 @@ class LineFit:
         var = cov[0, 0] + 2 * x * cov[0, 1] + x**2 * cov[1, 1]
         return y, np.sqrt(var)
 
+    def band95(self, x, basis: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Line value at ``x`` and its two-sided 95 % band ``(value, low, high)``: value ±
+        q * standard error, q from :func:`quantile95` (Student t with ``dof`` degrees of
+        freedom on the scatter basis, normal on stated errors)."""
+        value, stderr = self.predict(x, basis)
+        q = quantile95(basis, self.dof)
+        return value, value - q * stderr, value + q * stderr
+
 
 def quantile95(basis: str, dof: int) -> float:
     """Two-sided 95 % multiplier: Student t for the scatter basis, normal for stated errors."""
