@@ -27,6 +27,7 @@ import pytest
 
 sys.path.insert(0, str(Path(__file__).parent))
 import test_live_support as support  # noqa: E402
+from test_live_real import CONFIG as SERIES_CONFIG  # noqa: E402  (the simulated A -> B run, standard S)
 
 from kinetics.run import batch_run, plan_from_config  # noqa: E402
 from kinetics.run.engine import process_ready, ready_files  # noqa: E402
@@ -171,44 +172,6 @@ def test_live_run_sees_a_same_size_same_mtime_rewrite_as_batch_does(tmp_path, po
         old, new = ledger.versions("spec_0003.csv")
         assert old.replaced and not new.replaced and new.sha256 == sha256(target) != old.sha256
     assert live.outcome.fit == batch.outcome.fit
-
-
-SERIES_CONFIG = """
-[run]
-folder = "{folder}"
-pattern = "*.jdx"
-
-[quantify]
-mode = "standard"
-standard = "S"
-reactant = "A"
-product = "B"
-
-[[signals]]
-name = "A"
-species = "A"
-window_ppm = [1.8, 2.2]
-nuclei = 3
-
-[[signals]]
-name = "B"
-species = "B"
-window_ppm = [3.3, 3.7]
-nuclei = 3
-
-[[signals]]
-name = "S"
-species = "S"
-window_ppm = [-0.2, 0.2]
-nuclei = 12
-standard = true
-concentration_mol_per_l = 0.05
-
-[live]
-quiet_period_s = 0.2
-poll = true
-poll_interval_s = 0.05
-"""
 
 
 def simulate_series(folder: Path, seed: int, n: int = 8) -> None:

@@ -10,6 +10,8 @@ the key, before any file is taken (nothing quarantined), never a traceback.
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 
@@ -188,3 +190,47 @@ def test_a_run_folder_the_file_system_cannot_take_is_a_config_error(tmp_path, ca
     assert code == 2 and "Traceback" not in err, err
     lines = [line for line in err.splitlines() if line.strip()]
     assert len(lines) == 1 and "'run.folder'" in lines[0] and len(lines[0]) < 600, err
+
+
+@pytest.mark.parametrize("region, line_ppm", [("[1.45, 1.75]", None), ("[-0.15, 0.15]", 0.0),
+                                              ("[12.0, 14.0]", "clean"), ("[9.0, 11.0]", "clean")])
+def test_real_600_mhz_spectrum_noise_regions(tmp_path, region, line_ppm):
+    # A real spectrum, not made by the project's simulator: butyl acrylate at 600.13 MHz in
+    # CDCl3 with TMS (tests/data/butyl-acrylate.1h.dx, assignments in tests/data/README.md:
+    # O-CH2-CH2 multiplet 1.52-1.66 ppm, TMS at 0 ppm; no line above 9 ppm).  Only the
+    # O-CH2 and CH3 signals are declared, so a noise region over the undeclared CH2
+    # multiplet or the TMS line must be refused, and the empty regions accepted.
+    import shutil
+
+    from kinetics.spectra import read
+
+    (tmp_path / "run").mkdir()
+    shutil.copy(Path(__file__).parent / "data" / "butyl-acrylate.1h.dx", tmp_path / "run" / "s.dx")
+    (tmp_path / "run.toml").write_text(f"""[run]
+folder = "run"
+pattern = "*.dx"
+[integration]
+noise_region_ppm = {region}
+[quantify]
+mode = "relative"
+reactant = "ester"
+[[signals]]
+name = "och2"
+species = "ester"
+window_ppm = [4.02, 4.16]
+nuclei = 2
+[[signals]]
+name = "ch3"
+species = "ester"
+window_ppm = [0.82, 0.94]
+nuclei = 3
+""")
+    problems = preflight.first_spectrum_problems(load_run_config(tmp_path / "run.toml"),
+                                                 read(tmp_path / "run" / "s.dx"))
+    if line_ppm == "clean":
+        assert problems == []
+    else:
+        assert [p.key for p in problems] == ["integration.noise_region_ppm"], problems
+        assert "line" in problems[0].problem
+        if line_ppm is not None:
+            assert f"{line_ppm:.2f}" in problems[0].problem or f"{line_ppm:.3f}" in problems[0].problem

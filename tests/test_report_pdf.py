@@ -19,6 +19,8 @@ from pathlib import Path
 import pytest
 from pypdf import PdfReader
 
+import tests_support_report as support
+
 REPO = Path(__file__).resolve().parents[1]
 A4_HEIGHT_PT = 841.89
 TOP_MARGIN_PT = 1.5 * 72 / 2.54
@@ -35,29 +37,10 @@ def demo_report(tmp_path_factory):
     return outcome.report_html.parent
 
 
-def _fonts(resources, seen) -> list:
-    """Every font dictionary reachable from a resource dictionary (form XObjects included)."""
-    found = []
-    if resources is None:
-        return found
-    resources = resources.get_object()
-    for font in (resources.get("/Font") or {}).values():
-        font = font.get_object()
-        if id(font) not in seen:
-            seen.add(id(font))
-            found.append(font)
-    for xobject in (resources.get("/XObject") or {}).values():
-        xobject = xobject.get_object()
-        if xobject.get("/Subtype") == "/Form" and id(xobject) not in seen:
-            seen.add(id(xobject))
-            found += _fonts(xobject.get("/Resources"), seen)
-    return found
-
-
 def test_no_type3_fonts_every_font_embedded_truetype(demo_report):
     reader = PdfReader(demo_report / "report.pdf")
     seen: set = set()
-    fonts = [f for page in reader.pages for f in _fonts(page.get("/Resources"), seen)]
+    fonts = [f for page in reader.pages for f in support.fonts(page.get("/Resources"), seen)]
     assert fonts
     for font in fonts:
         assert font.get("/Subtype") != "/Type3", font.get("/BaseFont")
